@@ -5,10 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Callable
 
-CAUTION = (
-    "Caution: factors of safety are decision support only. They depend on the model and its "
-    "inputs and do not replace a qualified engineer's judgement or local codes."
-)
+from watch.caution import CAUTION
 
 
 def run_demo(workspace: Path, echo: Callable[[str], None] = print) -> None:
