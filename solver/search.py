@@ -1,0 +1,1398 @@
+"""Search for the critical slip surface, and warm re-evaluation of a previous search.
+
+Circular searches generate many trial circles at once (grid and radius, or entry and exit), slice
+them all with :func:`solver.slicing.slice_circles` and solve them all with
+:func:`solver.methods.factor_of_safety`, in batches. The best circle is then refined by a
+shrinking pattern search whose trial moves are also solved as one batch, and may be turned into a
+polyline whose vertices are moved with :func:`scipy.optimize.minimize` (non-circular search).
+
+Every search returns a :class:`SearchResult` that keeps the best few *distinct* surfaces. During
+the wet season only the water lines change, so :func:`warm_reevaluate` re-slices just those cached
+surfaces with the new water lines (cheap) instead of searching again, and says whether the change
+is large enough that a full search is advised. It never runs the full search itself.
+
+Coordinates are in the section's own frame (x along the section [m], y elevation [m]), whichever
+way the slope faces; slicing handles the mirroring into the movement frame.
+
+References
+----------
+Duncan, J.M., Wright, S.G. and Brandon, T.L. (2014). Soil Strength and Slope Stability, 2nd ed.
+    Wiley. Ch. 8 (searching for the critical slip surface: grids of centres, tangent lines,
+    non-circular surfaces and local minima).
+Greco, V.R. (1996). Efficient Monte Carlo technique for locating critical slip surface. Journal of
+    Geotechnical Engineering, ASCE, 122(7), 517-525 (kinematic admissibility of polylines).
+Hooke, R. and Jeeves, T.A. (1961). "Direct search" solution of numerical and statistical problems.
+    Journal of the ACM, 8(2), 212-229 (pattern search with shrinking steps).
+Nelder, J.A. and Mead, R. (1965). A simplex method for function minimization. The Computer
+    Journal, 7(4), 308-313.
+"""
+
+from __future__ import annotations
+
+import inspect
+from collections import Counter
+from dataclasses import dataclass, field, replace
+from itertools import product
+
+import numpy as np
+from scipy import optimize
+
+from solver.constants import (
+    FOS_TOLERANCE,
+    MAX_ITERATIONS,
+    SEARCH_BATCH_SIZE,
+    SEARCH_FULL_SEARCH_TOLERANCE,
+    SEARCH_KEEP,
+    SEARCH_MAX_ANGLE_CHANGE_DEG,
+    SEARCH_MAX_INCLINATION_DEG,
+    SEARCH_MIN_DEPTH,
+    SEARCH_MIN_SEPARATION,
+    SEARCH_POLYLINE_MAX_EVALUATIONS,
+    SEARCH_POLYLINE_VERTICES,
+    SEARCH_REFINE_MAX_STEPS,
+    SEARCH_REFINE_STEP_TOLERANCE,
+    SEARCH_SLICES,
+)
+from solver import methods
+from solver.errors import MethodError, SearchError
+from solver.methods import factor_of_safety
+from solver.slicing import slice_circles, slice_polyline
+from solver.surfaces import surface_from_entry_exit
+
+__all__ = [
+    "RankedSurface",
+    "SearchResult",
+    "SearchSettings",
+    "SlopeGeometry",
+    "WarmResult",
+    "default_entry_exit",
+    "default_grid",
+    "entry_exit",
+    "every_method",
+    "grid_and_radius",
+    "grid_circles",
+    "optimise_polyline",
+    "polyline_from_circle",
+    "refine_circle",
+    "rerank",
+    "search_critical_surface",
+    "slope_geometry",
+    "warm_reevaluate",
+]
+
+#: Reasons recorded for trial surfaces without a usable factor of safety (they never win).
+NOT_CONVERGED = "method did not converge"
+NO_FOS = "no positive factor of safety (driving load not positive or iteration broke down)"
+#: Reasons recorded for admissible surfaces removed by the size filters.
+TOO_SHALLOW = "shallower than min_depth"
+TOO_SMALL = "sliding mass smaller than min_area"
+
+#: Penalty added to the objective of the polyline optimisation for an inadmissible polyline; far
+#: above any factor of safety, so the optimiser retreats from it.
+_PENALTY = 1.0e3
+
+
+# ----------------------------------------------------------------------------------------------
+# Settings and results
+# ----------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class SearchSettings:
+    """Settings shared by every search.
+
+    Parameters
+    ----------
+    method : str
+        Method of slices used to rank the trial surfaces (a name accepted by
+        :func:`solver.methods.factor_of_safety`).
+    n_slices : int
+        Slices per trial surface.
+    min_depth : float
+        [m] Smallest admissible vertical depth of the slip surface below the ground; shallower
+        slides (skin slips) do not win. 0 lets every surface compete.
+    min_area : float
+        [m2] Smallest admissible area of the sliding mass. 0 lets every surface compete.
+    keep : int
+        Number of distinct best surfaces kept in the result (and re-evaluated by
+        :func:`warm_reevaluate`).
+    min_separation : float
+        [m] Two kept surfaces differ by at least this much in entry or exit offset, so the kept
+        surfaces describe different mechanisms rather than neighbours of one circle.
+    tolerance : float
+        Tolerance on the factor of safety passed to an iterative method [-].
+    max_iterations : int
+        Iteration limit passed to an iterative method.
+    admissible_only : bool
+        When True (default), surfaces whose result the method flags as physically doubtful
+        (m_alpha at or below M_ALPHA_MIN, negative effective normal force on a frictional base,
+        line of thrust outside the mass) do not compete; they are counted in ``filtered``.
+    batch_size : int
+        Trial surfaces sliced and solved together; bounds the memory of big searches.
+    """
+
+    method: str = "bishop_simplified"
+    n_slices: int = SEARCH_SLICES
+    min_depth: float = SEARCH_MIN_DEPTH
+    min_area: float = 0.0
+    keep: int = SEARCH_KEEP
+    min_separation: float = SEARCH_MIN_SEPARATION
+    tolerance: float = FOS_TOLERANCE
+    max_iterations: int = MAX_ITERATIONS
+    admissible_only: bool = True
+    batch_size: int = SEARCH_BATCH_SIZE
+
+    def __post_init__(self) -> None:
+        if self.method not in methods.METHOD_NAMES:
+            raise MethodError(
+                f"unknown method {self.method!r}; valid methods: {', '.join(methods.METHOD_NAMES)}"
+            )
+        _require_int("n_slices", self.n_slices, 1)
+        _require_int("keep", self.keep, 1)
+        _require_int("batch_size", self.batch_size, 1)
+        for name in ("min_depth", "min_area", "min_separation"):
+            value = getattr(self, name)
+            if not np.isfinite(value) or value < 0:
+                raise MethodError(f"search setting {name} must be a number >= 0, got {value!r}")
+
+
+@dataclass(frozen=True)
+class RankedSurface:
+    """One trial surface kept by a search, with its factor of safety.
+
+    Attributes
+    ----------
+    kind : str
+        "circle" or "polyline".
+    fos : float
+        Factor of safety [-] by ``method``.
+    method : str
+        Method of slices that gave ``fos``.
+    converged : bool
+        Whether the method converged on this surface.
+    centre_x, centre_y, radius : float
+        Circle centre and radius [m], section frame; NaN for polylines.
+    points : ndarray (k, 2) or None
+        Vertices of a polyline [m], section frame; None for circles.
+    entry_x, exit_x : float
+        Offsets [m] where the surface leaves the ground at the upper end (entry, behind the
+        crest) and at the lower end (exit, towards the toe), section frame.
+    depth : float
+        Largest vertical depth of the surface below the ground [m] (at slice mid-points).
+    area : float
+        Area of the sliding mass [m2].
+    """
+
+    kind: str
+    fos: float
+    method: str
+    converged: bool
+    centre_x: float
+    centre_y: float
+    radius: float
+    points: np.ndarray | None
+    entry_x: float
+    exit_x: float
+    depth: float
+    area: float
+
+    def describe(self) -> str:
+        """One line locating the surface, for reports."""
+        where = f"entry x = {self.entry_x:.2f} m, exit x = {self.exit_x:.2f} m"
+        if self.kind == "circle":
+            return (
+                f"circle centre ({self.centre_x:.2f}, {self.centre_y:.2f}) m, "
+                f"radius {self.radius:.2f} m, {where}, depth {self.depth:.2f} m"
+            )
+        return f"polyline of {len(self.points)} vertices, {where}, depth {self.depth:.2f} m"
+
+
+@dataclass(frozen=True)
+class SearchResult:
+    """Outcome of a critical-surface search.
+
+    Attributes
+    ----------
+    surfaces : tuple of RankedSurface
+        The best distinct surfaces, lowest factor of safety first.
+    method : str
+        Method of slices used for ranking.
+    settings : SearchSettings
+        Settings of the search (reused by refinement and warm re-evaluation).
+    n_trials : int
+        Trial surfaces generated (all stages).
+    n_valid : int
+        Trial surfaces that were geometrically admissible and solved.
+    rejected : Counter
+        Trial surfaces rejected by slicing, counted by reason.
+    filtered : Counter
+        Admissible surfaces that did not compete, counted by reason (too shallow, too small,
+        method did not converge).
+    stages : tuple of str
+        Search stages run, in order (e.g. "grid and radius", "circle refinement").
+    notes : tuple of str
+        Warnings about the search itself, e.g. a best grid centre on the edge of the grid.
+    """
+
+    surfaces: tuple[RankedSurface, ...]
+    method: str
+    settings: SearchSettings
+    n_trials: int
+    n_valid: int
+    rejected: Counter = field(default_factory=Counter)
+    filtered: Counter = field(default_factory=Counter)
+    stages: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+
+    @property
+    def critical(self) -> RankedSurface:
+        """The surface with the lowest factor of safety."""
+        return self.surfaces[0]
+
+    @property
+    def fos(self) -> float:
+        """The lowest factor of safety found [-]."""
+        return self.surfaces[0].fos
+
+    @property
+    def n_rejected(self) -> int:
+        return sum(self.rejected.values())
+
+    @property
+    def n_filtered(self) -> int:
+        return sum(self.filtered.values())
+
+
+@dataclass(frozen=True)
+class WarmResult:
+    """Outcome of :func:`warm_reevaluate`.
+
+    Attributes
+    ----------
+    fos : float
+        Lowest factor of safety among the cached surfaces under the new conditions [-].
+    critical : RankedSurface
+        The cached surface that now gives ``fos``.
+    surfaces : tuple of RankedSurface
+        The cached surfaces re-evaluated, lowest factor of safety first (surfaces that became
+        inadmissible or did not converge are left out and listed in ``dropped``).
+    previous_fos : float
+        Critical factor of safety of the previous result [-].
+    relative_change : float
+        (fos - previous_fos) / previous_fos [-].
+    ranking_changed : bool
+        True when the critical surface is no longer the previous critical surface.
+    full_search_advised : bool
+        True when the relative change exceeds the tolerance or the ranking changed: the
+        critical surface may have moved outside the cached set. The caller decides whether to
+        run a full search; this function never does.
+    reasons : tuple of str
+        Why a full search is advised (empty when it is not).
+    dropped : Counter
+        Cached surfaces that could not be re-evaluated, by reason.
+    evaluation : str
+        What was done: always a warm re-evaluation of the cached surfaces, never a full search.
+    method : str
+        Method of slices used.
+    """
+
+    fos: float
+    critical: RankedSurface
+    surfaces: tuple[RankedSurface, ...]
+    previous_fos: float
+    relative_change: float
+    ranking_changed: bool
+    full_search_advised: bool
+    reasons: tuple[str, ...]
+    dropped: Counter
+    evaluation: str
+    method: str
+
+
+# ----------------------------------------------------------------------------------------------
+# Trial circles (pure geometry)
+# ----------------------------------------------------------------------------------------------
+
+
+def grid_circles(
+    x_range: tuple[float, float],
+    y_range: tuple[float, float],
+    nx: int,
+    ny: int,
+    *,
+    tangent_elevations=None,
+    radii=None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Trial circles of the grid-and-radius search.
+
+    A rectangular grid of ``nx * ny`` centres; every centre carries one circle per tangent
+    elevation (the elevation its lowest point touches, ``radius = centre_y - tangent``) or one
+    per explicit radius. Circles with a radius <= 0 (tangent above the centre) are left out.
+
+    Parameters
+    ----------
+    x_range, y_range : (float, float)
+        [m] Extent of the grid of centres, section frame.
+    nx, ny : int
+        Centres along x and y (1 gives the middle of the range).
+    tangent_elevations : array_like, optional
+        [m] Elevations touched by the bottom of the circles.
+    radii : array_like, optional
+        [m] Explicit radii (give either these or ``tangent_elevations``).
+
+    Returns
+    -------
+    centre_x, centre_y, radius : ndarray (n,)
+        [m] One entry per trial circle, centre-major order.
+    """
+    _require_int("nx", nx, 1)
+    _require_int("ny", ny, 1)
+    if (tangent_elevations is None) == (radii is None):
+        raise MethodError("give either tangent_elevations or radii for the grid search, not both")
+    xs = _spread(x_range, nx, "x_range")
+    ys = _spread(y_range, ny, "y_range")
+    cx, cy = (a.ravel() for a in np.meshgrid(xs, ys, indexing="ij"))
+    if radii is not None:
+        levels = np.atleast_1d(np.asarray(radii, dtype=float))
+        radius = np.broadcast_to(levels, (cx.size, levels.size))
+    else:
+        levels = np.atleast_1d(np.asarray(tangent_elevations, dtype=float))
+        radius = cy[:, None] - levels[None, :]
+    if levels.size == 0 or not np.all(np.isfinite(levels)):
+        raise MethodError(f"grid search radii / tangent elevations must be finite, got {levels}")
+    centre_x = np.repeat(cx, levels.size)
+    centre_y = np.repeat(cy, levels.size)
+    radius = radius.ravel()
+    keep = radius > 0
+    return centre_x[keep], centre_y[keep], radius[keep]
+
+
+def polyline_from_circle(centre_x, centre_y, radius, entry_x, exit_x, entry_y, exit_y, n_vertices):
+    """Vertices of the arc of a circle between its two ground intersections, evenly spaced in
+    angle, as a polyline of ``n_vertices`` points [m] (k, 2), ordered by increasing x."""
+    _require_int("n_vertices", n_vertices, 3)
+    x_lo, x_hi = sorted((entry_x, exit_x))
+    y_lo = entry_y if x_lo == entry_x else exit_y
+    y_hi = exit_y if x_lo == entry_x else entry_y
+    theta_lo = np.arctan2(y_lo - centre_y, x_lo - centre_x)
+    theta_hi = np.arctan2(y_hi - centre_y, x_hi - centre_x)
+    # Walk from the left point through the bottom of the circle (-pi/2) to the right point.
+    if theta_lo > -0.5 * np.pi:
+        theta_lo -= 2 * np.pi
+    if theta_hi < -0.5 * np.pi:
+        theta_hi += 2 * np.pi
+    theta = np.linspace(theta_lo, theta_hi, n_vertices)
+    points = np.column_stack(
+        (centre_x + radius * np.cos(theta), centre_y + radius * np.sin(theta))
+    )
+    points[0] = (x_lo, y_lo)
+    points[-1] = (x_hi, y_hi)
+    return points
+
+
+# ----------------------------------------------------------------------------------------------
+# Default placement from the section's geometry
+# ----------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class SlopeGeometry:
+    """Where the slope is, read from the ground line (used to place default search grids).
+
+    ``x_crest``/``x_toe`` bound the face: the last point near the upper ground level and the
+    first near the lower one, walking down the slope. ``facing`` is +1 when the slope descends
+    towards +x, -1 otherwise. ``base_top`` is the highest point of the impenetrable base [m]
+    (None without a base).
+    """
+
+    facing: int
+    x_crest: float
+    x_toe: float
+    y_crest: float
+    y_toe: float
+    x_min: float
+    x_max: float
+    base_top: float | None
+
+    @property
+    def height(self) -> float:
+        return self.y_crest - self.y_toe
+
+    @property
+    def face_length(self) -> float:
+        return abs(self.x_toe - self.x_crest)
+
+
+def slope_geometry(section) -> SlopeGeometry:
+    """Crest, toe and facing of the slope of ``section`` (see :class:`SlopeGeometry`)."""
+    ground = _ground_points(section)
+    x, y = ground[:, 0], ground[:, 1]
+    facing = 1 if y[0] >= y[-1] else -1
+    if facing < 0:
+        x, y = -x[::-1], y[::-1]
+    y_high, y_low = y.max(), y.min()
+    band = 0.02 * max(y_high - y_low, 1e-9)
+    i_crest = int(np.nonzero(y >= y_high - band)[0].max())
+    after = np.nonzero((y <= y_low + band) & (np.arange(y.size) >= i_crest))[0]
+    i_toe = int(after.min()) if after.size else y.size - 1
+    x_crest, x_toe = facing * x[i_crest], facing * x[i_toe]
+    base = _base_points(section)
+    return SlopeGeometry(
+        facing=facing,
+        x_crest=float(x_crest),
+        x_toe=float(x_toe),
+        y_crest=float(y[i_crest]),
+        y_toe=float(y[i_toe]),
+        x_min=float(ground[0, 0]),
+        x_max=float(ground[-1, 0]),
+        base_top=None if base is None else float(base[:, 1].max()),
+    )
+
+
+def default_grid(section, nx: int = 30, ny: int = 30, n_radii: int = 20):
+    """Default grid and radius placement above the slope of ``section``.
+
+    Centres cover a rectangle above the face: in x from one slope width before the crest to one
+    after the toe (the slope width being the larger of the face's run and its height), in y from
+    the crest level up to two slope widths above it. The tangent elevations run from just below
+    the crest (shallow circles, which ``min_depth`` may filter) down to one slope height below
+    the toe, or down to the top of the impenetrable base. Common practice (Duncan, Wright and
+    Brandon 2014, ch. 8); the grid should be checked so that the critical centre is not on its
+    edge, which :func:`grid_and_radius` reports.
+
+    Returns
+    -------
+    dict
+        Keyword arguments for :func:`grid_circles`.
+    """
+    g = slope_geometry(section)
+    width = max(g.face_length, g.height, 1.0)
+    x_mid = 0.5 * (g.x_crest + g.x_toe)
+    half = 0.5 * g.face_length + width
+    lowest = g.y_toe - g.height
+    if g.base_top is not None:
+        lowest = g.base_top
+    tangents = np.linspace(g.y_crest - 0.05 * g.height, lowest, n_radii)
+    return dict(
+        x_range=(x_mid - half, x_mid + half),
+        y_range=(g.y_crest, g.y_crest + 2.0 * width),
+        nx=nx,
+        ny=ny,
+        tangent_elevations=tangents,
+    )
+
+
+def default_entry_exit(section, n_entry: int = 20, n_exit: int = 20, n_tangents: int = 10):
+    """Default ranges of the entry-and-exit search for ``section``.
+
+    Entry points run from one slope width behind the crest to the middle of the face; exit
+    points from the middle of the face to one slope width beyond the toe (clipped to the ground
+    line). Tangent elevations run from the toe level down to one slope height below it (or to the
+    top of the base). Common practice (Duncan, Wright and Brandon 2014, ch. 8).
+
+    Returns
+    -------
+    dict
+        Keyword arguments for :func:`entry_exit`.
+    """
+    g = slope_geometry(section)
+    width = max(g.face_length, g.height, 1.0)
+    x_mid = 0.5 * (g.x_crest + g.x_toe)
+    behind = np.clip(g.x_crest - g.facing * width, g.x_min, g.x_max)
+    beyond = np.clip(g.x_toe + g.facing * width, g.x_min, g.x_max)
+    lowest = g.y_toe - g.height if g.base_top is None else g.base_top
+    return dict(
+        entry_range=tuple(sorted((float(behind), float(x_mid)))),
+        exit_range=tuple(sorted((float(x_mid), float(beyond)))),
+        n_entry=n_entry,
+        n_exit=n_exit,
+        tangent_elevations=np.linspace(g.y_toe - 0.05 * g.height, lowest, n_tangents),
+    )
+
+
+# ----------------------------------------------------------------------------------------------
+# Searches
+# ----------------------------------------------------------------------------------------------
+
+
+def grid_and_radius(
+    section,
+    settings: SearchSettings | None = None,
+    *,
+    x_range=None,
+    y_range=None,
+    nx: int = 30,
+    ny: int = 30,
+    tangent_elevations=None,
+    radii=None,
+    n_radii: int = 20,
+) -> SearchResult:
+    """Grid-and-radius search for the critical circle.
+
+    Every centre of an ``nx * ny`` grid carries one circle per tangent elevation (or explicit
+    radius); all circles are sliced and solved in batches and the lowest factor of safety
+    among the admissible, converged circles that pass the size filters wins. Omitted ranges
+    and tangents come from :func:`default_grid`.
+
+    Parameters
+    ----------
+    section : Section
+        The cross-section.
+    settings : SearchSettings, optional
+        Method, slices, filters, numerical settings.
+    x_range, y_range : (float, float), optional
+        [m] Extent of the grid of centres.
+    nx, ny : int
+        Centres along x and y.
+    tangent_elevations, radii : array_like, optional
+        [m] Elevations touched by the circle bottoms, or explicit radii.
+    n_radii : int
+        Tangent elevations of the default placement.
+
+    Returns
+    -------
+    SearchResult
+
+    Raises
+    ------
+    SearchError
+        No circle is admissible; the message counts the rejections by reason.
+
+    References
+    ----------
+    Duncan, J.M., Wright, S.G. and Brandon, T.L. (2014). Soil Strength and Slope Stability,
+        2nd ed. Wiley, ch. 8.
+    """
+    settings = settings or SearchSettings()
+    if x_range is None or y_range is None or (tangent_elevations is None and radii is None):
+        default = default_grid(section, nx, ny, n_radii)
+        x_range = default["x_range"] if x_range is None else x_range
+        y_range = default["y_range"] if y_range is None else y_range
+        if tangent_elevations is None and radii is None:
+            tangent_elevations = default["tangent_elevations"]
+    centre_x, centre_y, radius = grid_circles(
+        x_range, y_range, nx, ny, tangent_elevations=tangent_elevations, radii=radii
+    )
+    n_dropped = nx * ny * np.atleast_1d(tangent_elevations if radii is None else radii).size
+    evaluated = _evaluate_circles(section, centre_x, centre_y, radius, settings)
+    evaluated.rejected["tangent above the centre"] += int(n_dropped - centre_x.size)
+    evaluated.n_trials += int(n_dropped - centre_x.size)
+    result = _finish(section, evaluated, settings, (f"grid and radius ({settings.method})",))
+    notes = _grid_edge_notes(result.critical, x_range, y_range, nx, ny, tangent_elevations,
+                             _base_points(section))
+    return replace(result, notes=notes)
+
+
+def entry_exit(
+    section,
+    settings: SearchSettings | None = None,
+    *,
+    entry_range=None,
+    exit_range=None,
+    n_entry: int = 20,
+    n_exit: int = 20,
+    tangent_elevations=None,
+    radii=None,
+    n_tangents: int = 10,
+) -> SearchResult:
+    """Entry-and-exit search for the critical circle.
+
+    Entry points on the upper ground and exit points on the lower ground (evenly spaced over
+    the given ranges, on the ground line) are joined by circles of each radius, or touching
+    each tangent elevation (:func:`solver.surfaces.surface_from_entry_exit`). Omitted ranges
+    come from :func:`default_entry_exit`.
+
+    Parameters
+    ----------
+    section : Section
+    settings : SearchSettings, optional
+    entry_range, exit_range : (float, float), optional
+        [m] Offsets of the entry (crest side) and exit (toe side) points.
+    n_entry, n_exit : int
+        Points in each range.
+    tangent_elevations, radii : array_like, optional
+        [m] Elevations touched by the circle bottoms, or radii.
+    n_tangents : int
+        Tangent elevations of the default placement.
+
+    Returns
+    -------
+    SearchResult
+
+    References
+    ----------
+    Duncan, J.M., Wright, S.G. and Brandon, T.L. (2014). Soil Strength and Slope Stability,
+        2nd ed. Wiley, ch. 8.
+    """
+    settings = settings or SearchSettings()
+    _require_int("n_entry", n_entry, 1)
+    _require_int("n_exit", n_exit, 1)
+    if entry_range is None or exit_range is None or (tangent_elevations is None and radii is None):
+        default = default_entry_exit(section, n_entry, n_exit, n_tangents)
+        entry_range = default["entry_range"] if entry_range is None else entry_range
+        exit_range = default["exit_range"] if exit_range is None else exit_range
+        if tangent_elevations is None and radii is None:
+            tangent_elevations = default["tangent_elevations"]
+    levels = np.atleast_1d(np.asarray(tangent_elevations if radii is None else radii, float))
+    x1 = _spread(entry_range, n_entry, "entry_range")
+    x2 = _spread(exit_range, n_exit, "exit_range")
+    x1, x2, level = (a.ravel() for a in np.meshgrid(x1, x2, levels, indexing="ij"))
+    key = "radius" if radii is not None else "tangent_elevation"
+    circles = surface_from_entry_exit(section, x1, x2, **{key: level})
+    cx, cy, r = (np.asarray(v, float) for v in (circles.centre_x, circles.centre_y, circles.radius))
+    ok = np.isfinite(r)
+    evaluated = _evaluate_circles(section, cx[ok], cy[ok], r[ok], settings)
+    evaluated.rejected["no circle through entry and exit"] += int((~ok).sum())
+    evaluated.n_trials += int((~ok).sum())
+    return _finish(section, evaluated, settings, (f"entry and exit ({settings.method})",))
+
+
+def refine_circle(
+    section,
+    result: SearchResult,
+    *,
+    starts: int = 3,
+    initial_step: float | None = None,
+    step_tolerance: float = SEARCH_REFINE_STEP_TOLERANCE,
+    max_steps: int = SEARCH_REFINE_MAX_STEPS,
+) -> SearchResult:
+    """Refine the best circles of a search by a shrinking pattern search on (xc, yc, r).
+
+    From each of the ``starts`` best distinct circles, the 26 neighbours
+    ``(xc + i h, yc + j h, r + k h)``, i, j, k in {-1, 0, 1}, are solved as one batch; the
+    search moves to the best neighbour when it lowers the factor of safety and halves h when
+    none does, until h < ``step_tolerance`` (Hooke and Jeeves 1961). A move is accepted only
+    when it lowers the factor of safety, so the refined result is never higher than the
+    result it starts from.
+
+    Parameters
+    ----------
+    section : Section
+    result : SearchResult
+        A circular search (its settings are reused).
+    starts : int
+        Number of kept circles refined (guards against a local minimum near the best one).
+    initial_step : float, optional
+        [m] First step h; default 5 % of the radius of each start circle.
+    step_tolerance : float
+        [m] Smallest step.
+    max_steps : int
+        Iteration limit per start.
+
+    Returns
+    -------
+    SearchResult
+
+    References
+    ----------
+    Hooke, R. and Jeeves, T.A. (1961). "Direct search" solution of numerical and statistical
+        problems. Journal of the ACM, 8(2), 212-229.
+    """
+    _require_int("starts", starts, 1)
+    _require_int("max_steps", max_steps, 1)
+    if not step_tolerance > 0:
+        raise MethodError(f"step_tolerance must be > 0 m, got {step_tolerance!r}")
+    if initial_step is not None and not initial_step > step_tolerance:
+        raise MethodError(f"initial_step must exceed step_tolerance, got {initial_step!r} m")
+    settings = result.settings
+    circles = [s for s in result.surfaces if s.kind == "circle"][:starts]
+    if not circles:
+        raise SearchError("refine_circle needs a search result that kept at least one circle")
+    pattern = np.array([p for p in product((-1, 0, 1), repeat=3) if any(p)], dtype=float)
+    candidates = list(result.surfaces)
+    tally = _Tally()
+    for start in circles:
+        point = np.array([start.centre_x, start.centre_y, start.radius])
+        best = start.fos
+        step = initial_step or 0.05 * start.radius
+        for _ in range(max_steps):
+            if step < step_tolerance:
+                break
+            trial = point + step * pattern
+            evaluated = _evaluate_circles(section, *trial.T, settings)
+            tally.add(evaluated)
+            if evaluated.fos.size and evaluated.fos.min() < best:
+                i = int(np.argmin(evaluated.fos))
+                best = float(evaluated.fos[i])
+                point = np.array(
+                    [evaluated.centre_x[i], evaluated.centre_y[i], evaluated.radius[i]]
+                )
+            else:
+                step *= 0.5
+        if best < start.fos:
+            refined = _single_circle(section, point, settings)
+            if refined is not None:
+                candidates.append(refined)
+    return _merge(
+        section, result, candidates, settings, tally, f"circle refinement ({settings.method})"
+    )
+
+
+def optimise_polyline(
+    section,
+    result: SearchResult,
+    *,
+    method: str = "spencer",
+    n_vertices: int = SEARCH_POLYLINE_VERTICES,
+    max_inclination: float = SEARCH_MAX_INCLINATION_DEG,
+    max_angle_change: float = SEARCH_MAX_ANGLE_CHANGE_DEG,
+    optimiser: str = "Nelder-Mead",
+    max_evaluations: int = SEARCH_POLYLINE_MAX_EVALUATIONS,
+) -> SearchResult:
+    """Non-circular search: turn the critical circle into a polyline and move its vertices.
+
+    The arc of the best circle between its ground intersections becomes ``n_vertices`` points.
+    The free parameters are the offsets of the two end points (which stay on the ground) and
+    the elevations of the interior vertices (whose offsets keep their fractions of the span), so
+    x stays strictly increasing. They are moved by :func:`scipy.optimize.minimize` on the factor
+    of safety by ``method``; a polyline that is not kinematically admissible gets a penalty:
+    every segment at most ``max_inclination`` from the horizontal, the inclination changing by
+    at most ``max_angle_change`` at each vertex and never turning convex (the surface stays
+    concave upwards, so the mass can slide without breaking up; Greco 1996), and the slicing
+    must accept it (it must not cross the base). The surfaces kept by ``result`` are re-solved by
+    ``method`` so that the ranking compares like with like.
+
+    Parameters
+    ----------
+    section : Section
+    result : SearchResult
+        A search whose critical surface is a circle.
+    method : str
+        Method of slices; Spencer or Morgenstern-Price suit non-circular surfaces (they satisfy
+        both force and moment equilibrium).
+    n_vertices : int
+        Vertices of the polyline (>= 3).
+    max_inclination : float
+        [deg] Steepest admissible segment (0 < value < 90).
+    max_angle_change : float
+        [deg] Largest change of inclination at a vertex (> 0).
+    optimiser : str
+        "Nelder-Mead" or "Powell" (derivative-free methods of :func:`scipy.optimize.minimize`;
+        the factor of safety has kinks where vertices cross strata boundaries).
+    max_evaluations : int
+        Limit of factor-of-safety evaluations of the optimiser.
+
+    Returns
+    -------
+    SearchResult
+        Ranked by ``method``; its stages end with "non-circular optimisation".
+
+    References
+    ----------
+    Greco, V.R. (1996). Efficient Monte Carlo technique for locating critical slip surface.
+        Journal of Geotechnical Engineering, ASCE, 122(7), 517-525.
+    Nelder, J.A. and Mead, R. (1965). A simplex method for function minimization. The Computer
+        Journal, 7(4), 308-313.
+    """
+    _require_int("n_vertices", n_vertices, 3)
+    _require_int("max_evaluations", max_evaluations, 1)
+    if not 0 < max_inclination < 90:
+        raise MethodError(f"max_inclination must be between 0 and 90 deg, got {max_inclination!r}")
+    if not 0 < max_angle_change <= 180:
+        raise MethodError(f"max_angle_change must be in (0, 180] deg, got {max_angle_change!r}")
+    if optimiser not in ("Nelder-Mead", "Powell"):
+        raise MethodError(f"optimiser must be 'Nelder-Mead' or 'Powell', got {optimiser!r}")
+    settings = replace(result.settings, method=method)
+    start = next((s for s in result.surfaces if s.kind == "circle"), None)
+    if start is None:
+        raise SearchError("optimise_polyline needs a search result that kept a circle")
+    ground = _ground_points(section)
+    entry_y = float(_ground_elevation(section, start.entry_x))
+    exit_y = float(_ground_elevation(section, start.exit_x))
+    points0 = polyline_from_circle(
+        start.centre_x, start.centre_y, start.radius,
+        start.entry_x, start.exit_x, entry_y, exit_y, n_vertices,
+    )
+    span0 = points0[-1, 0] - points0[0, 0]
+    fractions = (points0[1:-1, 0] - points0[0, 0]) / span0
+    theta0 = np.arctan(np.diff(points0[:, 1]) / np.diff(points0[:, 0]))
+    # The arc itself must be admissible, whatever the limits asked for.
+    limit_incl = max(np.radians(max_inclination), np.abs(theta0).max() + 1e-9)
+    limit_turn = max(np.radians(max_angle_change), np.diff(theta0).max() + 1e-9)
+    tally = _Tally()
+
+    def points_of(p):
+        x_lo, x_hi = p[0], p[1]
+        xs = np.concatenate(([x_lo], x_lo + fractions * (x_hi - x_lo), [x_hi]))
+        ends = _ground_elevation(section, np.array([x_lo, x_hi]))
+        ys = np.concatenate(([ends[0]], p[2:], [ends[1]]))
+        return np.column_stack((xs, ys))
+
+    def objective(p):
+        if not (ground[0, 0] <= p[0] < p[1] <= ground[-1, 0]):
+            return _PENALTY * (2 + abs(p[1] - p[0]))
+        pts = points_of(p)
+        theta = np.arctan(np.diff(pts[:, 1]) / np.diff(pts[:, 0]))
+        turn = np.diff(theta)
+        violation = (
+            np.clip(np.abs(theta) - limit_incl, 0, None).sum()
+            + np.clip(turn - limit_turn, 0, None).sum()
+            + np.clip(-turn, 0, None).sum()
+        )
+        if violation > 0:
+            return _PENALTY * (1 + violation)
+        evaluated = _evaluate_polylines(section, pts[None], settings)
+        tally.add(evaluated)
+        if evaluated.fos.size == 0:
+            return _PENALTY
+        return float(evaluated.fos[0])
+
+    p0 = np.concatenate(([points0[0, 0], points0[-1, 0]], points0[1:-1, 1]))
+    scale = 0.05 * span0
+    options = {"maxfev": max_evaluations, "xatol": 1e-3, "fatol": 1e-5}
+    if optimiser == "Nelder-Mead":
+        simplex = np.vstack([p0, p0 + scale * np.eye(p0.size)])
+        options["initial_simplex"] = simplex
+    else:
+        options = {"maxfev": max_evaluations, "direc": scale * np.eye(p0.size), "xtol": 1e-3}
+    solution = optimize.minimize(objective, p0, method=optimiser, options=options)
+    candidates = list(result.surfaces)
+    if solution.fun < _PENALTY:
+        candidates.append(_polyline_surface(points_of(solution.x)))
+    return _merge(
+        section, result, candidates, settings, tally, f"non-circular optimisation ({method})"
+    )
+
+
+def rerank(section, result: SearchResult, method: str) -> SearchResult:
+    """The surfaces kept by ``result`` re-solved and ranked by another ``method``.
+
+    Used after screening many circles with a fast method: on circles, Bishop's simplified
+    method and the complete methods (Spencer, Morgenstern-Price) usually agree within a few per
+    cent (Duncan, Wright and Brandon 2014, ch. 7), so the circles it ranks best are the ones
+    worth solving by the slower method.
+    """
+    settings = replace(result.settings, method=method)
+    return _merge(section, result, list(result.surfaces), settings, _Tally(), f"ranked by {method}")
+
+
+def search_critical_surface(
+    section,
+    settings: SearchSettings | None = None,
+    *,
+    circles: str = "grid and radius",
+    screen_with: str | None = None,
+    refine: bool = True,
+    non_circular: bool = False,
+    non_circular_method: str | None = None,
+) -> SearchResult:
+    """The full search with default placements: circles, refinement, optional polyline.
+
+    Parameters
+    ----------
+    section : Section
+    settings : SearchSettings, optional
+    circles : str
+        "grid and radius" or "entry and exit".
+    screen_with : str, optional
+        Rank the many trial circles by this (faster) method, then re-rank the kept ones by
+        ``settings.method`` (:func:`rerank`) before refining; None screens with
+        ``settings.method`` itself.
+    refine : bool
+        Refine the best circles (:func:`refine_circle`).
+    non_circular : bool
+        Then optimise a polyline from the best circle (:func:`optimise_polyline`).
+    non_circular_method : str, optional
+        Method of the non-circular stage (and of the final ranking); default
+        ``settings.method``.
+
+    Returns
+    -------
+    SearchResult
+    """
+    settings = settings or SearchSettings()
+    searches = {"grid and radius": grid_and_radius, "entry and exit": entry_exit}
+    if circles not in searches:
+        raise MethodError(f"unknown circle search {circles!r}; valid: {', '.join(searches)}")
+    if screen_with and screen_with != settings.method:
+        result = searches[circles](section, replace(settings, method=screen_with))
+        result = rerank(section, result, settings.method)
+    else:
+        result = searches[circles](section, settings)
+    if refine:
+        result = refine_circle(section, result)
+    if non_circular:
+        result = optimise_polyline(
+            section, result, method=non_circular_method or settings.method
+        )
+    return result
+
+
+# ----------------------------------------------------------------------------------------------
+# Warm re-evaluation
+# ----------------------------------------------------------------------------------------------
+
+
+def warm_reevaluate(
+    section,
+    previous: SearchResult,
+    *,
+    method: str | None = None,
+    full_search_tolerance: float = SEARCH_FULL_SEARCH_TOLERANCE,
+) -> WarmResult:
+    """Re-solve only the surfaces cached by a previous search, under new conditions.
+
+    Meant for monitoring: the section is the same but its water lines have been rebuilt from
+    new readings. Re-slicing a fixed surface is cheap, so only the ``previous.surfaces`` are
+    evaluated. A full search is advised (never run) when the critical factor of safety moved by
+    more than ``full_search_tolerance`` relative to the previous one, or when another cached
+    surface became critical; either means the critical surface may now lie elsewhere.
+
+    Parameters
+    ----------
+    section : Section
+        The section with its new water lines (same geometry as the searched one).
+    previous : SearchResult
+        The previous search.
+    method : str, optional
+        Method of slices; default the previous search's method.
+    full_search_tolerance : float
+        Relative change of the critical factor of safety [-] beyond which a full search is
+        advised.
+
+    Returns
+    -------
+    WarmResult
+
+    Raises
+    ------
+    SearchError
+        None of the cached surfaces can be evaluated any more.
+    """
+    if not (np.isfinite(full_search_tolerance) and full_search_tolerance >= 0):
+        raise MethodError(
+            f"full_search_tolerance must be a number >= 0, got {full_search_tolerance!r}"
+        )
+    settings = replace(previous.settings, method=method or previous.method)
+    surfaces, dropped = _evaluate_surfaces(section, previous.surfaces, settings)
+    if not surfaces:
+        raise SearchError(
+            f"none of the {len(previous.surfaces)} cached surfaces could be re-evaluated "
+            f"({_reasons(dropped)}); run a full search"
+        )
+    critical = surfaces[0]
+    previous_fos = previous.fos
+    change = (critical.fos - previous_fos) / previous_fos
+    reasons = []
+    if abs(change) > full_search_tolerance:
+        reasons.append(
+            f"critical FoS changed by {100 * change:+.1f} % "
+            f"(tolerance {100 * full_search_tolerance:.1f} %)"
+        )
+    ranking_changed = not _same_surface(critical, previous.critical)
+    if ranking_changed:
+        reasons.append("another cached surface became critical")
+    if settings.method != previous.method:
+        reasons.append(
+            f"method changed from {previous.method} to {settings.method}; the cached "
+            f"surfaces were ranked by {previous.method}"
+        )
+    if dropped:
+        reasons.append(f"cached surfaces dropped ({_reasons(dropped)})")
+    return WarmResult(
+        fos=critical.fos,
+        critical=critical,
+        surfaces=tuple(surfaces),
+        previous_fos=previous_fos,
+        relative_change=float(change),
+        ranking_changed=ranking_changed,
+        full_search_advised=bool(reasons),
+        reasons=tuple(reasons),
+        dropped=dropped,
+        evaluation=f"warm re-evaluation of {len(previous.surfaces)} cached surfaces; "
+        "no full search was run",
+        method=settings.method,
+    )
+
+
+# ----------------------------------------------------------------------------------------------
+# Private machinery
+# ----------------------------------------------------------------------------------------------
+
+
+@dataclass
+class _Evaluated:
+    """Admissible, converged trial surfaces that passed the filters, with their FoS, plus the
+    counts of those that did not."""
+
+    centre_x: np.ndarray
+    centre_y: np.ndarray
+    radius: np.ndarray
+    points: np.ndarray | None
+    fos: np.ndarray
+    entry_x: np.ndarray
+    exit_x: np.ndarray
+    depth: np.ndarray
+    area: np.ndarray
+    n_trials: int
+    n_valid: int
+    rejected: Counter
+    filtered: Counter
+
+
+class _Tally:
+    """Counts accumulated over the many small batches of a refinement or optimisation."""
+
+    def __init__(self) -> None:
+        self.n_trials = 0
+        self.n_valid = 0
+        self.rejected: Counter = Counter()
+        self.filtered: Counter = Counter()
+
+    def add(self, evaluated: _Evaluated) -> None:
+        self.n_trials += evaluated.n_trials
+        self.n_valid += evaluated.n_valid
+        self.rejected.update(evaluated.rejected)
+        self.filtered.update(evaluated.filtered)
+
+
+def _evaluate_circles(section, centre_x, centre_y, radius, settings) -> _Evaluated:
+    parts = []
+    for start in range(0, len(centre_x), settings.batch_size):
+        part = slice(start, start + settings.batch_size)
+        batch = slice_circles(
+            section, centre_x[part], centre_y[part], radius[part], n_slices=settings.n_slices
+        )
+        parts.append(
+            _solve_batch(batch, settings, centre_x[part], centre_y[part], radius[part], None)
+        )
+    return _concatenate(parts, len(centre_x))
+
+
+def _evaluate_polylines(section, points, settings) -> _Evaluated:
+    parts = []
+    for start in range(0, len(points), settings.batch_size):
+        part = points[start : start + settings.batch_size]
+        batch = slice_polyline(section, part, n_slices=settings.n_slices)
+        nan = np.full(len(part), np.nan)
+        parts.append(_solve_batch(batch, settings, nan, nan, nan, part))
+    return _concatenate(parts, len(points))
+
+
+def _solve_batch(batch, settings, centre_x, centre_y, radius, points) -> _Evaluated:
+    rejected = batch.rejected()
+    index = np.asarray(batch.index, dtype=int)
+    n_valid = int(index.size)
+    filtered: Counter = Counter()
+    if n_valid == 0:
+        empty = np.empty(0)
+        return _Evaluated(
+            centre_x=empty, centre_y=empty, radius=empty,
+            points=None if points is None else np.asarray(points)[:0],
+            fos=empty, entry_x=empty, exit_x=empty, depth=empty, area=empty,
+            n_trials=len(centre_x), n_valid=0, rejected=rejected, filtered=filtered,
+        )
+    slices = batch.slices
+    solved = factor_of_safety(slices, method=settings.method, **_method_options(settings))
+    fos = np.asarray(solved.fos, dtype=float)
+    has_fos = np.isfinite(fos) & (fos > 0)
+    converged = np.asarray(solved.converged, dtype=bool) & has_fos
+    doubtful = converged & ~np.asarray(solved.admissible, dtype=bool)
+    if not settings.admissible_only:
+        doubtful[:] = False
+    depth, area = _surface_measures(slices)
+    entry_x, exit_x = np.asarray(batch.entry_x, float), np.asarray(batch.exit_x, float)
+    shallow = depth < settings.min_depth
+    small = area < settings.min_area
+    filtered[NO_FOS] += int((~has_fos).sum())
+    filtered[NOT_CONVERGED] += int((has_fos & ~converged).sum())
+    for i in np.nonzero(doubtful)[0]:
+        filtered[_doubt_reason(solved.message[i])] += 1
+    fine = converged & ~doubtful
+    filtered[TOO_SHALLOW] += int((fine & shallow).sum())
+    filtered[TOO_SMALL] += int((fine & ~shallow & small).sum())
+    keep = fine & ~shallow & ~small
+    rows = index[keep]
+    return _Evaluated(
+        centre_x=np.asarray(centre_x)[rows],
+        centre_y=np.asarray(centre_y)[rows],
+        radius=np.asarray(radius)[rows],
+        points=None if points is None else np.asarray(points)[rows],
+        fos=fos[keep],
+        entry_x=entry_x[keep],
+        exit_x=exit_x[keep],
+        depth=depth[keep],
+        area=area[keep],
+        n_trials=len(centre_x),
+        n_valid=n_valid,
+        rejected=rejected,
+        filtered=+filtered,
+    )
+
+
+def _method_options(settings) -> dict:
+    """The numerical settings the chosen method takes (the ordinary method is not iterative)."""
+    parameters = inspect.signature(getattr(methods, settings.method)).parameters
+    options = {"tolerance": settings.tolerance, "max_iterations": settings.max_iterations}
+    return {name: value for name, value in options.items() if name in parameters}
+
+
+def every_method(slices, settings: SearchSettings | None = None) -> dict:
+    """Every method of :data:`solver.methods.METHOD_NAMES` on the same slice table, with the
+    numerical settings of ``settings``: {method name: SafetyResult}."""
+    settings = settings or SearchSettings()
+    return {
+        name: factor_of_safety(slices, method=name,
+                               **_method_options(replace(settings, method=name)))
+        for name in methods.METHOD_NAMES
+    }
+
+
+def _doubt_reason(message: str) -> str:
+    """A count key for a converged but doubtful result: the method's message without the
+    surface-specific numbers."""
+    parts = [p for p in message.split("; ") if p]
+    reasons = ["m_alpha <= M_ALPHA_MIN at a slice base" if "m_alpha" in p else p for p in parts]
+    return "not admissible: " + ("; ".join(reasons) or "flagged by the method")
+
+
+def _concatenate(parts, n_trials) -> _Evaluated:
+    tally = _Tally()
+    for part in parts:
+        tally.add(part)
+    has_points = bool(parts) and parts[0].points is not None
+
+    def cat(name):
+        if not parts:
+            return np.empty(0)
+        return np.concatenate([getattr(p, name) for p in parts])
+
+    return _Evaluated(
+        centre_x=cat("centre_x"),
+        centre_y=cat("centre_y"),
+        radius=cat("radius"),
+        points=cat("points") if has_points else None,
+        fos=cat("fos"),
+        entry_x=cat("entry_x"),
+        exit_x=cat("exit_x"),
+        depth=cat("depth"),
+        area=cat("area"),
+        n_trials=n_trials,
+        n_valid=tally.n_valid,
+        rejected=tally.rejected,
+        filtered=tally.filtered,
+    )
+
+
+def _surface_measures(slices):
+    """Largest vertical depth below the ground [m] and area of the sliding mass [m2] of each
+    surface of a slice table (from the slice mid-points)."""
+    active = np.asarray(slices.active, dtype=bool)
+    thickness = np.where(active, slices.y_top - slices.y_base, 0.0)
+    depth = thickness.max(axis=1)
+    area = (thickness * np.where(active, slices.width, 0.0)).sum(axis=1)
+    return depth, area
+
+
+def _candidates_of(evaluated: _Evaluated, method: str) -> list[RankedSurface]:
+    """Surfaces of an evaluation as RankedSurface records (no ranking)."""
+    kind = "circle" if evaluated.points is None else "polyline"
+    out = []
+    for i in range(evaluated.fos.size):
+        out.append(
+            RankedSurface(
+                kind=kind,
+                fos=float(evaluated.fos[i]),
+                method=method,
+                converged=True,
+                centre_x=float(evaluated.centre_x[i]),
+                centre_y=float(evaluated.centre_y[i]),
+                radius=float(evaluated.radius[i]),
+                points=None if evaluated.points is None else evaluated.points[i],
+                entry_x=float(evaluated.entry_x[i]),
+                exit_x=float(evaluated.exit_x[i]),
+                depth=float(evaluated.depth[i]),
+                area=float(evaluated.area[i]),
+            )
+        )
+    return out
+
+
+def _distinct_best(evaluated: _Evaluated, settings: SearchSettings) -> np.ndarray:
+    """Indices of the best ``keep`` surfaces, each at least ``min_separation`` away (in entry or
+    exit offset) from every better one."""
+    order = np.argsort(evaluated.fos, kind="stable")
+    chosen: list[int] = []
+    for i in order:
+        if chosen:
+            d_entry = np.abs(evaluated.entry_x[chosen] - evaluated.entry_x[i])
+            d_exit = np.abs(evaluated.exit_x[chosen] - evaluated.exit_x[i])
+            if np.any(np.maximum(d_entry, d_exit) < settings.min_separation):
+                continue
+        chosen.append(int(i))
+        if len(chosen) == settings.keep:
+            break
+    return np.array(chosen, dtype=int)
+
+
+def _finish(section, evaluated: _Evaluated, settings, stages) -> SearchResult:
+    if evaluated.fos.size == 0:
+        raise SearchError(
+            _no_surface_message(evaluated.n_trials, evaluated.rejected, evaluated.filtered)
+        )
+    chosen = _distinct_best(evaluated, settings)
+    best = _select(evaluated, chosen)
+    surfaces, dropped = _evaluate_surfaces(section, _candidates_of(best, settings.method), settings)
+    if not surfaces:
+        raise SearchError(_no_surface_message(evaluated.n_trials, evaluated.rejected, dropped))
+    return SearchResult(
+        surfaces=tuple(surfaces),
+        method=settings.method,
+        settings=settings,
+        n_trials=evaluated.n_trials,
+        n_valid=evaluated.n_valid,
+        rejected=+evaluated.rejected,
+        filtered=+evaluated.filtered,
+        stages=tuple(stages),
+    )
+
+
+def _merge(section, result, candidates, settings, tally: _Tally, stage) -> SearchResult:
+    """A new result from the previous kept surfaces plus new candidates, all re-solved by the
+    settings' method and ranked."""
+    surfaces, dropped = _evaluate_surfaces(section, candidates, settings)
+    if not surfaces:
+        raise SearchError(
+            _no_surface_message(result.n_trials + tally.n_trials, result.rejected + tally.rejected,
+                                dropped)
+        )
+    kept: list[RankedSurface] = []
+    for surface in surfaces:
+        if all(
+            max(abs(surface.entry_x - k.entry_x), abs(surface.exit_x - k.exit_x))
+            >= settings.min_separation
+            for k in kept
+        ):
+            kept.append(surface)
+        if len(kept) == settings.keep:
+            break
+    return SearchResult(
+        surfaces=tuple(kept),
+        method=settings.method,
+        settings=settings,
+        n_trials=result.n_trials + tally.n_trials,
+        n_valid=result.n_valid + tally.n_valid,
+        rejected=+(result.rejected + tally.rejected),
+        filtered=+(result.filtered + tally.filtered),
+        stages=result.stages + (stage,),
+        notes=result.notes,
+    )
+
+
+def _evaluate_surfaces(section, surfaces, settings) -> tuple[list[RankedSurface], Counter]:
+    """Solve given surfaces (circles and polylines) by ``settings``; the ranked list and the
+    count of those that dropped out, by reason. The methods iterate each surface until it
+    alone converges, so a surface gets the same factor of safety whichever batch it is in."""
+    circles = [s for s in surfaces if s.kind == "circle"]
+    polylines = [s for s in surfaces if s.kind == "polyline"]
+    out: list[RankedSurface] = []
+    dropped: Counter = Counter()
+    evaluations = []
+    if circles:
+        values = np.array([(s.centre_x, s.centre_y, s.radius) for s in circles])
+        evaluations.append(_evaluate_circles(section, *values.T, settings))
+    if polylines:
+        by_size: dict[int, list] = {}
+        for surface in polylines:
+            by_size.setdefault(len(surface.points), []).append(surface.points)
+        for stack in by_size.values():
+            evaluations.append(_evaluate_polylines(section, np.stack(stack), settings))
+    for evaluated in evaluations:
+        dropped.update(evaluated.rejected)
+        dropped.update(evaluated.filtered)
+        out.extend(_candidates_of(evaluated, settings.method))
+    out.sort(key=lambda s: s.fos)
+    return out, +dropped
+
+
+def _single_circle(section, point, settings) -> RankedSurface | None:
+    evaluated = _evaluate_circles(section, *(np.array([v]) for v in point), settings)
+    found = _candidates_of(evaluated, settings.method)
+    return found[0] if found else None
+
+
+def _polyline_surface(points) -> RankedSurface:
+    nan = float("nan")
+    return RankedSurface("polyline", nan, "", False, nan, nan, nan, np.asarray(points, float),
+                         float(points[0, 0]), float(points[-1, 0]), nan, nan)
+
+
+def _select(evaluated: _Evaluated, rows) -> _Evaluated:
+    values = {
+        name: getattr(evaluated, name)[rows]
+        for name in ("centre_x", "centre_y", "radius", "fos", "entry_x", "exit_x", "depth", "area")
+    }
+    points = None if evaluated.points is None else evaluated.points[rows]
+    return _Evaluated(points=points, n_trials=evaluated.n_trials, n_valid=evaluated.n_valid,
+                      rejected=evaluated.rejected, filtered=evaluated.filtered, **values)
+
+
+def _same_surface(a: RankedSurface, b: RankedSurface) -> bool:
+    if a.kind != b.kind:
+        return False
+    if a.kind == "circle":
+        return (a.centre_x, a.centre_y, a.radius) == (b.centre_x, b.centre_y, b.radius)
+    return a.points.shape == b.points.shape and bool(np.all(a.points == b.points))
+
+
+def _grid_edge_notes(best, x_range, y_range, nx, ny, tangent_elevations, base) -> tuple:
+    """Warn when the best circle of a grid sits on its edge: the critical circle may then lie
+    outside the grid (Duncan, Wright and Brandon 2014, ch. 8)."""
+    notes = []
+    close = 1e-9 * max(1.0, abs(best.centre_x), abs(best.centre_y))
+    on_x = nx > 1 and min(abs(best.centre_x - v) for v in x_range) <= close
+    on_y = ny > 1 and min(abs(best.centre_y - v) for v in y_range) <= close
+    if on_x or on_y:
+        notes.append(
+            f"the best grid centre ({best.centre_x:.2f}, {best.centre_y:.2f}) m lies on the edge "
+            "of the grid; the critical circle may lie outside it: enlarge or move the grid"
+        )
+    if tangent_elevations is not None and np.size(tangent_elevations) > 1:
+        lowest = float(np.min(tangent_elevations))
+        if abs(best.centre_y - best.radius - lowest) <= close and (
+            base is None or lowest < float(base[:, 1].min()) - 1e-6
+        ):
+            notes.append(
+                f"the best circle touches the lowest tangent elevation ({lowest:.2f} m); "
+                "deeper circles may be more critical: lower the tangents"
+            )
+    return tuple(notes)
+
+
+def _no_surface_message(n_trials, rejected: Counter, filtered: Counter) -> str:
+    parts = [f"no valid slip surface among {n_trials} trial surfaces"]
+    if rejected:
+        parts.append(f"rejected by the slicing: {_reasons(rejected)}")
+    if filtered:
+        parts.append(f"admissible but not competing: {_reasons(filtered)}")
+    parts.append("move or enlarge the search grid, or lower min_depth / min_area")
+    return "; ".join(parts)
+
+
+def _reasons(counts: Counter) -> str:
+    return ", ".join(f"{n} {reason}" for reason, n in counts.most_common())
+
+
+def _spread(bounds, n, name) -> np.ndarray:
+    lo, hi = (float(v) for v in bounds)
+    if not (np.isfinite(lo) and np.isfinite(hi) and lo <= hi):
+        raise MethodError(f"{name} must be two finite numbers, low then high, got {bounds!r}")
+    return np.array([0.5 * (lo + hi)]) if n == 1 else np.linspace(lo, hi, n)
+
+
+def _require_int(name, value, minimum) -> None:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < minimum:
+        raise MethodError(f"{name} must be an integer >= {minimum}, got {value!r}")
+
+
+def _ground_points(section) -> np.ndarray:
+    return np.asarray(section.ground, dtype=float)
+
+
+def _base_points(section):
+    base = getattr(section, "base", None)
+    return None if base is None else np.asarray(base, dtype=float)
+
+
+def _ground_elevation(section, x):
+    return section.ground_elevation(x)
