@@ -22,3 +22,9 @@ class StoreError(UserError):
 class FeedError(UserError):
     """A feed file cannot be read at all (as opposed to single bad rows, which are rejected
     and reported without stopping the ingest)."""
+
+
+class ModelError(UserError):
+    """A groundwater, rainfall or rainfall-response model cannot give a trustworthy answer for
+    the data given (no usable head, a duration outside a threshold's range, too few readings to
+    calibrate, a poor fit); the message says why and what would make it usable."""
