@@ -26,6 +26,7 @@ WORKSPACE_ENV = "SLIPWATCH_WORKSPACE"
 # Each module defines `register(group)`, which adds its commands to the top-level group.
 _COMMAND_MODULES = [
     "watch.commands_demo",
+    "watch.commands_store",
 ]
 
 

@@ -1,0 +1,107 @@
+"""The site-file loader: the example loads; each fault names the file and the key."""
+
+import tomllib
+
+import pytest
+
+from watch.config import load_site_config, parse_site_config
+from watch.errors import ConfigError
+from watch.workspace import EXAMPLE_SITE_TOML
+
+
+def _example() -> dict:
+    return tomllib.loads(EXAMPLE_SITE_TOML)
+
+
+def test_example_site_loads():
+    config = parse_site_config(_example())
+    assert config.id == "fernhollow"
+    assert [p.id for p in config.piezometers] == ["PZ-1", "PZ-2"]
+    assert config.piezometers[1].calibration.gauge_factor == pytest.approx(-0.0712, rel=1e-12)
+    assert config.rain_gauges[0].bucket_mm == pytest.approx(0.2, rel=1e-12)
+    assert config.feed_for("fh_2026.csv").name == "cutting-logger"
+    assert config.feed_for("other.csv") is None
+
+
+def test_missing_file_says_how_to_make_one(tmp_path):
+    with pytest.raises(ConfigError, match="not found; create one with `slipwatch init`"):
+        load_site_config(tmp_path / "site.toml")
+
+
+def test_invalid_toml_names_the_file(tmp_path):
+    path = tmp_path / "site.toml"
+    path.write_text("[site\nid = 1")
+    with pytest.raises(ConfigError, match="site.toml: not valid TOML"):
+        load_site_config(path)
+
+
+def test_unknown_key_is_an_error_naming_it():
+    data = _example()
+    data["piezometer"][0]["valid_rnage"] = [0, 1]
+    with pytest.raises(ConfigError, match=r"\[\[piezometer\]\] 'PZ-1' key 'valid_rnage' is unknown"):
+        parse_site_config(data)
+
+
+def test_bad_values_name_the_key():
+    cases = [
+        (("piezometer", 0, "reading"), "pressure", r"key 'reading' must be one of"),
+        (("piezometer", 0, "tip_elevation"), 60.0, r"key 'tip_elevation' 60.0 is above collar"),
+        (("piezometer", 0, "valid_range"), [5.0, 1.0], r"key 'valid_range' must be \[low, high\]"),
+        (("piezometer", 0, "section"), "XX", r"key 'section' 'XX' is not a \[\[section\]\] id"),
+        (("feed", 0, "time_zone"), "Mars/Olympus", r"time_zone 'Mars/Olympus' is not an IANA time zone"),
+        (("feed", 0, "decimal"), ";", r"key 'decimal' must be '.' or ','"),
+        (("rain_gauge", 0, "bucket_mm"), 0.0, r"key 'bucket_mm' must be > 0"),
+    ]
+    for (table, index, key), value, message in cases:
+        data = _example()
+        data[table][index][key] = value
+        with pytest.raises(ConfigError, match=message):
+            parse_site_config(data)
+
+
+def test_feed_mapping_to_unknown_instrument():
+    data = _example()
+    data["feed"][0]["columns"]["PZ9"] = "PZ-9"
+    with pytest.raises(ConfigError, match=r"key 'columns' entry 'PZ9' = 'PZ-9': 'PZ-9' is not a piezometer"):
+        parse_site_config(data)
+
+
+def test_vibrating_wire_needs_its_temperature_column():
+    data = _example()
+    del data["feed"][0]["temperature_columns"]
+    with pytest.raises(ConfigError, match=r"has no column for vibrating-wire piezometer 'PZ-2'"):
+        parse_site_config(data)
+
+
+def test_duplicate_instrument_ids():
+    data = _example()
+    data["rain_gauge"][0]["id"] = "PZ-1"
+    data["section"][0]["gauge"] = "PZ-1"
+    with pytest.raises(ConfigError, match=r"'PZ-1' key 'id' is also the id of a piezometer"):
+        parse_site_config(data)
+
+
+def test_long_feed_needs_instrument_and_value_columns():
+    data = _example()
+    feed = data["feed"][0]
+    feed["layout"] = "long"
+    del feed["columns"], feed["temperature_columns"]
+    with pytest.raises(ConfigError, match=r"key 'instrument_column' is required for layout = 'long'"):
+        parse_site_config(data)
+
+
+def test_oldest_reading_as_toml_date():
+    data = _example()
+    data["ingest"]["oldest_reading"] = tomllib.loads("d = 2010-05-01")["d"]
+    assert parse_site_config(data).ingest.oldest_reading.year == 2010
+
+
+def test_the_example_of_docs_formats_loads():
+    # docs/formats.md section 2 is the contract between the parts of slipwatch.
+    from pathlib import Path
+
+    text = (Path(__file__).resolve().parents[2] / "docs" / "formats.md").read_text()
+    block = text.split("## 2. Site file")[1].split("```toml\n")[1].split("```")[0]
+    config = parse_site_config(tomllib.loads(block))
+    assert config.piezometers[0].calibration.zero_reading == 8750.0
+    assert config.feeds[0].columns == {"P1 (kPa)": "P1", "Rain N (mm)": "RG-N"}

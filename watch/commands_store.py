@@ -1,0 +1,156 @@
+"""Commands of the workspace and its store: init, ingest, readings, backup, status."""
+
+from __future__ import annotations
+
+import csv
+import sys
+from datetime import datetime, timezone
+from pathlib import Path
+
+import click
+
+from watch.cli import echo_json, json_option, workspace_option
+from watch.errors import UserError
+
+
+def register(group: click.Group) -> None:
+    for command in (init, ingest, readings, backup, status):
+        group.add_command(command)
+
+
+@click.command()
+@click.argument("directory", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--site", "site_template", type=click.Path(dir_okay=False, exists=True, path_type=Path),
+              help="A site.toml to start from (default: a commented invented example).")  # fmt: skip
+def init(directory: Path, site_template: Path | None) -> None:
+    """Create a workspace: site.toml, sections/, incoming/, processed/, rejected/, reports/
+    and the store slipwatch.db.
+
+    \b
+    Example:
+        slipwatch init /srv/slipwatch/quillmarsh --site my_site.toml
+    """
+    from watch.workspace import init_workspace
+
+    workspace = init_workspace(directory, site_template)
+    click.echo(f"workspace created in {workspace.root}; edit {workspace.site_file.name}, put section "
+               f"files in sections/ and feed files in incoming/")  # fmt: skip
+
+
+@click.command()
+@click.argument("files", nargs=-1, type=click.Path(dir_okay=False, path_type=Path))
+@workspace_option
+@click.option("--progress/--no-progress", default=True, show_default=True, help="Progress bar for long files.")
+@json_option
+def ingest(files: tuple[Path, ...], workspace: Path, progress: bool, as_json: bool) -> None:
+    """Ingest feed files: the FILES named (copied in; originals stay), or every file ready in
+    incoming/. Prints one line per file: accepted, duplicates, rejected, flagged.
+
+    \b
+    Example:
+        slipwatch ingest --workspace /srv/slipwatch/quillmarsh
+        slipwatch ingest north_2026-10-25.csv -w /srv/slipwatch/quillmarsh
+    """
+    from watch.ingest import ingest as run_ingest
+    from watch.workspace import open_workspace
+
+    report = run_ingest(open_workspace(workspace), list(files), progress=progress,
+                        echo=None if as_json else click.echo)  # fmt: skip
+    if as_json:
+        echo_json({"files": [f.__dict__ for f in report.files], "waiting": report.waiting,
+                   "reconciled": report.reconciled})  # fmt: skip
+        return
+    for line in report.reconciled:
+        click.echo(f"reconciled: {line}")
+    for line in report.waiting:
+        click.echo(f"waiting: {line}")
+    if not report.files and not report.waiting:
+        click.echo("nothing to ingest")
+
+
+@click.command()
+@click.argument("instrument")
+@workspace_option
+@click.option("--from", "start", help="First time, ISO 8601 (UTC unless it carries an offset).")
+@click.option("--to", "end", help="Last time, ISO 8601 (UTC unless it carries an offset).")
+@click.option("--csv", "as_csv", is_flag=True, help="Write CSV to standard output.")
+@json_option
+def readings(instrument: str, workspace: Path, start: str | None, end: str | None, as_csv: bool, as_json: bool) -> None:
+    """Export the stored readings of one piezometer or rain gauge, in time order.
+
+    \b
+    Example:
+        slipwatch readings P1 --from 2026-10-01 --to 2026-10-31T23:59 --csv > p1.csv
+    """
+    from watch.workspace import open_workspace
+
+    ws = open_workspace(workspace)
+    ws.config().instrument(instrument)  # unknown id: the error lists the known ones
+    with ws.open_store(read_only=True) as store:
+        rows = store.readings(instrument, _utc_option(start, "--from"), _utc_option(end, "--to"))
+    if as_json:
+        echo_json(rows)
+    elif as_csv or rows:
+        columns = list(rows[0]) if rows else ["instrument_id", "time_utc"]
+        writer = csv.DictWriter(sys.stdout, fieldnames=columns, lineterminator="\n")
+        writer.writeheader()
+        writer.writerows(rows)
+    else:
+        click.echo(f"no readings of {instrument} stored in that period")
+
+
+@click.command()
+@click.argument("destination", type=click.Path(dir_okay=False, path_type=Path))
+@workspace_option
+def backup(destination: Path, workspace: Path) -> None:
+    """Copy the live store to DESTINATION (a new file) consistently, while the service may be
+    writing, and check the copy with SQLite's integrity check.
+
+    \b
+    Example:
+        slipwatch backup /mnt/backups/quillmarsh-2026-10-25.db
+    """
+    from watch.workspace import open_workspace
+
+    with open_workspace(workspace).open_store(read_only=True) as store:
+        path = store.backup(destination)
+    click.echo(f"store copied to {path}; integrity check ok")
+
+
+@click.command()
+@workspace_option
+@json_option
+def status(workspace: Path, as_json: bool) -> None:
+    """Show each instrument's newest reading, its age and whether it is stale, and the files
+    waiting in incoming/.
+
+    \b
+    Example:
+        slipwatch status --workspace /srv/slipwatch/quillmarsh --json
+    """
+    from watch.ingest import workspace_status
+    from watch.workspace import open_workspace
+
+    result = workspace_status(open_workspace(workspace))
+    if as_json:
+        echo_json(result)
+        return
+    click.echo(f"site {result['site']} at {result['now_utc']} (stale after {result['stale_hours']:g} h)")
+    for row in result["instruments"]:
+        age = "never" if row["age_hours"] is None else f"{row['age_hours']:.1f} h ago"
+        flag = "  STALE" if row["stale"] else ""
+        click.echo(f"  {row['instrument_id']:<12} {row['kind']:<10} newest {row['newest_utc'] or '-':<20} "
+                   f"{age:<12} {row['readings']} readings, {row['flagged']} flagged{flag}")  # fmt: skip
+    click.echo(f"incoming: {len(result['incoming'])} file(s) waiting; claimed: {len(result['claimed'])}")
+
+
+def _utc_option(text: str | None, option: str) -> str | None:
+    if text is None:
+        return None
+    try:
+        moment = datetime.fromisoformat(text)
+    except ValueError:
+        raise UserError(f"{option} {text!r} is not an ISO 8601 date or time, e.g. 2026-10-25T06:00") from None
+    if moment.tzinfo is None:
+        moment = moment.replace(tzinfo=timezone.utc)
+    return moment.astimezone(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")

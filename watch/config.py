@@ -1,0 +1,579 @@
+"""The site file (``site.toml``, docs/formats.md section 2) loaded into frozen dataclasses.
+
+Every check names the file and the key, so a technician can find the line to fix. Tables of the
+site file that other parts of slipwatch own (alerts, notifications, ...) are left alone here;
+inside the tables read here, unknown keys are errors, because a misspelt ``valid_range`` that
+were silently ignored would switch off a quality check.
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+from watch.errors import ConfigError
+
+__all__ = [
+    "PIEZOMETER_READINGS",
+    "RAIN_REPORTING",
+    "FEED_LAYOUTS",
+    "SiteConfig",
+    "SectionRef",
+    "VibratingWireCalibration",
+    "Piezometer",
+    "RainGauge",
+    "FeedSpec",
+    "IngestSettings",
+    "load_site_config",
+    "parse_site_config",
+]
+
+#: Reading types of a piezometer and the unit of its raw value.
+PIEZOMETER_READINGS = {
+    "pore_pressure_kpa": "kPa",
+    "head_m": "m (elevation of the water level)",
+    "depth_to_water_m": "m below the collar",
+    "vibrating_wire": "digits",
+}
+#: Reporting types of a rain gauge.
+RAIN_REPORTING = ("interval_mm", "cumulative_mm", "tips")
+FEED_LAYOUTS = ("wide", "long")
+
+
+@dataclass(frozen=True)
+class SectionRef:
+    """A cross-section of the site: its file (solver format) and serving rain gauge."""
+
+    id: str
+    file: str
+    gauge: str | None = None
+    location: tuple[float, float] | None = None
+
+
+@dataclass(frozen=True)
+class VibratingWireCalibration:
+    """Calibration of a vibrating-wire piezometer (manufacturer-neutral form).
+
+    linear:      p = G (R1 - R0) + K (T1 - T0) - (B1 - B0)
+    polynomial:  p = A R1^2 + B R1 + C + K (T1 - T0) - (B1 - B0)
+
+    p [kPa], R [digits], T [degC], B [kPa]. The barometric term is applied only when
+    ``zero_barometric`` is given.
+    """
+
+    type: str
+    gauge_factor: float | None = None  # G [kPa/digit]
+    zero_reading: float | None = None  # R0 [digits]
+    polynomial: tuple[float, float, float] | None = None  # (A, B, C)
+    temperature_factor: float = 0.0  # K [kPa/degC]
+    zero_temperature: float | None = None  # T0 [degC]
+    zero_barometric: float | None = None  # B0 [kPa]
+
+    @property
+    def needs_temperature(self) -> bool:
+        return self.temperature_factor != 0.0
+
+    @property
+    def needs_barometric(self) -> bool:
+        return self.zero_barometric is not None
+
+
+@dataclass(frozen=True)
+class Piezometer:
+    id: str
+    section: str
+    offset: float  # [m] along the section
+    tip_elevation: float  # [m]
+    collar_elevation: float  # [m]
+    water_line: str
+    reading: str  # one of PIEZOMETER_READINGS
+    valid_range: tuple[float, float] | None = None  # in the reading's own unit
+    max_rise_rate: float | None = None  # [m of head per hour]
+    max_age_hours: float | None = None
+    calibration: VibratingWireCalibration | None = None
+
+    kind = "piezometer"
+
+
+@dataclass(frozen=True)
+class RainGauge:
+    id: str
+    location: tuple[float, float] | None
+    reporting: str  # one of RAIN_REPORTING
+    bucket_mm: float | None = None  # tips only
+    valid_range: tuple[float, float] | None = None  # in the reported unit (mm or tips)
+
+    kind = "rain_gauge"
+
+
+@dataclass(frozen=True)
+class FeedSpec:
+    """How one logger writes its files."""
+
+    name: str
+    pattern: str
+    layout: str
+    time_column: str
+    time_format: str
+    time_zone: str
+    skip_rows: int = 0
+    delimiter: str = ","
+    decimal: str = "."
+    missing: tuple[str, ...] = ("",)
+    encoding: str = "utf-8"
+    # wide layout: raw column -> instrument id
+    columns: dict[str, str] = field(default_factory=dict)
+    temperature_columns: dict[str, str] = field(default_factory=dict)
+    # long layout
+    instrument_column: str | None = None
+    value_column: str | None = None
+    temperature_column: str | None = None
+    # both layouts: one barometer column shared by the logger's instruments
+    barometric_column: str | None = None
+
+
+@dataclass(frozen=True)
+class IngestSettings:
+    min_file_age_seconds: float = 30.0
+    future_tolerance_minutes: float = 10.0
+    oldest_reading: datetime = datetime(2000, 1, 1, tzinfo=timezone.utc)
+    flat_line_hours: float = 24.0
+    stale_hours: float = 6.0
+    done_suffix: str | None = None  # e.g. ".done": a marker file the logger writes when finished
+
+
+@dataclass(frozen=True)
+class SiteConfig:
+    id: str
+    name: str
+    owner: str
+    time_zone: str
+    sections: tuple[SectionRef, ...]
+    piezometers: tuple[Piezometer, ...]
+    rain_gauges: tuple[RainGauge, ...]
+    feeds: tuple[FeedSpec, ...]
+    ingest: IngestSettings
+    path: Path | None = None
+    raw: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
+
+    @property
+    def instruments(self) -> dict[str, Piezometer | RainGauge]:
+        return {i.id: i for i in (*self.piezometers, *self.rain_gauges)}
+
+    def instrument(self, instrument_id: str) -> Piezometer | RainGauge:
+        try:
+            return self.instruments[instrument_id]
+        except KeyError:
+            known = ", ".join(sorted(self.instruments)) or "none"
+            raise ConfigError(
+                f"instrument {instrument_id!r} is not in {self._file_name()} (known: {known})"
+            ) from None
+
+    def feed_for(self, file_name: str) -> FeedSpec | None:
+        """The first feed whose pattern matches ``file_name`` (a bare name), or None."""
+        from fnmatch import fnmatchcase
+
+        return next((f for f in self.feeds if fnmatchcase(file_name, f.pattern)), None)
+
+    def _file_name(self) -> str:
+        return str(self.path) if self.path else "site.toml"
+
+
+def load_site_config(path: Path | str) -> SiteConfig:
+    """Read and check ``site.toml``; raise ConfigError naming the file and key on any fault."""
+    path = Path(path)
+    try:
+        with path.open("rb") as handle:
+            data = tomllib.load(handle)
+    except FileNotFoundError:
+        raise ConfigError(f"site file {path} not found; create one with `slipwatch init`") from None
+    except tomllib.TOMLDecodeError as error:
+        raise ConfigError(f"{path}: not valid TOML: {error}") from None
+    return parse_site_config(data, source=str(path), path=path)
+
+
+def parse_site_config(data: dict, source: str = "site.toml", path: Path | None = None) -> SiteConfig:
+    """Check the parsed TOML ``data`` of a site file and build a SiteConfig."""
+    r = _Reader(source)
+    site = r.table(data, "site", "[site]", required=True)
+    r.keys(site, "[site]", {"id", "name", "owner", "time_zone"})
+    time_zone = r.get(site, "[site]", "time_zone", str, default="UTC")
+    r.zone(time_zone, "[site] time_zone")
+
+    sections = tuple(_section(r, t, i) for i, t in enumerate(r.array(data, "section")))
+    piezometers = tuple(_piezometer(r, t, i) for i, t in enumerate(r.array(data, "piezometer")))
+    gauges = tuple(_rain_gauge(r, t, i) for i, t in enumerate(r.array(data, "rain_gauge")))
+    feeds = tuple(_feed(r, t, i) for i, t in enumerate(r.array(data, "feed")))
+    ingest = _ingest(r, r.table(data, "ingest", "[ingest]"))
+
+    config = SiteConfig(
+        id=r.get(site, "[site]", "id", str),
+        name=r.get(site, "[site]", "name", str, default=""),
+        owner=r.get(site, "[site]", "owner", str, default=""),
+        time_zone=time_zone,
+        sections=sections,
+        piezometers=piezometers,
+        rain_gauges=gauges,
+        feeds=feeds,
+        ingest=ingest,
+        path=path,
+        raw=data,
+    )
+    _cross_check(r, config)
+    return config
+
+
+# --- tables -----------------------------------------------------------------------------------
+
+
+def _section(r: _Reader, t: dict, i: int) -> SectionRef:
+    where = _where("section", t, i)
+    r.keys(t, where, {"id", "file", "gauge", "location"})
+    sid = r.get(t, where, "id", str)
+    return SectionRef(
+        id=sid,
+        file=r.get(t, where, "file", str),
+        gauge=r.get(t, where, "gauge", str, default=None),
+        location=r.pair(t, where, "location", default=None),
+    )
+
+
+def _piezometer(r: _Reader, t: dict, i: int) -> Piezometer:
+    where = _where("piezometer", t, i)
+    keys = {
+        "id", "section", "offset", "tip_elevation", "collar_elevation", "water_line", "reading",
+        "valid_range", "max_rise_rate", "max_age_hours", "calibration",
+    }  # fmt: skip
+    r.keys(t, where, keys)
+    pid = r.get(t, where, "id", str)
+    reading = r.choice(t, where, "reading", tuple(PIEZOMETER_READINGS))
+    tip = r.number(t, where, "tip_elevation")
+    collar = r.number(t, where, "collar_elevation")
+    if tip > collar:
+        r.fail(where, "tip_elevation", f"{tip} is above collar_elevation {collar}")
+    calibration = None
+    # Required for vibrating wire; beside another reading type it is checked but unused (the
+    # site file may keep an instrument's calibration sheet while it is read another way).
+    if reading == "vibrating_wire" or "calibration" in t:
+        calibration = _calibration(r, r.table(t, "calibration", f"{where}.calibration", True), where)
+    rise = r.number(t, where, "max_rise_rate", default=None)
+    if rise is not None and rise <= 0:
+        r.fail(where, "max_rise_rate", f"must be > 0 [m/h], got {rise}")
+    age = r.number(t, where, "max_age_hours", default=None)
+    if age is not None and age <= 0:
+        r.fail(where, "max_age_hours", f"must be > 0, got {age}")
+    return Piezometer(
+        id=pid,
+        section=r.get(t, where, "section", str),
+        offset=r.number(t, where, "offset"),
+        tip_elevation=tip,
+        collar_elevation=collar,
+        water_line=r.get(t, where, "water_line", str),
+        reading=reading,
+        valid_range=r.range(t, where, "valid_range"),
+        max_rise_rate=rise,
+        max_age_hours=age,
+        calibration=calibration,
+    )
+
+
+def _calibration(r: _Reader, t: dict, owner: str) -> VibratingWireCalibration:
+    where = f"{owner}.calibration"
+    r.keys(
+        t,
+        where,
+        {"type", "gauge_factor", "zero_reading", "polynomial", "temperature_factor",
+         "zero_temperature", "zero_barometric"},
+    )  # fmt: skip
+    kind = r.choice(t, where, "type", ("linear", "polynomial"))
+    factor = r.number(t, where, "temperature_factor", default=0.0)
+    zero_t = r.number(t, where, "zero_temperature", default=None)
+    if factor != 0.0 and zero_t is None:
+        r.fail(where, "zero_temperature", "is required when temperature_factor is not 0")
+    if kind == "linear":
+        gauge_factor = r.number(t, where, "gauge_factor")
+        zero_reading = r.number(t, where, "zero_reading")
+        if gauge_factor == 0.0:
+            r.fail(where, "gauge_factor", "must not be 0")
+        polynomial = None
+    else:
+        gauge_factor = zero_reading = None
+        values = t.get("polynomial")
+        if not (isinstance(values, list) and len(values) == 3 and all(_is_number(v) for v in values)):
+            r.fail(where, "polynomial", f"must be [A, B, C] (three numbers), got {values!r}")
+        polynomial = tuple(float(v) for v in values)
+    return VibratingWireCalibration(
+        type=kind,
+        gauge_factor=gauge_factor,
+        zero_reading=zero_reading,
+        polynomial=polynomial,
+        temperature_factor=factor,
+        zero_temperature=zero_t,
+        zero_barometric=r.number(t, where, "zero_barometric", default=None),
+    )
+
+
+def _rain_gauge(r: _Reader, t: dict, i: int) -> RainGauge:
+    where = _where("rain_gauge", t, i)
+    r.keys(t, where, {"id", "location", "reporting", "bucket_mm", "valid_range"})
+    gid = r.get(t, where, "id", str)
+    reporting = r.choice(t, where, "reporting", RAIN_REPORTING)
+    bucket = r.number(t, where, "bucket_mm", default=None)
+    if reporting == "tips" and (bucket is None or bucket <= 0):
+        r.fail(where, "bucket_mm", f"must be > 0 for reporting = 'tips', got {bucket}")
+    return RainGauge(
+        id=gid,
+        location=r.pair(t, where, "location", default=None),
+        reporting=reporting,
+        bucket_mm=bucket,
+        valid_range=r.range(t, where, "valid_range"),
+    )
+
+
+def _feed(r: _Reader, t: dict, i: int) -> FeedSpec:
+    where = _where("feed", t, i, "name")
+    keys = {
+        "name", "pattern", "layout", "skip_rows", "time_column", "time_format", "time_zone",
+        "delimiter", "decimal", "missing", "encoding", "columns", "temperature_columns",
+        "instrument_column", "value_column", "temperature_column", "barometric_column",
+    }  # fmt: skip
+    r.keys(t, where, keys)
+    name = r.get(t, where, "name", str)
+    layout = r.choice(t, where, "layout", FEED_LAYOUTS)
+    time_zone = r.get(t, where, "time_zone", str)
+    r.zone(time_zone, f"{where} time_zone")
+    delimiter = r.get(t, where, "delimiter", str, default=",")
+    decimal = r.get(t, where, "decimal", str, default=".")
+    if len(delimiter) != 1 or delimiter in "\"\r\n":
+        r.fail(where, "delimiter", f"must be one character (not a quote or line end), got {delimiter!r}")
+    if decimal not in (".", ","):
+        r.fail(where, "decimal", f"must be '.' or ',', got {decimal!r}")
+    if decimal == delimiter:
+        r.fail(where, "decimal", f"is the same as the delimiter {delimiter!r}")
+    skip = r.get(t, where, "skip_rows", int, default=0)
+    if skip < 0:
+        r.fail(where, "skip_rows", f"must be >= 0, got {skip}")
+    missing = t.get("missing", [""])
+    if not (isinstance(missing, list) and all(isinstance(m, str) for m in missing)):
+        r.fail(where, "missing", f"must be a list of strings, got {missing!r}")
+    encoding = r.get(t, where, "encoding", str, default="utf-8")
+    try:
+        "".encode(encoding)
+    except LookupError:
+        r.fail(where, "encoding", f"unknown encoding {encoding!r}")
+    columns = _string_map(r, t, where, "columns")
+    temperature_columns = _string_map(r, t, where, "temperature_columns")
+    spec = FeedSpec(
+        name=name,
+        pattern=r.get(t, where, "pattern", str),
+        layout=layout,
+        time_column=r.get(t, where, "time_column", str),
+        time_format=r.get(t, where, "time_format", str),
+        time_zone=time_zone,
+        skip_rows=skip,
+        delimiter=delimiter,
+        decimal=decimal,
+        missing=tuple(missing),
+        encoding=encoding,
+        columns=columns,
+        temperature_columns=temperature_columns,
+        instrument_column=r.get(t, where, "instrument_column", str, default=None),
+        value_column=r.get(t, where, "value_column", str, default=None),
+        temperature_column=r.get(t, where, "temperature_column", str, default=None),
+        barometric_column=r.get(t, where, "barometric_column", str, default=None),
+    )
+    if layout == "wide":
+        if not columns:
+            r.fail(where, "columns", "a wide feed needs [feed.columns] (raw column -> instrument id)")
+        for key in ("instrument_column", "value_column", "temperature_column"):
+            if key in t:
+                r.fail(where, key, "is for layout = 'long'; a wide feed uses [feed.columns]")
+    else:
+        for key in ("instrument_column", "value_column"):
+            if key not in t:
+                r.fail(where, key, "is required for layout = 'long'")
+        for key in ("columns", "temperature_columns"):
+            if key in t:
+                r.fail(where, key, "is for layout = 'wide'; a long feed names its instrument column")
+    return spec
+
+
+def _ingest(r: _Reader, t: dict) -> IngestSettings:
+    where = "[ingest]"
+    r.keys(
+        t,
+        where,
+        {"min_file_age_seconds", "future_tolerance_minutes", "oldest_reading", "flat_line_hours",
+         "stale_hours", "done_suffix"},
+    )  # fmt: skip
+    default = IngestSettings()
+    values = {}
+    for key in ("min_file_age_seconds", "future_tolerance_minutes", "flat_line_hours", "stale_hours"):
+        value = r.number(t, where, key, default=getattr(default, key))
+        if value < 0 or (value == 0 and key in ("flat_line_hours", "stale_hours")):
+            r.fail(where, key, f"must be > 0, got {value}")
+        values[key] = value
+    oldest = t.get("oldest_reading", default.oldest_reading)
+    if isinstance(oldest, str):
+        try:
+            oldest = datetime.fromisoformat(oldest)
+        except ValueError:
+            r.fail(where, "oldest_reading", f"is not an ISO date, got {oldest!r}")
+    elif type(oldest).__name__ == "date":  # a bare TOML date
+        oldest = datetime(oldest.year, oldest.month, oldest.day)
+    if not isinstance(oldest, datetime):
+        r.fail(where, "oldest_reading", f"is not a date, got {oldest!r}")
+    if oldest.tzinfo is None:
+        oldest = oldest.replace(tzinfo=timezone.utc)
+    done = r.get(t, where, "done_suffix", str, default=None)
+    if done is not None and not done.startswith("."):
+        r.fail(where, "done_suffix", f"must start with '.', e.g. '.done', got {done!r}")
+    return IngestSettings(oldest_reading=oldest, done_suffix=done, **values)
+
+
+def _cross_check(r: _Reader, config: SiteConfig) -> None:
+    seen: dict[str, str] = {}
+    for kind, items in (("section", config.sections), ("piezometer", config.piezometers),
+                        ("rain_gauge", config.rain_gauges), ("feed", config.feeds)):  # fmt: skip
+        ids = [getattr(i, "name", None) or i.id for i in items]
+        for item_id in ids:
+            if ids.count(item_id) > 1:
+                r.fail(f"[[{kind}]] {item_id!r}", "id", "is used more than once")
+    for item in (*config.piezometers, *config.rain_gauges):
+        if item.id in seen:
+            r.fail(f"[[{item.kind}]] {item.id!r}", "id", f"is also the id of a {seen[item.id]}")
+        seen[item.id] = item.kind
+    section_ids = {s.id for s in config.sections}
+    gauge_ids = {g.id for g in config.rain_gauges}
+    for s in config.sections:
+        if s.gauge is not None and s.gauge not in gauge_ids:
+            r.fail(f"[[section]] {s.id!r}", "gauge", f"{s.gauge!r} is not a [[rain_gauge]] id")
+    for p in config.piezometers:
+        if p.section not in section_ids:
+            r.fail(f"[[piezometer]] {p.id!r}", "section", f"{p.section!r} is not a [[section]] id")
+    instruments = config.instruments
+    for feed in config.feeds:
+        where = f"[[feed]] {feed.name!r}"
+        for table in ("columns", "temperature_columns"):
+            for raw, iid in getattr(feed, table).items():
+                if iid not in instruments:
+                    r.fail(where, table, f"entry {raw!r} = {iid!r}: {iid!r} is not a piezometer or rain gauge id")
+        mapped = set(feed.columns.values()) if feed.layout == "wide" else set(instruments)
+        for p in config.piezometers:
+            if p.reading != "vibrating_wire" or p.id not in mapped:
+                continue
+            # Only wide feeds name their instruments; a long feed may carry any of them, so
+            # its missing correction columns are caught per row instead.
+            if feed.layout == "wide":
+                if p.calibration.needs_temperature and p.id not in feed.temperature_columns.values():
+                    r.fail(where, "temperature_columns",
+                           f"has no column for vibrating-wire piezometer {p.id!r}, whose "
+                           "calibration has a temperature_factor")  # fmt: skip
+                if p.calibration.needs_barometric and feed.barometric_column is None:
+                    r.fail(where, "barometric_column",
+                           f"is needed: piezometer {p.id!r} has a zero_barometric")  # fmt: skip
+
+
+# --- helpers ----------------------------------------------------------------------------------
+
+
+def _where(kind: str, t: dict, i: int, key: str = "id") -> str:
+    """How an error names an entry of an array of tables: by its id, else by its position."""
+    name = t.get(key)
+    return f"[[{kind}]] {name!r}" if isinstance(name, str) else f"[[{kind}]] #{i + 1}"
+
+
+def _is_number(value) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool)
+
+
+def _string_map(r: _Reader, t: dict, where: str, key: str) -> dict[str, str]:
+    value = t.get(key, {})
+    if not isinstance(value, dict) or not all(isinstance(v, str) for v in value.values()):
+        r.fail(where, key, f"must be a table of raw column = \"instrument id\", got {value!r}")
+    return dict(value)
+
+
+class _Reader:
+    """Typed access to TOML tables with errors that name the file, table and key."""
+
+    def __init__(self, source: str):
+        self.source = source
+
+    def fail(self, where: str, key: str, problem: str):
+        raise ConfigError(f"{self.source}: {where} key {key!r} {problem}")
+
+    def keys(self, t: dict, where: str, allowed: set[str]) -> None:
+        unknown = sorted(set(t) - allowed)
+        if unknown:
+            self.fail(where, unknown[0], f"is unknown (valid keys: {', '.join(sorted(allowed))})")
+
+    def table(self, data: dict, key: str, where: str, required: bool = False) -> dict:
+        if key not in data:
+            if required:
+                raise ConfigError(f"{self.source}: table {where} is missing")
+            return {}
+        if not isinstance(data[key], dict):
+            raise ConfigError(f"{self.source}: {where} must be a table, got {data[key]!r}")
+        return data[key]
+
+    def array(self, data: dict, key: str) -> list[dict]:
+        value = data.get(key, [])
+        if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
+            raise ConfigError(f"{self.source}: [[{key}]] must be an array of tables")
+        return value
+
+    def get(self, t: dict, where: str, key: str, kind: type, default: Any = ...):
+        if key not in t:
+            if default is ...:
+                self.fail(where, key, "is missing")
+            return default
+        value = t[key]
+        if not isinstance(value, kind) or isinstance(value, bool) != (kind is bool):
+            self.fail(where, key, f"must be a {kind.__name__}, got {value!r}")
+        return value
+
+    def number(self, t: dict, where: str, key: str, default: Any = ...) -> float:
+        if key not in t:
+            if default is ...:
+                self.fail(where, key, "is missing")
+            return default
+        value = t[key]
+        if not _is_number(value) or not math.isfinite(value):
+            self.fail(where, key, f"must be a finite number, got {value!r}")
+        return float(value)
+
+    def choice(self, t: dict, where: str, key: str, options: tuple[str, ...]) -> str:
+        value = self.get(t, where, key, str)
+        if value not in options:
+            self.fail(where, key, f"must be one of {', '.join(options)}; got {value!r}")
+        return value
+
+    def pair(self, t: dict, where: str, key: str, default: Any = ...):
+        if key not in t:
+            if default is ...:
+                self.fail(where, key, "is missing")
+            return default
+        value = t[key]
+        if not (isinstance(value, list) and len(value) == 2 and all(_is_number(v) for v in value)):
+            self.fail(where, key, f"must be two numbers [a, b], got {value!r}")
+        return (float(value[0]), float(value[1]))
+
+    def range(self, t: dict, where: str, key: str):
+        value = self.pair(t, where, key, default=None)
+        if value is not None and not value[0] < value[1]:
+            self.fail(where, key, f"must be [low, high] with low < high, got {list(value)}")
+        return value
+
+    def zone(self, name: str, where: str) -> None:
+        try:
+            ZoneInfo(name)
+        except (ZoneInfoNotFoundError, ValueError):
+            raise ConfigError(
+                f"{self.source}: {where} {name!r} is not an IANA time zone (e.g. 'Europe/London')"
+            ) from None

@@ -1,0 +1,550 @@
+"""Ingest of feed files: every good reading stored exactly once, every bad row reported, no file
+ever lost, even when the process is killed half-way.
+
+The life of a file::
+
+    incoming/NAME  --claim (atomic rename)-->  incoming/.claimed/NAME
+        --one transaction: file record + readings + rejected rows, COMMIT (synchronous FULL)-->
+    processed/NAME            (something could be read)
+    rejected/NAME + NAME.reason.txt   (nothing could be read)
+
+A crash before COMMIT leaves the file claimed and the store without a trace of it; a crash
+after COMMIT leaves it claimed with its record stored. ``reconcile`` (run at the start of every
+ingest) finishes the move in the second case and puts the file back into incoming/ in the first.
+Nothing is ever deleted. A file whose checksum matches an ingested one is archived without
+re-reading; a reading whose (instrument, time) is already stored is not stored again, and a
+different value for the same key is reported as a rejected row (the stored value stays).
+"""
+
+from __future__ import annotations
+
+import errno
+import fcntl
+import hashlib
+import os
+import shutil
+import time
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from itertools import repeat
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from tqdm import tqdm
+
+from watch.config import Piezometer, SiteConfig
+from watch.errors import FeedError, UserError, WorkspaceError
+from watch.feeds import FeedReader, RowProblem
+from watch.quality import Previous, assess_piezometer, assess_rain_gauge, time_window_problems
+from watch.store import Store
+from watch.workspace import Workspace
+
+__all__ = ["FileSummary", "IngestReport", "ingest", "reconcile", "TEMPORARY_SUFFIXES"]
+
+#: Names that loggers and copy tools use while a file is still being written.
+TEMPORARY_SUFFIXES = (".tmp", ".part", ".partial", ".filepart", ".crdownload", ".temp", "~")
+
+#: Rows per executemany call: bounds memory, costs nothing measurable in speed.
+_INSERT_BATCH = 50_000
+
+#: Files smaller than this get no progress bar.
+_PROGRESS_MIN_BYTES = 1 << 20
+
+#: Rejected rows listed in a rejected file's reason file.
+_REASON_FILE_ROWS = 20
+
+
+@dataclass
+class FileSummary:
+    name: str
+    status: str  # 'ingested' | 'rejected' | 'already ingested'
+    feed: str | None = None
+    accepted: int = 0
+    duplicates: int = 0
+    rejected: int = 0
+    flagged: int = 0
+    missing: int = 0
+    reason: str | None = None
+    archived_as: str | None = None
+    notes: list[str] = field(default_factory=list)
+
+    def line(self) -> str:
+        if self.status == "already ingested":
+            return f"{self.name}: already ingested ({self.reason}); archived as {self.archived_as}"
+        counts = (
+            f"{self.accepted} accepted, {self.duplicates} duplicates, {self.rejected} rejected, "
+            f"{self.flagged} flagged"
+        )
+        if self.status == "rejected":
+            return f"{self.name}: REJECTED: {self.reason} ({counts}); moved to {self.archived_as}"
+        notes = "".join(f"; note: {n}" for n in self.notes)
+        return f"{self.name}: {counts}; archived as {self.archived_as}{notes}"
+
+
+@dataclass
+class IngestReport:
+    files: list[FileSummary] = field(default_factory=list)
+    waiting: list[str] = field(default_factory=list)  # left for the next pass, with the reason
+    reconciled: list[str] = field(default_factory=list)
+
+
+def ingest(workspace: Workspace, files: list[Path | str] | None = None, now: datetime | None = None,
+           progress: bool = True, echo=None) -> IngestReport:  # fmt: skip
+    """Ingest the named files, or every file ready in the drop folder.
+
+    Named files are copied in (the originals stay where they are); drop-folder files are
+    claimed by renaming them. ``echo`` (e.g. ``click.echo``) receives one summary line per file
+    as soon as it is done.
+    """
+    now = now or datetime.now(timezone.utc)
+    report = IngestReport()
+    with _IngestLock(workspace):
+        config = workspace.config()
+        with workspace.open_store() as store:
+            with store.atomic():
+                store.sync_site(config)
+            report.reconciled = reconcile(workspace, store)
+            if files:
+                claims = [_claim_named(workspace, Path(f)) for f in files]
+            else:
+                claims = _claim_waiting(workspace, config, now, report.waiting)
+            for claim in claims:
+                summary = _ingest_claimed(workspace, store, config, claim, now, progress)
+                report.files.append(summary)
+                if echo:
+                    echo(summary.line())
+    return report
+
+
+# --- claiming -------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Claim:
+    path: Path  # in incoming/.claimed/
+    name: str  # the delivered name
+    marker: Path | None = None  # done-marker left in incoming/ until the file is archived
+
+
+def _claim_waiting(workspace: Workspace, config: SiteConfig, now: datetime, waiting: list[str]) -> list[_Claim]:
+    settings = config.ingest
+    done = settings.done_suffix
+    claims = []
+    for path in sorted(workspace.incoming.iterdir()):
+        name = path.name
+        if name.startswith(".") or not path.is_file():
+            continue
+        if done and name.endswith(done):
+            if not path.with_name(name[: -len(done)]).exists():
+                _archive_orphan_marker(workspace, path, settings.min_file_age_seconds)
+            continue
+        if name.endswith(TEMPORARY_SUFFIXES):
+            waiting.append(f"{name} (temporary name: still being written)")
+            continue
+        marker = path.with_name(name + done) if done else None
+        before = path.stat()
+        if not (marker and marker.exists()):
+            age = time.time() - before.st_mtime  # file ages are wall-clock, whatever ``now`` says
+            if age < settings.min_file_age_seconds:
+                waiting.append(f"{name} (modified {age:.0f} s ago; waiting {settings.min_file_age_seconds:g} s)")
+                continue
+        target = workspace.claimed / name
+        if target.exists():
+            waiting.append(f"{name} (a file of that name is still claimed)")
+            continue
+        try:
+            os.rename(path, target)
+        except FileNotFoundError:  # taken by someone else between listing and claiming
+            continue
+        after = target.stat()
+        if (after.st_size, after.st_mtime_ns) != (before.st_size, before.st_mtime_ns):
+            _move_no_clobber(target, workspace.incoming, name)
+            waiting.append(f"{name} (still growing)")
+            continue
+        claims.append(_Claim(target, name, marker if marker and marker.exists() else None))
+    return claims
+
+
+def _claim_named(workspace: Workspace, path: Path) -> _Claim:
+    if not path.is_file():
+        raise UserError(f"feed file {path} not found")
+    if path.resolve().parent == workspace.incoming.resolve():
+        target = workspace.claimed / path.name
+        if target.exists():
+            raise WorkspaceError(f"{path.name} is already claimed in {workspace.claimed}; run ingest again")
+        os.rename(path, target)
+        return _Claim(target, path.name)
+    # Copy under a hidden name first so a half-made copy is never taken for a delivery.
+    partial = workspace.claimed / f".partial-{path.name}"
+    target = workspace.claimed / path.name
+    if target.exists():
+        raise WorkspaceError(f"{path.name} is already claimed in {workspace.claimed}; run ingest again")
+    shutil.copyfile(path, partial)
+    _fsync_file(partial)
+    os.rename(partial, target)
+    return _Claim(target, path.name)
+
+
+def reconcile(workspace: Workspace, store: Store) -> list[str]:
+    """Settle files left claimed by an ingest that stopped: archive those whose record was
+    committed, put the others back into incoming/. Returns one line per file settled."""
+    lines = []
+    for path in sorted(workspace.claimed.iterdir()):
+        if path.name.startswith(".partial-"):
+            # An unfinished copy of a named file: the original is still where it was given.
+            _move_no_clobber(path, workspace.rejected, path.name)
+            lines.append(f"{path.name}: unfinished copy moved to rejected/ (ingest the original again)")
+            continue
+        sha, _ = _sha256(path)
+        records = [r for r in store.file_records(sha) if not (workspace.root / r["archived_as"]).exists()]
+        committed = next((r for r in records if r["archived_as"]), None)
+        if committed is None:
+            destination = _move_no_clobber(path, workspace.incoming, path.name)
+            lines.append(f"{path.name}: not committed before the stop; put back as {_relative(workspace, destination)}")
+            continue
+        planned = workspace.root / committed["archived_as"]
+        if committed["status"] == "rejected" and not planned.with_name(planned.name + ".reason.txt").exists():
+            _write_reason(planned, committed["reason"] or "", [])
+        destination = _move_to(path, planned)
+        if destination != planned:
+            store.set_archived_as(committed["id"], _relative(workspace, destination))
+        lines.append(f"{path.name}: committed before the stop; archived as {_relative(workspace, destination)}")
+    return lines
+
+
+# --- one file ----------------------------------------------------------------------------------
+
+
+def _ingest_claimed(workspace: Workspace, store: Store, config: SiteConfig, claim: _Claim, now: datetime,
+                    progress: bool) -> FileSummary:  # fmt: skip
+    sha, size = _sha256(claim.path)
+    prior = store.ingested_file(sha)
+    if prior is not None:
+        destination = _move_no_clobber(claim.path, workspace.processed, claim.name)
+        _archive_marker(claim, destination.parent)
+        return FileSummary(
+            claim.name, "already ingested", prior["feed"],
+            reason=f"same content as {prior['name']}, file #{prior['id']}, ingested {prior['ingested_utc']}",
+            archived_as=_relative(workspace, destination),
+        )  # fmt: skip
+    feed = config.feed_for(claim.name)
+    summary = FileSummary(claim.name, "ingested", feed.name if feed else None)
+    try:
+        with store.atomic():
+            file_id = store.add_file(claim.name, summary.feed, sha, size, archived_as="")
+            problems: list[RowProblem] = []
+            if feed is None:
+                patterns = ", ".join(f"{f.name}: {f.pattern}" for f in config.feeds) or "no [[feed]] in site.toml"
+                summary.reason = f"no [[feed]] pattern matches the name {claim.name!r} ({patterns})"
+            else:
+                try:
+                    reader = FeedReader(claim.path, feed)
+                    _load(store, config, reader, file_id, now, progress, summary, problems)
+                    summary.notes = reader.header_notes
+                except FeedError as error:
+                    summary.reason = str(error)
+                if summary.reason is None and summary.accepted + summary.duplicates == 0:
+                    summary.reason = (
+                        "no reading could be read"
+                        + (f" ({summary.rejected} rows rejected)" if summary.rejected else "")
+                        + (f" ({summary.missing} values marked missing)" if summary.missing else "")
+                        + ("" if summary.rejected or summary.missing else " (no data rows)")
+                    )
+            if summary.reason is not None:
+                summary.status = "rejected"
+                folder = workspace.rejected
+            else:
+                folder = workspace.processed
+            planned = _free_name(folder, claim.name)
+            summary.archived_as = _relative(workspace, planned)
+            _store_problems(store, file_id, claim.path, feed, problems)
+            store.finish_file(file_id, summary.status, summary.reason, summary.__dict__, summary.archived_as)
+    except BaseException:
+        # Not committed: hand the file back to the drop folder untouched, then report.
+        _move_no_clobber(claim.path, workspace.incoming, claim.name)
+        raise
+    if summary.status == "rejected":
+        _write_reason(planned, summary.reason, problems)
+    _move_to(claim.path, planned)
+    _archive_marker(claim, planned.parent)
+    return summary
+
+
+def _load(store: Store, config: SiteConfig, reader: FeedReader, file_id: int, now: datetime, progress: bool,
+          summary: FileSummary, problems: list[RowProblem]) -> None:  # fmt: skip
+    instruments = config.instruments
+    bar = tqdm(
+        total=reader.size, unit="B", unit_scale=True, desc=reader.path.name, leave=False,
+        disable=True if not progress or reader.size < _PROGRESS_MIN_BYTES else None,
+    )  # fmt: skip
+    with bar:
+        for chunk in reader.chunks():
+            bar.update(chunk.bytes_read)
+            summary.missing += chunk.missing
+            problems.extend(chunk.problems)
+            rows = chunk.readings
+            if len(rows) == 0:
+                continue
+            known = rows["instrument_id"].isin(instruments.keys()).to_numpy()
+            for line, iid in rows.loc[~known, ["line", "instrument_id"]].itertuples(index=False):
+                problems.append(RowProblem(int(line), None, f"instrument {iid!r} is not in site.toml", iid))
+            rows = rows[known]
+            in_window, reasons = time_window_problems(rows["time_utc"].to_numpy(dtype="datetime64[s]"), now, config.ingest)
+            for line, iid, reason in zip(rows["line"].to_numpy()[~in_window], rows["instrument_id"].to_numpy()[~in_window],
+                                         reasons[~in_window]):  # fmt: skip
+                problems.append(RowProblem(int(line), None, reason, iid))
+            rows = rows[in_window]
+            piezometer_parts, rain_parts = [], []
+            for iid, group in rows.groupby("instrument_id", sort=False):
+                group = group.sort_values("time_utc", kind="stable")
+                first = _utc_text(group["time_utc"].to_numpy()[:1])[0]
+                instrument = instruments[iid]
+                if isinstance(instrument, Piezometer):
+                    previous = _previous(store.previous_reading(iid, first))
+                    assessed, lacking = assess_piezometer(group, instrument, config.ingest, previous)
+                    problems.extend(RowProblem(line, None, reason, iid) for line, reason in lacking)
+                    piezometer_parts.append(assessed)
+                else:
+                    rain_parts.append(assess_rain_gauge(group, instrument, store.previous_rain_total(iid, first)))
+            for table, parts in (("readings", piezometer_parts), ("rainfall", rain_parts)):
+                if parts:
+                    _insert(store, table, pd.concat(parts, ignore_index=True), file_id, summary, problems)
+    summary.rejected = len(problems)
+
+
+def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary: FileSummary,
+            problems: list[RowProblem]) -> None:  # fmt: skip
+    ids = rows["instrument_id"].to_numpy(dtype=object)
+    times = _utc_text(rows["time_utc"].to_numpy())
+    lines = rows["line"].to_numpy(dtype=np.int64)
+    raw = rows["raw_value"].to_numpy(dtype=float)
+    quality = rows["quality"].to_numpy(dtype=object)
+    if table == "readings":
+        columns = (ids, times, raw, rows["temperature_c"].to_numpy(), rows["barometric_kpa"].to_numpy(),
+                   rows["pore_pressure_kpa"].to_numpy(), rows["head_m"].to_numpy(), quality, None, lines)  # fmt: skip
+        insert = store.insert_readings
+    else:
+        columns = (ids, times, raw, rows["rain_mm"].to_numpy(), quality, None, lines)
+        insert = store.insert_rainfall
+    inserted = 0
+    # Batches bound the Python objects alive at once (one tuple per row is ~10 objects).
+    for start in range(0, len(rows), _INSERT_BATCH):
+        part = slice(start, start + _INSERT_BATCH)
+        inserted += insert(zip(*(repeat(file_id) if c is None else c[part].tolist() for c in columns)))
+    flagged = quality != "ok"
+    if inserted == len(rows):
+        summary.accepted += inserted
+        summary.flagged += int(flagged.sum())
+        return
+    # Some keys were stored already: sort the rows left out into duplicates (same raw value)
+    # and conflicts (different value: reported, the stored value is kept).
+    ids, times = ids.tolist(), times.tolist()
+    stored = pd.DataFrame(
+        store.stored_versions(table, zip(ids, times)),
+        columns=["instrument_id", "time_utc", "stored_raw", "stored_file_id", "stored_line", "stored_file"],
+    )
+    mine = pd.DataFrame({"instrument_id": ids, "time_utc": times, "raw_value": raw, "line": lines, "flagged": flagged})
+    merged = mine.merge(stored, on=["instrument_id", "time_utc"], how="left", validate="many_to_one")
+    ours = (merged["stored_file_id"] == file_id) & (merged["stored_line"] == merged["line"])
+    left_out = merged[~ours]
+    same = left_out["stored_raw"] == left_out["raw_value"]
+    summary.accepted += int(ours.sum())
+    summary.flagged += int((ours & merged["flagged"]).sum())
+    summary.duplicates += int(same.sum())
+    for r in left_out[~same].itertuples(index=False):
+        where = "earlier in this file" if r.stored_file_id == file_id else f"file {r.stored_file}"
+        problems.append(
+            RowProblem(int(r.line), None,
+                       f"conflicts with the stored reading of {r.instrument_id} at {r.time_utc}: stored "
+                       f"raw value {r.stored_raw:g} ({where}, line {r.stored_line}), this row {r.raw_value:g}; "
+                       "the stored value is kept", r.instrument_id)  # fmt: skip
+        )
+
+
+def _store_problems(store: Store, file_id: int, path: Path, feed, problems: list[RowProblem]) -> None:
+    problems.sort(key=lambda p: (p.line is None, p.line or 0))
+    texts = _line_texts(path, feed, {p.line for p in problems if p.raw_text is None and p.line is not None})
+    store.add_rejected_rows(
+        (file_id, p.line, p.instrument_id, p.raw_text if p.raw_text is not None else texts.get(p.line), p.reason)
+        for p in problems
+    )
+
+
+def _line_texts(path: Path, feed, wanted: set[int]) -> dict[int, str]:
+    """Raw text of the given lines (one streaming pass; only for rows rejected after parsing)."""
+    if not wanted:
+        return {}
+    texts, last = {}, max(wanted)
+    encoding = feed.encoding if feed else "utf-8"
+    with path.open("rb") as handle:
+        for number, raw in enumerate(handle, start=1):
+            if number in wanted:
+                texts[number] = raw.decode(encoding, errors="replace").rstrip("\r\n")
+            if number >= last:
+                break
+    return texts
+
+
+def _previous(row) -> Previous | None:
+    if row is None:
+        return None
+    time, raw, since, head_time, head = row
+    parse = lambda text: None if text is None else np.datetime64(text[:-1], "s")  # noqa: E731 - '...Z'
+    return Previous(parse(time), raw, parse(since), parse(head_time), np.nan if head is None else head)
+
+
+def _utc_text(times: np.ndarray) -> np.ndarray:
+    """Store text of datetime64 times; each distinct time is formatted once (the readings of a
+    wide row share their time)."""
+    codes, uniques = pd.factorize(times.astype("datetime64[s]").view(np.int64))
+    text = np.datetime_as_string(uniques.view("datetime64[s]"), unit="s", timezone="UTC")
+    return text.astype(object)[codes]
+
+
+# --- files -------------------------------------------------------------------------------------
+
+
+def _sha256(path: Path) -> tuple[str, int]:
+    digest = hashlib.sha256()
+    size = 0
+    with path.open("rb") as handle:
+        while block := handle.read(1 << 20):
+            digest.update(block)
+            size += len(block)
+    return digest.hexdigest(), size
+
+
+def _free_name(folder: Path, name: str) -> Path:
+    """``folder/name``, or ``folder/stem.N.suffix`` with the first free N: never overwrite."""
+    candidate = folder / name
+    stem, suffix = os.path.splitext(name)
+    n = 1
+    while candidate.exists() or candidate.with_name(candidate.name + ".reason.txt").exists():
+        candidate = folder / f"{stem}.{n}{suffix}"
+        n += 1
+    return candidate
+
+
+def _move_to(path: Path, destination: Path) -> Path:
+    """Move to the planned destination; should it have been taken meanwhile, to a free name."""
+    if destination.exists():
+        return _move_no_clobber(path, destination.parent, destination.name)
+    os.rename(path, destination)
+    _fsync_dir(destination.parent)
+    return destination
+
+
+def _move_no_clobber(path: Path, folder: Path, name: str) -> Path:
+    destination = _free_name(folder, name)
+    os.rename(path, destination)
+    _fsync_dir(folder)
+    return destination
+
+
+def _write_reason(archived: Path, reason: str, problems: list[RowProblem]) -> None:
+    lines = [f"slipwatch rejected {archived.name}: {reason}"]
+    for p in problems[:_REASON_FILE_ROWS]:
+        lines.append(f"line {p.line}: {p.reason}")
+    if len(problems) > _REASON_FILE_ROWS:
+        lines.append(f"... and {len(problems) - _REASON_FILE_ROWS} more (see the rejected_rows table)")
+    reason_file = archived.with_name(archived.name + ".reason.txt")
+    reason_file.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    _fsync_file(reason_file)
+
+
+def _archive_marker(claim: _Claim, folder: Path) -> None:
+    if claim.marker is not None and claim.marker.exists():
+        _move_no_clobber(claim.marker, folder, claim.marker.name)
+
+
+def _archive_orphan_marker(workspace: Workspace, marker: Path, min_age: float) -> None:
+    # A marker whose file was archived by an ingest that stopped before moving the marker.
+    if time.time() - marker.stat().st_mtime >= min_age:
+        _move_no_clobber(marker, workspace.processed, marker.name)
+
+
+def _relative(workspace: Workspace, path: Path) -> str:
+    return str(path.relative_to(workspace.root))
+
+
+def _fsync_file(path: Path) -> None:
+    with path.open("rb") as handle:
+        os.fsync(handle.fileno())
+
+
+def _fsync_dir(folder: Path) -> None:
+    # Make the rename itself durable (POSIX: a directory entry is persisted by syncing the folder).
+    descriptor = os.open(folder, os.O_RDONLY)
+    try:
+        os.fsync(descriptor)
+    finally:
+        os.close(descriptor)
+
+
+class _IngestLock:
+    """One ingest at a time per workspace (an advisory lock the OS drops if the process dies)."""
+
+    def __init__(self, workspace: Workspace):
+        self.path = workspace.lock_file
+        self.handle = None
+
+    def __enter__(self):
+        self.handle = self.path.open("a+")
+        try:
+            fcntl.flock(self.handle, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError as error:
+            self.handle.close()
+            if error.errno in (errno.EAGAIN, errno.EACCES):
+                raise WorkspaceError(
+                    f"another ingest is running in {self.path.parent} (lock {self.path.name}); "
+                    "wait for it to finish"
+                ) from None
+            raise
+        return self
+
+    def __exit__(self, *exc):
+        fcntl.flock(self.handle, fcntl.LOCK_UN)
+        self.handle.close()
+
+
+# --- status ------------------------------------------------------------------------------------
+
+
+def workspace_status(workspace: Workspace, now: datetime | None = None) -> dict:
+    """Per configured instrument: newest reading, its age, stale flag and counts; plus the files
+    waiting in the drop folder and the store's totals. Opens the store read-only."""
+    now = now or datetime.now(timezone.utc)
+    config = workspace.config()
+    with workspace.open_store(read_only=True) as store:
+        summary = {row["instrument_id"]: row for row in store.instrument_summary()}
+        totals = store.counts()
+    instruments = []
+    for iid, instrument in config.instruments.items():
+        row = summary.get(iid, {"newest_utc": None, "readings": 0, "flagged": 0})
+        age = None
+        if row["newest_utc"]:
+            newest = datetime.strptime(row["newest_utc"], "%Y-%m-%dT%H:%M:%SZ").replace(tzinfo=timezone.utc)
+            age = (now - newest).total_seconds() / 3600.0
+        instruments.append(
+            {
+                "instrument_id": iid,
+                "kind": instrument.kind,
+                "newest_utc": row["newest_utc"],
+                "age_hours": None if age is None else round(age, 2),
+                "stale": age is None or age > config.ingest.stale_hours,
+                "readings": row["readings"],
+                "flagged": row["flagged"],
+            }
+        )
+    waiting = sorted(p.name for p in workspace.incoming.iterdir() if p.is_file() and not p.name.startswith("."))
+    claimed = sorted(p.name for p in workspace.claimed.iterdir())
+    return {
+        "site": config.id,
+        "now_utc": now.astimezone(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "stale_hours": config.ingest.stale_hours,
+        "instruments": instruments,
+        "incoming": waiting,
+        "claimed": claimed,
+        "totals": totals,
+    }
