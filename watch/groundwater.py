@@ -246,7 +246,9 @@ class SideRule:
     Attributes
     ----------
     kind : str
-        ``"hold level"``, ``"below ground"``, ``"fixed level"`` or ``"design line"``.
+        ``"hold level"``, ``"below ground"``, ``"fixed level"``, ``"design line"`` or
+        ``"parallel to design line"`` (the design line shifted up or down by the outermost
+        instrument's departure from it, so one instrument moves the whole line).
     depth : float or None
         Depth of the line below the ground surface [m] (``below ground``).
     level : float or None
@@ -261,7 +263,7 @@ class SideRule:
     level: float | None = None
     offset: float | None = None
 
-    KINDS = ("hold level", "below ground", "fixed level", "design line")
+    KINDS = ("hold level", "below ground", "fixed level", "design line", "parallel to design line")
 
     def __post_init__(self) -> None:
         if self.kind not in self.KINDS:
@@ -300,6 +302,11 @@ class SideRule:
     def design_line(cls) -> "SideRule":
         """Follow the section's design water line."""
         return cls("design line")
+
+    @classmethod
+    def parallel_to_design_line(cls) -> "SideRule":
+        """Follow the design line shifted by the outermost instrument's departure from it."""
+        return cls("parallel to design line")
 
     def describe(self) -> str:
         if self.kind == "below ground":
@@ -422,8 +429,8 @@ def build_water_line(
                 f"line (its instruments: {sorted(offsets)})"
             )
     for side, rule in (("left", left_rule), ("right", right_rule)):
-        if rule.kind == "design line" and design is None:
-            raise ConfigError(f"{side} side rule 'design line' needs the section's design line")
+        if rule.kind in ("design line", "parallel to design line") and design is None:
+            raise ConfigError(f"{side} side rule '{rule.kind}' needs the section's design line")
 
     measured = _finite_heads(heads, offsets)
     exclusions = dict(exclusions or {})
@@ -548,11 +555,13 @@ def _extension(rule, side, anchor_x, anchor_y, x_end, ground, design) -> np.ndar
                 f"(x = {x_end:g} m)"
             )
         ys = np.full(xs.shape, rule.level)
-    else:  # design line
+    else:  # design line, or parallel to it
         inner = design[beyond(design[:, 0]), 0]
         inner = inner[(inner > min(x_end, anchor_x)) & (inner < max(x_end, anchor_x))]
         xs = np.unique(np.concatenate([[x_end], inner]))
         ys = np.interp(xs, design[:, 0], design[:, 1])
+        if rule.kind == "parallel to design line":
+            ys = ys + (anchor_y - np.interp(anchor_x, design[:, 0], design[:, 1]))
     return np.column_stack([xs, ys])
 
 

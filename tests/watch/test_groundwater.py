@@ -188,6 +188,22 @@ def test_design_line_rule_beyond_the_instruments():
     assert np.all(line.elevation_at(np.linspace(42, 60, 19)) <= 50.0 + 1e-12)
 
 
+def test_parallel_to_design_line_shifts_the_design_line_by_the_instruments_departure():
+    # One instrument 1.2 m above the design line at x = 30: beyond it, the line is the design
+    # line raised by 1.2 m (numpy.interp of the design vertices, shifted), then clipped.
+    design_at_30 = np.interp(30.0, DESIGN[:, 0], DESIGN[:, 1])
+    line = build_water_line(
+        {"P1": 30.0}, {"P1": design_at_30 + 1.2}, GROUND,
+        SideRule.parallel_to_design_line(), SideRule.parallel_to_design_line(), DESIGN,
+    )
+    xs = np.array([0.0, 10.0, 42.0, 60.0])
+    expected = np.minimum(np.interp(xs, DESIGN[:, 0], DESIGN[:, 1]) + 1.2,
+                          np.interp(xs, GROUND[:, 0], GROUND[:, 1]))
+    np.testing.assert_allclose(np.interp(xs, line.points[:, 0], line.points[:, 1]), expected,
+                               rtol=1e-12)
+    assert line.left_rule == "parallel to design line"
+
+
 def test_head_above_ground_is_clipped_with_a_warning_and_crossings_added():
     line = build_water_line(
         {"P1": 30.0}, {"P1": 57.0}, GROUND, SideRule.hold_level(), SideRule.hold_level()

@@ -1,0 +1,175 @@
+"""Drawings of sections and slip surfaces (matplotlib, Agg backend: files only, no screen)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+from matplotlib.collections import LineCollection, PolyCollection  # noqa: E402
+from matplotlib.patches import Patch  # noqa: E402
+
+from watch.caution import CAUTION_SHORT  # noqa: E402
+
+#: Fill colours of the materials, in order: the colour-blind-safe palette of Okabe and Ito
+#: (2008, "Color Universal Design"), lightened towards white so that lines drawn over the strata
+#: stay readable. Blue is left out because it marks water.
+STRATA_COLOURS = ("#E69F00", "#009E73", "#F0E442", "#CC79A7", "#D55E00", "#56B4E9", "#999999")
+_LIGHTEN = 0.45
+WATER_COLOUR = "#0072B2"
+SURFACE_COLOUR = "#000000"
+#: Approximate width of the drawing area of a 10 inch wide figure [in].
+_AXES_WIDTH_IN = 8.8
+
+
+def plot_section(
+    section,
+    path: Path,
+    *,
+    surface=None,
+    fos: float | None = None,
+    method: str | None = None,
+    slices=None,
+    dpi: int = 150,
+) -> Path:
+    """Draw ``section`` with its strata, water lines and an optional slip surface to a PNG.
+
+    Parameters
+    ----------
+    section : solver.section.Section
+    path : Path
+        Output file (PNG).
+    surface : CircularSurface or PolylineSurface, optional
+        Slip surface to draw (section frame).
+    fos : float, optional
+        Its factor of safety [-], shown in the title with ``method``.
+    method : str, optional
+    slices : solver.slices.Slices, optional
+        Slice table of the surface (one surface); slice boundaries are drawn from the surface
+        up to the ground.
+    dpi : int
+
+    Returns
+    -------
+    Path
+        The file written.
+    """
+    path = Path(path)
+    ground = section.ground
+    x_lo, x_hi = ground[0, 0], ground[-1, 0]
+    surface_points = _surface_points(surface, section) if surface is not None else None
+    y_top = ground[:, 1].max()
+    y_bottom = ground[:, 1].min()
+    if section.base is not None:
+        y_bottom = min(y_bottom, section.base[:, 1].min())
+    if surface_points is not None and len(surface_points):
+        y_bottom = min(y_bottom, surface_points[:, 1].min())
+    height = max(y_top - y_bottom, 1.0)
+    y_floor = y_bottom - 0.1 * height
+
+    # Size the figure to the section at true scale so that no band of white is left around it.
+    y_ceiling = y_top + 0.15 * height
+    aspect = (y_ceiling - y_floor) / max(x_hi - x_lo, 1e-9)
+    axes_height = float(np.clip(_AXES_WIDTH_IN * aspect, 1.8, 7.0))
+    fig, ax = plt.subplots(figsize=(10, axes_height + 1.5), layout="constrained")
+    handles = _draw_strata(ax, section, y_floor)
+    ax.plot(ground[:, 0], ground[:, 1], color="black", linewidth=1.2)
+    if section.base is not None:
+        ax.plot(*section.base.T, color="#555555", linewidth=2.0, linestyle="-.")
+        handles.append(plt.Line2D([], [], color="#555555", linewidth=2.0, linestyle="-.",
+                                  label="Impenetrable base"))
+    for line in section.water_lines:
+        (drawn,) = ax.plot(*line.points.T, color=WATER_COLOUR, linewidth=1.4, linestyle="--",
+                           label=f"Water line '{line.name}'")
+        handles.append(drawn)
+    if surface_points is not None:
+        if slices is not None:
+            ax.add_collection(_slice_lines(slices, surface, section))
+        (drawn,) = ax.plot(*surface_points.T, color=SURFACE_COLOUR, linewidth=2.2,
+                           label="Critical slip surface")
+        handles.append(drawn)
+        if np.isfinite(getattr(surface, "radius", np.nan)):
+            ax.plot(surface.centre_x, surface.centre_y, marker="+", color=SURFACE_COLOUR,
+                    markersize=9)
+
+    ax.set_xlim(x_lo, x_hi)
+    ax.set_ylim(y_floor, y_ceiling)
+    ax.set_aspect("equal", adjustable="box")
+    ax.set_xlabel("Offset along section [m]")
+    ax.set_ylabel("Elevation [m]")
+    title = f"Section {section.id}"
+    if fos is not None:
+        title += f": factor of safety {fos:.2f}" + (f" ({method})" if method else "")
+    ax.set_title(title)
+    ax.grid(True, color="#DDDDDD", linewidth=0.5)
+    ax.set_axisbelow(True)
+    # The legend goes below the drawing, where it can never hide the slope; the caution is the
+    # figure's bottom label, so the layout keeps room for both.
+    ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.16),
+              ncols=min(4, len(handles)), fontsize=8, frameon=False)
+    fig.supxlabel(CAUTION_SHORT, fontsize=7, color="#444444")
+    fig.savefig(path, dpi=dpi)
+    plt.close(fig)
+    return path
+
+
+def _lighten(colour: str) -> tuple:
+    rgb = np.array(matplotlib.colors.to_rgb(colour))
+    return tuple(rgb + (1 - rgb) * _LIGHTEN)
+
+
+def _draw_strata(ax, section, y_floor) -> list:
+    """Fill every stratum cell with its material's colour; legend handles of the materials."""
+    columns = section.columns
+    x = columns.x
+    polygons, colours = [], []
+    used = []
+    for j in range(len(x) - 1):
+        for layer in range(columns.n_layers):
+            top_l, top_r = columns.top_left[j, layer], columns.top_right[j, layer]
+            bot_l = max(columns.bottom_left[j, layer], y_floor)
+            bot_r = max(columns.bottom_right[j, layer], y_floor)
+            if top_l - bot_l <= 0 and top_r - bot_r <= 0:
+                continue
+            material = int(columns.material[j, layer])
+            polygons.append([(x[j], top_l), (x[j + 1], top_r), (x[j + 1], bot_r), (x[j], bot_l)])
+            colours.append(_lighten(STRATA_COLOURS[material % len(STRATA_COLOURS)]))
+            if material not in used:
+                used.append(material)
+    ax.add_collection(PolyCollection(polygons, facecolors=colours, edgecolors="none"))
+    return [
+        Patch(facecolor=_lighten(STRATA_COLOURS[m % len(STRATA_COLOURS)]), edgecolor="#777777",
+              label=section.materials[m].name)
+        for m in sorted(used)
+    ]
+
+
+def _surface_points(surface, section) -> np.ndarray:
+    """Points of the slip surface below the ground, section frame."""
+    line = surface.as_polyline(400)
+    below = line[:, 1] <= section.ground_elevation(line[:, 0]) + 1e-9
+    inside = (line[:, 0] >= section.ground[0, 0]) & (line[:, 0] <= section.ground[-1, 0])
+    return line[below & inside]
+
+
+def _surface_elevation(surface, x) -> np.ndarray:
+    if hasattr(surface, "radius"):
+        offset = x - surface.centre_x
+        return surface.centre_y - np.sqrt(np.maximum(surface.radius**2 - offset**2, 0))
+    return np.interp(x, *np.asarray(surface.points).T)
+
+
+def _slice_lines(slices, surface, section) -> LineCollection:
+    """Slice boundaries from the surface up to the ground (section frame)."""
+    active = np.asarray(slices.active[0], dtype=bool)
+    edges = np.union1d(slices.x_left[0, active], slices.x_right[0, active])
+    if slices.mirrored:
+        edges = -edges
+    bottom = _surface_elevation(surface, edges)
+    top = section.ground_elevation(edges)
+    segments = [((x, b), (x, t)) for x, b, t in zip(edges, bottom, top)]
+    return LineCollection(segments, colors="#333333", linewidths=0.5, alpha=0.7)
