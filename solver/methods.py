@@ -124,7 +124,8 @@ class SafetyResult:
     admissible : ndarray of bool (n_surfaces,)
         False when the result is converged but physically doubtful (m_alpha at or below
         :data:`solver.constants.M_ALPHA_MIN`, negative effective normal force on a frictional
-        base, line of thrust outside the sliding mass) or not converged; ``message`` says why.
+        base) or not converged; ``message`` says why. A line of thrust outside the sliding mass
+        is reported in ``message`` as a warning only.
     iterations : ndarray of int (n_surfaces,)
         Iterations used.
     residual : ndarray (n_surfaces,)
@@ -571,7 +572,10 @@ def _finish(
     no_slice = ~s.any_active
     fos = np.where(no_slice, np.nan, fos)
     converged = converged & ~no_slice
-    admissible = converged & ~low_m_alpha & ~tension & ~thrust_outside
+    # A line of thrust outside the mass is reported in the message but does not make the
+    # result inadmissible: it is a check of the reasonableness of the interslice forces, and
+    # excluding such surfaces from a search could hide the critical one (common practice).
+    admissible = converged & ~low_m_alpha & ~tension
     active = s.active
     effective = np.where(active, effective, 0.0)
     return SafetyResult(
@@ -663,21 +667,70 @@ def _starting_fos(s: _Arrays, moment: _Moment) -> np.ndarray:
     return np.where(np.isfinite(start) & (start > 0.05), start, 1.0)
 
 
+class _BishopUpdate:
+    """One pass of Bishop's iteration over a set of surfaces, from arrays computed once.
+
+    The update is that of :func:`_base_forces` and :func:`_moment_fos` with X = 0, with the
+    F-independent part of the resisting moment summed in advance::
+
+        m_alpha = cos(a) + sin(a) tan(phi') / F,   N = (W + Q - K sin(a) / F) / m_alpha,
+        F = [sum(K r_S) + sum(N tan(phi') r_S)] / [M_loads + sum(N a_N)]
+
+    (K = c' l - u l tan(phi')); both sums over N come from one ``vecdot`` per pass, and the
+    per-slice work writes into two scratch arrays instead of allocating temporaries.
+    """
+
+    def __init__(self, cos_a, sin_tan_phi, vertical_load, cohesion_term_sin, arms,
+                 cohesion_moment, load_moment):
+        self.cos_a = cos_a
+        self.sin_tan_phi = sin_tan_phi
+        self.vertical_load = vertical_load
+        self.cohesion_term_sin = cohesion_term_sin
+        self.arms = arms  # (n, 2, n_slices): tan(phi') r_S and a_N
+        self.cohesion_moment = cohesion_moment  # (n,) sum(K r_S)
+        self.load_moment = load_moment  # (n,) M_loads
+        self._m_alpha = np.empty(cos_a.shape)
+        self._normal = np.empty(cos_a.shape)
+
+    @classmethod
+    def of(cls, s: _Arrays, moment: _Moment) -> "_BishopUpdate":
+        arms = np.empty((s.tan_phi.shape[0], 2, s.tan_phi.shape[1]))
+        np.multiply(s.tan_phi, moment.shear_arm, out=arms[:, 0])
+        arms[:, 1] = moment.normal_arm
+        return cls(s.cos_a, s.sin_tan_phi, s.vertical_load, s.cohesion_term_sin, arms,
+                   np.sum(s.cohesion_term * moment.shear_arm, axis=1), moment.load_moment)
+
+    def take(self, index) -> "_BishopUpdate":
+        """The update of a subset of the surfaces (the unfinished ones)."""
+        return _BishopUpdate(self.cos_a[index], self.sin_tan_phi[index],
+                             self.vertical_load[index], self.cohesion_term_sin[index],
+                             self.arms[index], self.cohesion_moment[index],
+                             self.load_moment[index])
+
+    def __call__(self, fos: np.ndarray) -> np.ndarray:
+        f = fos[:, np.newaxis]
+        m_alpha = np.divide(self.sin_tan_phi, f, out=self._m_alpha)
+        m_alpha += self.cos_a
+        normal = np.divide(self.cohesion_term_sin, f, out=self._normal)
+        np.subtract(self.vertical_load, normal, out=normal)
+        normal /= m_alpha
+        sums = np.vecdot(normal[:, np.newaxis, :], self.arms)
+        resisting = self.cohesion_moment + sums[:, 0]
+        driving = self.load_moment + sums[:, 1]
+        return np.where(driving > 0, resisting / driving, np.nan)
+
+
 def _bishop_iteration(s: _Arrays, moment: _Moment, tolerance, max_iterations) -> "_Progress":
     floor = _m_alpha_floor(s)
     start = np.maximum(_starting_fos(s, moment), 1.1 * floor)
     centred = np.isfinite(moment.load_moment)
     start = np.where(centred & s.any_active, start, np.nan)
-
-    def take(index):
-        return s.take(index), moment.take(index)
+    passes = _BishopUpdate.of(s, moment)
 
     def update(subset, fos):
-        sub, sub_moment = subset
-        normal, _, capacity, _ = _base_forces(sub, fos)
-        return _moment_fos(sub, sub_moment, normal, capacity)
+        return subset(fos)
 
-    return _fixed_point(update, take, start, floor, tolerance, max_iterations)
+    return _fixed_point(update, passes.take, start, floor, tolerance, max_iterations)
 
 
 def bishop_simplified(

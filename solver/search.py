@@ -124,9 +124,13 @@ class SearchSettings:
     max_iterations : int
         Iteration limit passed to an iterative method.
     admissible_only : bool
-        When True (default), surfaces whose result the method flags as physically doubtful
-        (m_alpha at or below M_ALPHA_MIN, negative effective normal force on a frictional base,
-        line of thrust outside the mass) do not compete; they are counted in ``filtered``.
+        When True (default), surfaces with m_alpha at or below M_ALPHA_MIN at a slice base do
+        not compete (the normal force of Bishop's and related methods is unreliable there;
+        Whitman and Bailey 1967); they are counted in ``filtered``. Other flags (negative
+        effective normal force near the crest, line of thrust outside the mass) never remove
+        a surface: excluding them can hide the critical mechanism, and a negative normal force
+        at the crest calls for a tension crack rather than another surface (Duncan, Wright and
+        Brandon 2014). They stay in the result's messages as warnings.
     batch_size : int
         Trial surfaces sliced and solved together; bounds the memory of big searches.
     """
@@ -1087,7 +1091,8 @@ def _solve_batch(batch, settings, centre_x, centre_y, radius, points) -> _Evalua
     fos = np.asarray(solved.fos, dtype=float)
     has_fos = np.isfinite(fos) & (fos > 0)
     converged = np.asarray(solved.converged, dtype=bool) & has_fos
-    doubtful = converged & ~np.asarray(solved.admissible, dtype=bool)
+    low_m_alpha = np.array(["m_alpha" in message for message in solved.message], dtype=bool)
+    doubtful = converged & ~np.asarray(solved.admissible, dtype=bool) & low_m_alpha
     if not settings.admissible_only:
         doubtful[:] = False
     depth, area = _surface_measures(slices)

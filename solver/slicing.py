@@ -674,17 +674,16 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices):
     extra = np.concatenate(extra, axis=1)
     extra = np.where(np.isfinite(extra), np.clip(extra, lo, hi), lo)
     bounds = np.sort(np.concatenate([equal, extra], axis=1), axis=1)
-    width = np.diff(bounds, axis=1)
-    active = width > _MIN_WIDTH
-    # Real slices first (stable, so still in order of x), then trim to the longest surface.
-    order = np.argsort(~active, axis=1, kind="stable")
-    count = int(active.sum(axis=1).max(initial=0))
-    order = order[:, :count]
-    active = np.take_along_axis(active, order, 1)
-    x_left = np.take_along_axis(bounds[:, :-1], order, 1)
-    x_right = np.take_along_axis(bounds[:, 1:], order, 1)
-    x_left = np.where(active, x_left, 0.0)
-    x_right = np.where(active, x_right, 0.0)
+    real = np.diff(bounds, axis=1) > _MIN_WIDTH
+    # Real slices first, still in order of x, then padding, trimmed to the longest surface:
+    # boolean masks read and write row by row, and every row has as many real slices in
+    # ``real`` as leading True values in ``active``.
+    per_row = real.sum(axis=1)
+    active = np.arange(per_row.max(initial=0)) < per_row[:, None]
+    x_left = np.zeros(active.shape)
+    x_right = np.zeros(active.shape)
+    x_left[active] = bounds[:, :-1][real]
+    x_right[active] = bounds[:, 1:][real]
     b = x_right - x_left
     xm = 0.5 * (x_left + x_right)
 
@@ -707,6 +706,16 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices):
         # materials and unit weights of layered strata always are), which saves a gather.
         return column[0] if column.min() == column.max() else np.take(column, j)
 
+    elevations = {}
+
+    def elevation(left, right):
+        # A stratum boundary at each slice; the bottom of one stratum is usually the top of
+        # the next, so each boundary is interpolated once.
+        key = (left.tobytes(), right.tobytes())
+        if key not in elevations:
+            elevations[key] = at(left) + at(right - left) * t
+        return elevations[key]
+
     weight = np.zeros(xm.shape)
     moment = np.zeros(xm.shape)
     base_material = np.full(xm.shape, -1)
@@ -714,9 +723,8 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices):
     for k in range(frame.layer_material.shape[1]):
         cell_material = frame.layer_material[:, k]
         material = at(cell_material)
-        top = at(frame.top_left[:, k]) + at(frame.top_right[:, k] - frame.top_left[:, k]) * t
-        bottom = at(frame.bottom_left[:, k]) + at(
-            frame.bottom_right[:, k] - frame.bottom_left[:, k]) * t
+        top = elevation(frame.top_left[:, k], frame.top_right[:, k])
+        bottom = elevation(frame.bottom_left[:, k], frame.bottom_right[:, k])
         low = np.maximum(bottom, y_base)
         thickness = np.maximum(top - low, 0.0)
         water = level(at(frame.water_index[cell_material]))
@@ -746,13 +754,16 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices):
         y_weight = np.where(weight > 0, moment / weight, y_base)
 
     material = np.maximum(base_material, 0)
-    undrained = frame.undrained[material]
-    su = frame.su_0[material] + frame.su_gradient[material] * np.maximum(
-        frame.su_datum[material] - y_base, 0.0)
-    cohesion = np.where(undrained, su, frame.cohesion[material])
-    tan_phi = np.where(undrained, 0.0, frame.tan_phi[material])
+    cohesion = frame.cohesion[material]
+    tan_phi = frame.tan_phi[material]
     pore = _pore_pressure(frame, xm, y_base, y_top, material, levels, soil_stress)
-    pore = np.where(undrained, 0.0, pore)
+    if frame.undrained.any():
+        undrained = frame.undrained[material]
+        su = frame.su_0[material] + frame.su_gradient[material] * np.maximum(
+            frame.su_datum[material] - y_base, 0.0)
+        cohesion = np.where(undrained, su, cohesion)
+        tan_phi = np.where(undrained, 0.0, tan_phi)
+        pore = np.where(undrained, 0.0, pore)
 
     surcharge = np.zeros(xm.shape)
     for x_from, x_to, pressure in frame.surcharges:
@@ -762,8 +773,12 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices):
     unbased = (active & (base_material < 0)).any(axis=1)
     area = (np.maximum(y_top - y_base, 0.0) * b).sum(axis=1)
 
+    padding = ~active
+
     def zero(v):
-        return np.where(active, v, 0)
+        # In place: every array zeroed here is a fresh result of this function.
+        np.copyto(v, 0, where=padding)
+        return v
 
     table = dict(
         x_left=x_left,
@@ -777,7 +792,7 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices):
         tan_phi=zero(tan_phi),
         pore_pressure=zero(pore),
         surcharge=zero(surcharge),
-        base_material=np.where(active, base_material, -1),
+        base_material=np.where(padding, -1, base_material),
         active=active,
     )
     return table, area, unbased
@@ -794,7 +809,9 @@ def _level(levels, line_index, shape):
 
 
 def _pore_pressure(frame: _Frame, xm, y_base, y_top, material, levels, soil_stress):
-    line = frame.water_index[material]
+    # One line number for every slice when all materials share a water line (the usual case).
+    index = frame.water_index
+    line = index[0] if index.min() == index.max() else index[material]
     head = _level(levels, line, xm.shape)
     if not frame.pond:
         # Without ponding, a line above the ground carries no excess head.
@@ -810,13 +827,21 @@ def _pore_pressure(frame: _Frame, xm, y_base, y_top, material, levels, soil_stre
             seg = np.clip(np.searchsorted(points[:, 0], xm, side="right") - 1, 0, slope.size - 1)
             cos2 = np.where(line == i, 1.0 / (1.0 + slope[seg] ** 2), cos2)
         u = u * cos2
-    u = np.where(frame.line_suction[line], u, np.maximum(u, 0.0))
-    u = np.where(line < 0, 0.0, u)
+    if frame.line_suction.any():
+        u = np.where(frame.line_suction[line], u, np.maximum(u, 0.0))
+    else:
+        u = np.maximum(u, 0.0)
+    if np.any(line < 0):
+        u = np.where(line < 0, 0.0, u)
+    if np.isnan(frame.ru).all():
+        return u
     ru = frame.ru[material]
     return np.where(np.isfinite(ru), ru * soil_stress, u)
 
 
 def _select(table: dict, keep) -> dict:
+    if keep.all():
+        return table
     out = {}
     for name, value in table.items():
         out[name] = value[keep]

@@ -173,3 +173,69 @@ def _slice_lines(slices, surface, section) -> LineCollection:
     top = section.ground_elevation(edges)
     segments = [((x, b), (x, t)) for x, b, t in zip(edges, bottom, top)]
     return LineCollection(segments, colors="#333333", linewidths=0.5, alpha=0.7)
+
+
+def plot_fos_history(
+    section_id: str,
+    times,
+    fos,
+    path: Path,
+    *,
+    method: str = "",
+    rain_times=None,
+    rain_mm=None,
+    rain_label: str = "Rain [mm/day]",
+    levels: dict[str, float] | None = None,
+    events: dict[str, object] | None = None,
+    dpi: int = 150,
+) -> Path:
+    """Factor of safety through time, with daily rainfall bars underneath, to a PNG.
+
+    Parameters
+    ----------
+    section_id : str
+    times, fos : sequences
+        Assessment times (UTC) and factors of safety [-].
+    path : Path
+        Output file (PNG).
+    method : str
+        Method of slices, for the axis label.
+    rain_times, rain_mm : sequences, optional
+        Rain per bar (for example daily totals [mm]) at its gauge.
+    levels : dict of str to float, optional
+        Trigger levels to draw as horizontal lines, by name [-].
+    events : dict of str to time, optional
+        Marked moments (for example a slip), by label.
+    """
+    has_rain = rain_times is not None and len(rain_times) > 0
+    figure, axes = plt.subplots(
+        2 if has_rain else 1, 1, figsize=(10, 5.2 if has_rain else 3.8), sharex=True,
+        gridspec_kw={"height_ratios": [3, 1]} if has_rain else None, squeeze=False,
+    )
+    ax = axes[0, 0]
+    ax.plot(times, fos, color="#000000", linewidth=1.4, label="Factor of safety")
+    styles = ("--", "-.", ":")
+    for i, (name, value) in enumerate(sorted((levels or {}).items(), key=lambda kv: -kv[1])):
+        ax.axhline(value, color="#D55E00", linestyle=styles[i % len(styles)], linewidth=1.0,
+                   label=f"{name} ({value:.2f})")
+    for label, moment in (events or {}).items():
+        ax.axvline(moment, color="#CC79A7", linewidth=1.2)
+        ax.annotate(label, (moment, 1.0), xycoords=("data", "axes fraction"),
+                    xytext=(4, -12), textcoords="offset points", fontsize=8, color="#000000")
+    ax.set_ylabel(f"Factor of safety [-]{f' ({method})' if method else ''}")
+    ax.grid(True, color="#dddddd", linewidth=0.6)
+    ax.set_title(f"Section {section_id}: factor of safety through the season")
+    ax.legend(loc="lower left", fontsize=8, frameon=True)
+    if has_rain:
+        rain_ax = axes[1, 0]
+        rain_ax.bar(rain_times, rain_mm, width=0.9, color=WATER_COLOUR)
+        rain_ax.set_ylabel(rain_label)
+        rain_ax.grid(True, axis="y", color="#dddddd", linewidth=0.6)
+    axes[-1, 0].set_xlabel("Date (UTC)")
+    figure.autofmt_xdate()
+    figure.text(0.5, 0.005, CAUTION_SHORT, ha="center", va="bottom", fontsize=7, color="#444444")
+    figure.tight_layout(rect=(0, 0.03, 1, 1))
+    path = Path(path)
+    figure.savefig(path, dpi=dpi)
+    plt.close(figure)
+    return path

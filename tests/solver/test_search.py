@@ -421,3 +421,23 @@ def test_entry_exit_on_a_slope_facing_the_other_way():
     right = entry_exit(_undrained(ground), EXACT, n_entry=10, n_exit=10)
     left = entry_exit(_undrained(mirrored), EXACT, n_entry=10, n_exit=10)
     assert left.fos == pytest.approx(right.fos, rel=1e-6)
+
+
+def test_a_negative_normal_force_at_the_crest_does_not_remove_the_critical_circle():
+    # A cohesive 45 deg slope with a steep crest entry: the critical circle has a slightly
+    # negative N' in its top slice. Duncan, Wright and Brandon (2014) treat that as a reason for
+    # a tension crack, not for discarding the mechanism, so the search must still find it:
+    # its result may not exceed Bishop's F of that circle (found by an independent review
+    # calculation; behaviour check, no published value).
+    section = section_from_dict({
+        "section": {"id": "STEEP"},
+        "ground": {"points": [[0, 15.0], [15, 15.0], [30, 0.0], [60, 0.0]]},
+        "material": [{"name": "Clay", "model": "drained", "unit_weight": 20.0,
+                      "cohesion": 25.0, "friction_angle": 20.0}],
+        "stratum": [{"material": "Clay"}],
+    })
+    circle = slice_circles(section, np.array([18.97]), np.array([32.24]), np.array([21.85]))
+    known = factor_of_safety(circle.slices, method="bishop_simplified")
+    assert "negative effective normal force" in known.message[0]
+    result = search_critical_surface(section, SearchSettings(method="bishop_simplified"))
+    assert result.critical.fos <= known.fos[0] * (1 + 1e-3)
