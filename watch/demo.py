@@ -126,7 +126,7 @@ def run_demo(
         history_png = plot_fos_history(
             section.id, times, fos.values, ws.reports / f"fos_{section.id}.png",
             method=worst.method, rain_times=daily_rain.index, rain_mm=daily_rain.values,
-            rain_label=f"Rain at {ref.gauge} [mm/day]" if ref.gauge else "Rain [mm/day]",
+            rain_label=f"Rain {ref.gauge}\n[mm/day]" if ref.gauge else "Rain\n[mm/day]",
         )
         worst_section = section.with_water_lines(
             {name: line.points for name, line in worst.water_lines.items()}

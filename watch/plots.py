@@ -184,7 +184,7 @@ def plot_fos_history(
     method: str = "",
     rain_times=None,
     rain_mm=None,
-    rain_label: str = "Rain [mm/day]",
+    rain_label: str = "Rain\n[mm/day]",
     levels: dict[str, float] | None = None,
     events: dict[str, object] | None = None,
     dpi: int = 150,
