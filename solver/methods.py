@@ -261,15 +261,14 @@ class _Arrays:
         return self.sin_a * self.tan_phi
 
 
-def _carry_from_active(values: np.ndarray, active: np.ndarray) -> np.ndarray:
-    """Replace values of inactive slices by those of the nearest active slice before them
-    (or after them for leading padding)."""
-    n = values.shape[1]
+def _carry_index(active: np.ndarray) -> np.ndarray:
+    """Column of the nearest active slice before each slice (or after it for leading
+    padding): ``take_along_axis(values, index, 1)`` carries values over inactive slices."""
+    n = active.shape[1]
     index = np.where(active, np.arange(n), -1)
     index = np.maximum.accumulate(index, axis=1)
     first = np.argmax(active, axis=1)[:, np.newaxis]
-    index = np.where(index < 0, first, index)
-    return np.take_along_axis(values, index, axis=1)
+    return np.where(index < 0, first, index)
 
 
 def _prepare(slices: Slices) -> _Arrays:
@@ -283,8 +282,13 @@ def _prepare(slices: Slices) -> _Arrays:
     width = zeroed("width")
     cos_a = np.cos(alpha)
     weight = zeroed("weight")
-    first = active & (np.cumsum(active, axis=1) == 1)
     crack_force = np.asarray(slices.crack_water_force, dtype=float)[:, np.newaxis]
+    if np.any(crack_force != 0):
+        first = active & (np.cumsum(active, axis=1) == 1)
+        crack_force = np.where(first, crack_force, 0.0)
+    else:
+        crack_force = np.zeros(active.shape)
+    carry = _carry_index(active)
     x_left = np.asarray(slices.x_left, dtype=float)
     x_start = np.take_along_axis(x_left, np.argmax(active, axis=1)[:, np.newaxis], axis=1)
     x_boundary = x_start + np.concatenate(
@@ -298,8 +302,8 @@ def _prepare(slices: Slices) -> _Arrays:
         sin_a=np.sin(alpha),
         cos_a=cos_a,
         x=0.5 * (x_boundary[:, :-1] + x_boundary[:, 1:]),
-        y_base=_carry_from_active(np.asarray(slices.y_base, dtype=float), active),
-        y_top=_carry_from_active(np.asarray(slices.y_top, dtype=float), active),
+        y_base=np.take_along_axis(np.asarray(slices.y_base, dtype=float), carry, axis=1),
+        y_top=np.take_along_axis(np.asarray(slices.y_top, dtype=float), carry, axis=1),
         # The line of action of a weightless slice's kh W is irrelevant (and may be NaN).
         y_weight=np.where(active & (weight != 0), slices.y_weight, 0.0),
         weight=weight,
@@ -308,7 +312,7 @@ def _prepare(slices: Slices) -> _Arrays:
         tan_phi=zeroed("tan_phi"),
         pore_pressure=zeroed("pore_pressure"),
         kh_weight=float(slices.kh) * weight,
-        crack_force=np.where(first, crack_force, 0.0),
+        crack_force=crack_force,
         crack_y=np.asarray(slices.crack_water_y, dtype=float)[:, np.newaxis],
         x_boundary=x_boundary,
     )

@@ -73,15 +73,25 @@ def three_layer_section():
 def bishop_kernel(weight, alpha, cohesion, tan_phi, pore_pressure, width, active, n_updates):
     """Bishop's simplified method from precomputed slice arrays, no geometry:
     F = sum[(c b + (W - u b) tan(phi)) / m_alpha] / sum(W sin(alpha)),
-    m_alpha = cos(alpha) (1 + tan(alpha) tan(phi) / F) (Bishop 1955)."""
+    m_alpha = cos(alpha) (1 + tan(alpha) tan(phi) / F) (Bishop 1955).
+
+    Everything that does not depend on F is computed before the passes (padding slices get a
+    zero numerator, so no mask is needed inside the loop), and each pass writes into one
+    scratch array: the same numpy techniques as the solver's own update, so that the ratio
+    measures the solver's overhead rather than a difference in coding style."""
     weight = np.where(active, weight, 0.0)
-    numerator_fixed = cohesion * width + (weight - pore_pressure * width) * tan_phi
-    cos_a, tan_a = np.cos(alpha), np.tan(alpha)
+    numerator = np.where(active, cohesion * width + (weight - pore_pressure * width) * tan_phi,
+                         0.0)
+    cos_a = np.cos(alpha)
+    cos_tan = cos_a * np.tan(alpha) * tan_phi
     driving = np.sum(weight * np.sin(alpha), axis=1)
     fos = np.ones(weight.shape[0])
+    scratch = np.empty(weight.shape)
     for _ in range(n_updates):
-        m_alpha = cos_a * (1.0 + tan_a * tan_phi / fos[:, None])
-        fos = np.sum(np.where(active, numerator_fixed / m_alpha, 0.0), axis=1) / driving
+        np.divide(cos_tan, fos[:, None], out=scratch)
+        scratch += cos_a
+        np.divide(numerator, scratch, out=scratch)
+        fos = scratch.sum(axis=1) / driving
     return fos
 
 
@@ -111,8 +121,9 @@ def main() -> None:
     search_time, result = timed(lambda: grid_and_radius(section, settings, **grid))
 
     # Where the time goes: slicing and the method alone, on the same circles in the same
-    # batches as the search; the kernel repeats, batch by batch, as many Bishop updates as the
-    # method made on that batch (it updates every surface of a batch until the last converges).
+    # batches as the search. The kernel repeats, batch by batch, as many Bishop updates on
+    # every surface of the batch as the method needed for its slowest surface (the method
+    # itself stops updating each surface once it has converged, which is its own saving).
     slicing_time = method_time = kernel_time = 0.0
     slice_values = 0
     updates = []
