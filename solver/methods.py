@@ -1212,6 +1212,21 @@ def _general_limit_equilibrium(
     start = np.where(s.any_active, start, np.nan)
     progress, lam = _gle_solve(gle, start, tolerance, max_iterations)
     fos = progress.fos
+    # A small Newton step is not enough: where the step dropped the moment equation (lambda
+    # indeterminate) force and moment equilibrium must both hold at the final (F, lambda).
+    with np.errstate(all="ignore"):
+        final = gle.state(np.where(np.isfinite(fos), fos, 1.0), lam)
+    unbalanced = progress.converged & ~(
+        (np.abs(final.force) <= tolerance) & (np.abs(final.moment) <= tolerance)
+    )
+    progress.converged = progress.converged & ~unbalanced
+    messages = _iteration_messages(progress, fos, max_iterations)
+    for i in np.flatnonzero(unbalanced):
+        messages[i] = (
+            "equilibrium not satisfied at the final (F, lambda): force residual "
+            f"{final.force[i]:.3g}, moment residual {final.moment[i]:.3g} of load x length "
+            "(lambda could not be determined)"
+        )
     # Per-slice forces at the final (F, lambda); E_n is left as computed so that it shows the
     # remaining force imbalance.
     e = gle.interslice_normal(fos, lam)
@@ -1220,7 +1235,7 @@ def _general_limit_equilibrium(
     y_thrust, outside = _thrust_line(s, e, x_shear)
     return _finish(
         method, s, fos, progress.converged, progress.iterations, progress.residual,
-        _iteration_messages(progress, fos, max_iterations),
+        messages,
         normal=normal, effective=effective, capacity=capacity, shear_fos=fos, m_alpha=m_alpha,
         interslice_normal=e, interslice_shear=x_shear,
         lambda_=np.where(np.isfinite(fos), lam, np.nan),

@@ -23,6 +23,7 @@ from solver.methods import (
 from tests.solver.slice_fixtures import (
     circle_slices,
     concatenate,
+    infinite_slope_slices,
     make_slices,
     pad,
     polyline_slices,
@@ -460,3 +461,15 @@ def test_make_slices_defaults():
         cohesion=[5.0], tan_phi=[0.5],
     )
     assert slices.active.all() and slices.surcharge[0, 0] == 0.0
+
+
+def test_morgenstern_price_never_reports_convergence_without_moment_equilibrium():
+    # Identical slices of an infinite slope with kh = 0.15: the interslice forces vanish, so
+    # lambda cannot balance the moment of kh W, and no (F, lambda) satisfies both equilibria.
+    # The result must say so (Morgenstern and Price 1965 require force AND moment equilibrium),
+    # not return a converged-looking number (found by review).
+    slices = dataclasses.replace(infinite_slope_slices(28.0, 3.0, 19.5, 4.0, 31.0, 1.0), kh=0.15)
+    result = morgenstern_price(slices)
+    assert not result.converged[0]
+    assert not result.admissible[0]
+    assert "equilibrium not satisfied" in result.message[0] or not np.isfinite(result.fos[0])
