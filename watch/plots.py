@@ -82,9 +82,11 @@ def plot_section(
         ax.plot(*section.base.T, color="#555555", linewidth=2.0, linestyle="-.")
         handles.append(plt.Line2D([], [], color="#555555", linewidth=2.0, linestyle="-.",
                                   label="Impenetrable base"))
-    for line in section.water_lines:
-        (drawn,) = ax.plot(*line.points.T, color=WATER_COLOUR, linewidth=1.4, linestyle="--",
-                           label=f"Water line '{line.name}'")
+    # One colour for water, a different dash pattern per line, so lines stay apart in grey print.
+    dashes = ("--", ":", "-.", (0, (6, 2, 1, 2)))
+    for i, line in enumerate(section.water_lines):
+        (drawn,) = ax.plot(*line.points.T, color=WATER_COLOUR, linewidth=1.4,
+                           linestyle=dashes[i % len(dashes)], label=f"Water line '{line.name}'")
         handles.append(drawn)
     if surface_points is not None:
         if slices is not None:
@@ -104,7 +106,7 @@ def plot_section(
     title = f"Section {section.id}"
     if fos is not None:
         title += f": factor of safety {fos:.2f}" + (f" ({method})" if method else "")
-    ax.set_title(title)
+    fig.suptitle(title)
     ax.grid(True, color="#DDDDDD", linewidth=0.5)
     ax.set_axisbelow(True)
     # The legend goes below the drawing, where it can never hide the slope; the caution is the
