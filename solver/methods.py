@@ -12,14 +12,17 @@ positive when the upslope soil drags the downslope soil downwards (the usual cas
 Spencer's ``lambda`` positive). On slice ``i`` (boundaries ``i`` and ``i + 1``) the base carries
 the total normal force ``N = N' + u l`` and the mobilised shear
 ``S = (c' l + N' tan(phi')) / F`` (Mohr-Coulomb, F the factor of safety), both at the base
-mid-point. External loads: weight ``W`` and surcharge ``Q`` (vertical, at the slice mid-point),
-pseudo-static ``kh W`` (horizontal, at ``y_weight``) and the crack-water thrust ``P_w``
-(horizontal, at ``crack_water_y``, on the first active slice).
+mid-point. External loads: weight ``W`` (soil plus the vertical part of ponded water) and surcharge ``Q``
+(vertical, at the slice mid-point), pseudo-static ``kh W_s`` on the soil weight ``W_s``
+(``seismic_weight``; horizontal, at ``y_weight``), the horizontal part ``H_w`` of the ponded
+water pressure on the slice top (at ``y_top_water``) and the crack-water thrust ``P_w``
+(horizontal, at ``crack_water_y``, on the first active slice). Below, ``H = kh W_s + H_w + P_w``
+is the sum of the horizontal loads of a slice and ``y_H`` stands for the line of action of each.
 
 Equilibrium of slice i (the scalar form every array expression below implements)::
 
-    horizontal:  -(E_{i+1} - E_i) + kh W + P_w + N sin(a) - S cos(a) = 0
-    vertical:     (X_{i+1} - X_i) - W - Q + N cos(a) + S sin(a)      = 0
+    horizontal:  -(E_{i+1} - E_i) + H + N sin(a) - S cos(a)     = 0
+    vertical:     (X_{i+1} - X_i) - W - Q + N cos(a) + S sin(a) = 0
 
 so that, with ``m_alpha = cos(a) + sin(a) tan(phi') / F`` (Bishop 1955),
 
@@ -27,8 +30,7 @@ so that, with ``m_alpha = cos(a) + sin(a) tan(phi') / F`` (Bishop 1955),
 
 Moment equilibrium of the whole mass about a point (x_c, y_c) reads::
 
-    F = sum(S_r r_S) / [sum((x_c - x) (W + Q)) + sum((y_c - y_W) kh W) + (y_c - y_w) P_w
-                        + sum(N a_N)]
+    F = sum(S_r r_S) / [sum((x_c - x) (W + Q)) + sum((y_c - y_H) H) + sum(N a_N)]
 
 with ``S_r = c' l + N' tan(phi')``, the shear lever arm
 ``r_S = (x_c - x) sin(a) + (y_c - y_b) cos(a)`` (the radius R on a circle) and the normal-force
@@ -54,6 +56,7 @@ import numpy as np
 
 from solver.constants import (
     FOS_TOLERANCE,
+    GAMMA_W,
     MAX_ITERATIONS,
     M_ALPHA_MIN,
     THRUST_LINE_MIN_FORCE_RATIO,
@@ -84,6 +87,11 @@ INTERSLICE_FUNCTIONS = {
 #: Coefficient b1 of Janbu's correction factor f0 (Janbu 1973), by the strength at the base.
 JANBU_B1 = {"cohesion_only": 0.69, "friction_only": 0.31, "cohesion_and_friction": 0.50}
 
+#: Largest d/L of Janbu's (1973) correction chart (from memory of the chart, as reproduced by
+#: Abramson et al. 2002). Beyond it f0 is held at its value here rather than extrapolated
+#: (common practice).
+JANBU_CHART_MAX_RATIO = 0.4
+
 
 # --------------------------------------------------------------------------------------------
 # Result objects
@@ -94,6 +102,7 @@ class SurfaceSafety:
     """The result of one method on one surface, active slices only (see :class:`SafetyResult`)."""
 
     fos: float
+    last_iterate: float
     converged: bool
     admissible: bool
     iterations: int
@@ -107,6 +116,7 @@ class SurfaceSafety:
     interslice_normal: np.ndarray
     interslice_shear: np.ndarray
     thrust_line_y: np.ndarray
+    interslice_water: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -116,8 +126,14 @@ class SafetyResult:
     Attributes
     ----------
     fos : ndarray (n_surfaces,)
-        Factor of safety [-]; NaN where it could not be computed (no active slice, no moment
+        Factor of safety [-] of the surfaces that converged; NaN where the iteration did not
+        converge (see ``last_iterate``) or F could not be computed (no active slice, no moment
         centre, non-positive driving moment or force, numerical breakdown).
+    last_iterate : ndarray (n_surfaces,)
+        The last iterate of F [-] (for Janbu's method, times f0): equal to ``fos`` where the
+        method converged, and kept where it did not so that the audit can show how far the
+        iteration got. Not a factor of safety where ``converged`` is False. NaN where no
+        iterate could be computed.
     converged : ndarray of bool (n_surfaces,)
         True when the iteration met the tolerance within the iteration limit (always True
         for the non-iterative ordinary method when ``fos`` is finite).
@@ -133,30 +149,40 @@ class SafetyResult:
         [-]; 0 for the ordinary method.
     lambda_ : ndarray (n_surfaces,)
         Interslice force scale factor lambda of Spencer (tan of the interslice force
-        inclination) and Morgenstern-Price [-]; NaN for the other methods.
+        inclination) and Morgenstern-Price [-], at the last iterate; NaN for the other
+        methods.
     method : str
         Name of the method.
     message : tuple of str (n_surfaces,)
         Why a surface is not converged or not admissible; "" when all is well.
     normal_force : ndarray (n_surfaces, n_slices)
-        Effective normal force N' on the slice base [kN/m].
+        Effective normal force N' on the slice base [kN/m] (at the last iterate where not
+        converged; likewise the other per-slice arrays).
     shear_force : ndarray (n_surfaces, n_slices)
         Mobilised shear force S = S_r / F on the slice base [kN/m].
     m_alpha : ndarray (n_surfaces, n_slices)
         m_alpha = cos(alpha) + sin(alpha) tan(phi') / F [-]; NaN for the ordinary method.
     interslice_normal, interslice_shear : ndarray (n_surfaces, n_slices + 1)
-        E and X at the slice boundaries [kN/m] (sign convention in the module docstring). For
-        Bishop and Janbu X = 0 and E follows from horizontal equilibrium of each slice (for
-        Bishop its last value shows the force imbalance that the method accepts); NaN for the
-        ordinary method, which ignores interslice forces.
+        Total E and X at the slice boundaries [kN/m] (sign convention in the module
+        docstring). For Bishop and Janbu X = 0 and E follows from horizontal equilibrium of
+        each slice (for Bishop its last value shows the force imbalance that the method
+        accepts); for Spencer and Morgenstern-Price X = lambda f E' with E' = E - U the
+        effective interslice force (U the water force on the boundary); NaN for the ordinary
+        method, which ignores interslice forces.
     thrust_line_y : ndarray (n_surfaces, n_slices + 1)
         Elevation of the line of thrust at the slice boundaries [m] (Spencer and
         Morgenstern-Price; NaN elsewhere and where E is nearly zero).
+    interslice_water : ndarray (n_surfaces, n_slices + 1)
+        U, the water force on each slice boundary [kN/m], hydrostatic from the neighbouring
+        base pore pressures; 0 at the ends of the mass. E - U is the effective interslice
+        force, to which Spencer's and Morgenstern-Price's interslice function applies, and the
+        ordinary method (by default) keeps U while ignoring E - U.
     active : ndarray of bool (n_surfaces, n_slices)
         The ``active`` flags of the slice table (padding slices are False).
     """
 
     fos: np.ndarray
+    last_iterate: np.ndarray
     converged: np.ndarray
     admissible: np.ndarray
     iterations: np.ndarray
@@ -170,6 +196,7 @@ class SafetyResult:
     interslice_normal: np.ndarray
     interslice_shear: np.ndarray
     thrust_line_y: np.ndarray
+    interslice_water: np.ndarray
     active: np.ndarray
 
     @property
@@ -188,6 +215,7 @@ class SafetyResult:
             keep_boundary[first : last + 2] = True
         return SurfaceSafety(
             fos=float(self.fos[index]),
+            last_iterate=float(self.last_iterate[index]),
             converged=bool(self.converged[index]),
             admissible=bool(self.admissible[index]),
             iterations=int(self.iterations[index]),
@@ -201,6 +229,7 @@ class SafetyResult:
             interslice_normal=self.interslice_normal[index, keep_boundary],
             interslice_shear=self.interslice_shear[index, keep_boundary],
             thrust_line_y=self.thrust_line_y[index, keep_boundary],
+            interslice_water=self.interslice_water[index, keep_boundary],
         )
 
 
@@ -229,6 +258,8 @@ class _Arrays:
     tan_phi: np.ndarray
     pore_pressure: np.ndarray
     kh_weight: np.ndarray
+    top_water: np.ndarray  # H_w
+    top_water_y: np.ndarray
     crack_force: np.ndarray  # P_w on the first active slice, 0 elsewhere
     crack_y: np.ndarray  # (n_surfaces, 1)
     x_boundary: np.ndarray  # (n_surfaces, n_slices + 1)
@@ -245,7 +276,53 @@ class _Arrays:
 
     @cached_property
     def horizontal_load(self) -> np.ndarray:
-        return self.kh_weight + self.crack_force
+        """H = kh W_s + H_w + P_w [kN/m]."""
+        return self.kh_weight + self.top_water + self.crack_force
+
+    @cached_property
+    def horizontal_load_moment(self) -> np.ndarray:
+        """sum of H y_H over the horizontal loads of each slice [kN m/m]: their moment about
+        y = 0, from which the moment about any elevation y_c is y_c H - (this)."""
+        return (self.kh_weight * self.y_weight + self.top_water * self.top_water_y
+                + self.crack_force * self.crack_y)
+
+    @cached_property
+    def side_water(self) -> np.ndarray:
+        """U_j, the water force on every slice boundary [kN/m] (n_surfaces, n_slices + 1):
+        hydrostatic from the piezometric head h_j interpolated between the bases of the two
+        neighbouring slices (h = y_b + u / gamma_w),
+
+            U_j = gamma_w / 2 [max(h_j - y_b,j, 0)^2 - max(h_j - y_g,j, 0)^2]
+
+        with y_b,j the base and y_g,j the ground (mean of the neighbouring mid-points) at the
+        boundary: the pressure integrated from the base up to the ground, or to the water
+        level below it. 0 at the ends of the mass and next to padding. Exact for hydrostatic
+        water (a submerged slope); elsewhere it defines which part of the interslice force the
+        effective interslice forces exclude.
+        """
+        n, m = self.active.shape
+        side = np.zeros((n, m + 1))
+        if m < 2 or not np.any(self.pore_pressure):
+            return side
+        head = self.y_base + self.pore_pressure / GAMMA_W
+        h = 0.5 * (head[:, :-1] + head[:, 1:])
+        base = self.y_base[:, :-1] - 0.5 * self.width[:, :-1] * self.sin_a[:, :-1] / self.cos_a[:, :-1]
+        ground = 0.5 * (self.y_top[:, :-1] + self.y_top[:, 1:])
+        force = 0.5 * GAMMA_W * (np.maximum(h - base, 0.0) ** 2
+                                 - np.maximum(h - np.maximum(ground, base), 0.0) ** 2)
+        side[:, 1:-1] = np.where(self.active[:, :-1] & self.active[:, 1:], force, 0.0)
+        return side
+
+    @cached_property
+    def effective_horizontal_load(self) -> np.ndarray:
+        """H + U_i - U_{i+1}: the horizontal loads with the water forces on the slice sides,
+        so that the interslice forces left to find are effective ones, E' = E - U.
+
+        The U act at any elevation as far as the equilibrium of the whole mass goes (their
+        moments cancel between neighbouring slices), so ``horizontal_load_moment`` needs no
+        term for them.
+        """
+        return self.horizontal_load + self.side_water[:, :-1] - self.side_water[:, 1:]
 
     @cached_property
     def cohesion_term(self) -> np.ndarray:
@@ -288,6 +365,8 @@ def _prepare(slices: Slices) -> _Arrays:
         crack_force = np.where(first, crack_force, 0.0)
     else:
         crack_force = np.zeros(active.shape)
+    seismic_weight = zeroed("seismic_weight")
+    top_water = zeroed("top_water_horizontal")
     carry = _carry_index(active)
     x_left = np.asarray(slices.x_left, dtype=float)
     x_start = np.take_along_axis(x_left, np.argmax(active, axis=1)[:, np.newaxis], axis=1)
@@ -304,14 +383,16 @@ def _prepare(slices: Slices) -> _Arrays:
         x=0.5 * (x_boundary[:, :-1] + x_boundary[:, 1:]),
         y_base=np.take_along_axis(np.asarray(slices.y_base, dtype=float), carry, axis=1),
         y_top=np.take_along_axis(np.asarray(slices.y_top, dtype=float), carry, axis=1),
-        # The line of action of a weightless slice's kh W is irrelevant (and may be NaN).
-        y_weight=np.where(active & (weight != 0), slices.y_weight, 0.0),
+        # The line of action of a zero load is irrelevant (and may be NaN).
+        y_weight=np.where(active & (seismic_weight != 0), slices.y_weight, 0.0),
         weight=weight,
         surcharge=zeroed("surcharge"),
         cohesion=zeroed("cohesion"),
         tan_phi=zeroed("tan_phi"),
         pore_pressure=zeroed("pore_pressure"),
-        kh_weight=float(slices.kh) * weight,
+        kh_weight=float(slices.kh) * seismic_weight,
+        top_water=top_water,
+        top_water_y=np.where(top_water != 0, slices.y_top_water, 0.0),
         crack_force=crack_force,
         crack_y=np.asarray(slices.crack_water_y, dtype=float)[:, np.newaxis],
         x_boundary=x_boundary,
@@ -421,7 +502,7 @@ class _Moment:
 
     shear_arm: np.ndarray  # r_S
     normal_arm: np.ndarray  # a_N
-    load_moment: np.ndarray  # (n,) driving moment of W, Q, kh W and P_w
+    load_moment: np.ndarray  # (n,) driving moment of W, Q and the horizontal loads H
 
     def take(self, index: np.ndarray) -> "_Moment":
         return _Moment(self.shear_arm[index], self.normal_arm[index], self.load_moment[index])
@@ -430,10 +511,8 @@ class _Moment:
 def _moment_terms(s: _Arrays, xc: np.ndarray, yc: np.ndarray) -> _Moment:
     dx = s.x - xc
     dy = s.y_base - yc
-    load = (
-        np.sum(-dx * s.vertical_load + (yc - s.y_weight) * s.kh_weight, axis=1)
-        + ((yc - s.crack_y) * s.crack_force).sum(axis=1)
-    )
+    load = np.sum(-dx * s.vertical_load + yc * s.horizontal_load - s.horizontal_load_moment,
+                  axis=1)
     return _Moment(
         shear_arm=-dx * s.sin_a - dy * s.cos_a,
         normal_arm=dx * s.cos_a - dy * s.sin_a,
@@ -451,7 +530,7 @@ def _moment_fos(s: _Arrays, moment: _Moment, normal, capacity) -> np.ndarray:
 
 def _force_fos(s: _Arrays, normal, capacity) -> np.ndarray:
     """F from horizontal force equilibrium of the whole mass with X = 0:
-    F = sum(S_r cos(a)) / [sum(N sin(a)) + sum(kh W) + P_w]."""
+    F = sum(S_r cos(a)) / [sum(N sin(a)) + sum(H)]."""
     resisting = np.sum(capacity * s.cos_a, axis=1)
     driving = np.sum(normal * s.sin_a + s.horizontal_load, axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -542,7 +621,7 @@ def _finish(
     """Common checks and flags, then the result object."""
     n = fos.shape[0]
     bad_fos = ~np.isfinite(fos) | (fos <= 0)
-    fos = np.where(bad_fos, np.nan, fos)
+    last_iterate = np.where(bad_fos, np.nan, fos)
     converged = converged & ~bad_fos
     with np.errstate(divide="ignore", invalid="ignore"):
         shear = np.where(s.active, capacity / shear_fos[:, np.newaxis], 0.0)
@@ -574,8 +653,11 @@ def _finish(
             "line of thrust outside the sliding mass" if thrust_outside[i] else "",
         )
     no_slice = ~s.any_active
-    fos = np.where(no_slice, np.nan, fos)
+    last_iterate = np.where(no_slice, np.nan, last_iterate)
     converged = converged & ~no_slice
+    # A last iterate that did not converge is not a factor of safety: only converged
+    # surfaces report one (scipy's root finders likewise flag, rather than hide, failure).
+    fos = np.where(converged, last_iterate, np.nan)
     # A line of thrust outside the mass is reported in the message but does not make the
     # result inadmissible: it is a check of the reasonableness of the interslice forces, and
     # excluding such surfaces from a search could hide the critical one (common practice).
@@ -584,6 +666,7 @@ def _finish(
     effective = np.where(active, effective, 0.0)
     return SafetyResult(
         fos=fos,
+        last_iterate=last_iterate,
         converged=converged,
         admissible=admissible,
         iterations=np.asarray(iterations, dtype=int),
@@ -599,6 +682,7 @@ def _finish(
         thrust_line_y=np.full_like(interslice_normal, np.nan)
         if thrust_line_y is None
         else thrust_line_y,
+        interslice_water=s.side_water,
         active=active,
     )
 
@@ -607,7 +691,7 @@ def _finish(
 # The methods
 
 
-def ordinary(slices: Slices) -> SafetyResult:
+def ordinary(slices: Slices, *, side_water: bool = False) -> SafetyResult:
     r"""Ordinary method of slices (Fellenius 1936): moment equilibrium, interslice forces ignored.
 
     The base normal force balances the loads resolved normal to the base, and F follows from
@@ -615,18 +699,31 @@ def ordinary(slices: Slices) -> SafetyResult:
 
     .. math::
 
-        N = (W + Q)\cos\alpha - k_h W \sin\alpha, \qquad N' = N - u\,l
+        N = (W + Q)\cos\alpha - (H + U_i - U_{i+1}) \sin\alpha, \qquad N' = N - u\,l
 
         F = \frac{\sum (c' l + N' \tan\phi') R}{\sum W R \sin\alpha + \ldots}
 
-    (on a circle of radius R; the general lever arms are in the module docstring). With pore
-    pressure the method is known to be conservative, increasingly so as u rises (Whitman and
-    Bailey 1967).
+    (on a circle of radius R; the general lever arms are in the module docstring): every load
+    on the slice, vertical (W + Q) and horizontal (H = kh W_s + H_w + P_w: pseudo-static,
+    ponded-water and crack-water forces), is resolved normal to its base.
+
+    By default this is the conventional form of Fellenius (U = 0): all interslice forces,
+    the water on the slice sides included, are ignored. It is known to be conservative with
+    pore pressure, increasingly so as u rises (Whitman and Bailey 1967), and far too low on
+    submerged slopes. With ``side_water=True`` only the effective interslice forces are
+    ignored: the water forces U on the slice sides (hydrostatic from the base pore pressures,
+    as for Spencer's method) stay in the balance. Where the water is hydrostatic this is the
+    form N' = (W - u b) cos(alpha) of Turnbull and Hvorslev (1967) (from memory), preferred by
+    Duncan, Wright and Brandon (2014, ch. 6), and a submerged slope gives the F of its buoyant
+    unit weight.
 
     Parameters
     ----------
     slices : Slices
         Slice table ([m], [kN/m], [kPa], [rad] as documented in :mod:`solver.slices`).
+    side_water : bool
+        Keep the water forces on the slice sides (see above); default False, the method as
+        Fellenius gave it.
 
     Returns
     -------
@@ -639,10 +736,16 @@ def ordinary(slices: Slices) -> SafetyResult:
     Congress on Large Dams, Washington, 4, 445-462.
     Whitman, R.V. and Bailey, W.A. (1967). Use of computers for slope stability analysis.
     Journal of the Soil Mechanics and Foundations Division, ASCE 93(SM4), 475-498.
+    Turnbull, W.J. and Hvorslev, M.J. (1967). Special problems in slope stability. Journal of
+    the Soil Mechanics and Foundations Division, ASCE 93(SM4), 499-528.
+    Duncan, J.M., Wright, S.G. and Brandon, T.L. (2014). Soil Strength and Slope Stability,
+    2nd ed. Wiley, ch. 6.
     """
+    if not isinstance(side_water, bool):
+        raise MethodError(f"side_water must be True or False, got {side_water!r}")
     s = _prepare(slices)
     xc, yc = _moment_centre(slices)
-    fos, normal, effective, capacity = _ordinary_forces(s, _moment_terms(s, xc, yc))
+    fos, normal, effective, capacity = _ordinary_forces(s, _moment_terms(s, xc, yc), side_water)
     n = fos.shape[0]
     nan_boundary = np.full((n, s.width.shape[1] + 1), np.nan)
     messages = [""] * n
@@ -656,9 +759,10 @@ def ordinary(slices: Slices) -> SafetyResult:
     )
 
 
-def _ordinary_forces(s: _Arrays, moment: _Moment):
+def _ordinary_forces(s: _Arrays, moment: _Moment, side_water: bool = False):
     """F, N, N' and S_r of the ordinary method (see :func:`ordinary`)."""
-    normal = np.where(s.active, s.vertical_load * s.cos_a - s.kh_weight * s.sin_a, 0.0)
+    horizontal = s.effective_horizontal_load if side_water else s.horizontal_load
+    normal = np.where(s.active, s.vertical_load * s.cos_a - horizontal * s.sin_a, 0.0)
     effective = normal - s.pore_pressure * s.length
     capacity = s.cohesion * s.length + effective * s.tan_phi
     return _moment_fos(s, moment, normal, capacity), normal, effective, capacity
@@ -667,7 +771,8 @@ def _ordinary_forces(s: _Arrays, moment: _Moment):
 def _starting_fos(s: _Arrays, moment: _Moment) -> np.ndarray:
     """A positive starting value: the ordinary method where it gives one, else 1."""
     with np.errstate(all="ignore"):
-        start = _ordinary_forces(s, moment)[0]
+        # The conventional form: a starting value needs no side water forces.
+        start = _ordinary_forces(s, moment, side_water=False)[0]
     return np.where(np.isfinite(start) & (start > 0.05), start, 1.0)
 
 
@@ -803,7 +908,10 @@ def janbu_correction_factor(depth, length, b1):
         f_0 = 1 + b_1 \left[\frac{d}{L} - 1.4 \left(\frac{d}{L}\right)^2\right]
 
     with b1 = 0.69 for cohesion only (phi' = 0), 0.31 for friction only (c' = 0) and 0.50 for
-    soils with both (Janbu 1973; the curve fit as given by Abramson et al. 2002).
+    soils with both (Janbu 1973; the curve fit as given by Abramson et al. 2002). Janbu's
+    chart stops at d/L = :data:`JANBU_CHART_MAX_RATIO` (0.4, from memory of the chart); beyond
+    it f0 is held at its value there instead of following the fitted parabola, which falls
+    again (common practice).
 
     Parameters
     ----------
@@ -828,6 +936,7 @@ def janbu_correction_factor(depth, length, b1):
     Stabilization Methods, 2nd ed. Wiley, New York.
     """
     ratio = np.asarray(depth, dtype=float) / np.asarray(length, dtype=float)
+    ratio = np.minimum(ratio, JANBU_CHART_MAX_RATIO)
     f0 = 1.0 + np.asarray(b1, dtype=float) * (ratio - 1.4 * ratio**2)
     return f0 if f0.ndim else float(f0)
 
@@ -870,6 +979,8 @@ def janbu_simplified(
     force balance), solved by fixed-point iteration on F_0, then multiplied by Janbu's f0
     (:func:`janbu_correction_factor`) when ``correction`` is True. b1 is chosen per surface from
     the active slice bases: 0.69 if none has friction, 0.31 if none has cohesion, else 0.50.
+    Where d/L exceeds the chart (:data:`JANBU_CHART_MAX_RATIO`), f0 is held at its value at
+    the chart's end and the message says so.
 
     Parameters
     ----------
@@ -907,6 +1018,7 @@ def janbu_simplified(
     normal, effective, capacity, m_alpha = _base_forces(s, fos_0)
     shear = capacity / fos_0[:, np.newaxis]
     fos = fos_0
+    messages = _iteration_messages(progress, fos, max_iterations)
     if correction:
         depth, length = _janbu_geometry(slices, s)
         has_c = np.any(s.active & (s.cohesion > 0), axis=1)
@@ -918,10 +1030,17 @@ def janbu_simplified(
         )
         with np.errstate(divide="ignore", invalid="ignore"):
             fos = fos_0 * janbu_correction_factor(depth, length, b1)
+            ratio = depth / length
+        for i in np.flatnonzero(ratio > JANBU_CHART_MAX_RATIO):
+            messages[i] = _join(
+                messages[i],
+                f"d/L = {ratio[i]:.3g} is beyond Janbu's correction chart (d/L <= "
+                f"{JANBU_CHART_MAX_RATIO}): f0 held at its d/L = {JANBU_CHART_MAX_RATIO} value",
+            )
     return _finish(
         "janbu_simplified" if correction else "janbu_simplified_uncorrected",
         s, fos, progress.converged, progress.iterations, progress.residual,
-        _iteration_messages(progress, fos, max_iterations),
+        messages,
         normal=normal, effective=effective, capacity=capacity, shear_fos=fos_0, m_alpha=m_alpha,
         interslice_normal=_horizontal_interslice(s, normal, shear),
         interslice_shear=np.zeros_like(s.x_boundary),
@@ -953,10 +1072,12 @@ def _phi_terms(s: _Arrays, fos, lam, f_boundary):
 
 
 def _driving_resisting(s: _Arrays) -> tuple[np.ndarray, np.ndarray]:
-    """T_i (loads along the base) and R_i (strength with the loads' normal component)."""
-    driving = s.vertical_load * s.sin_a + s.horizontal_load * s.cos_a
+    """T_i (loads along the base) and R_i (strength with the loads' normal component), the
+    water forces on the slice sides included (effective interslice forces)."""
+    horizontal = s.effective_horizontal_load
+    driving = s.vertical_load * s.sin_a + horizontal * s.cos_a
     resisting = s.cohesion_term + (
-        s.vertical_load * s.cos_a - s.horizontal_load * s.sin_a
+        s.vertical_load * s.cos_a - horizontal * s.sin_a
     ) * s.tan_phi
     return driving, resisting
 
@@ -999,7 +1120,7 @@ def _gle_moment_sums(s: _Arrays, e, f_boundary) -> tuple[np.ndarray, np.ndarray]
     moments about their base mid-points (Zhu et al. 2005, Eq. 17, in this frame)::
 
         lambda * sum_j f_j E_j (b_{j-1} + b_j) / 2
-            = sum_j E_j (y_{b,j-1} - y_{b,j}) + sum_i kh W_i (y_W,i - y_b,i) + P_w (y_w - y_b,1)
+            = sum_j E_j (y_{b,j-1} - y_{b,j}) + sum_i sum_H H (y_H - y_b,i)
 
     over the interior boundaries j (E_0 = E_n = 0). Returns (right side, sum on the left).
     """
@@ -1007,8 +1128,7 @@ def _gle_moment_sums(s: _Arrays, e, f_boundary) -> tuple[np.ndarray, np.ndarray]
     interior = np.where(s.active[:, :-1] & s.active[:, 1:], e[:, 1:-1], 0.0)
     numerator = (
         np.sum(interior * (s.y_base[:, :-1] - s.y_base[:, 1:]), axis=1)
-        + np.sum(s.kh_weight * (s.y_weight - s.y_base), axis=1)
-        + np.sum(s.crack_force * (s.crack_y - s.y_base), axis=1)
+        + np.sum(s.horizontal_load_moment - s.effective_horizontal_load * s.y_base, axis=1)
     )
     denominator = np.sum(
         f_boundary[:, 1:-1] * interior * 0.5 * (s.width[:, :-1] + s.width[:, 1:]), axis=1
@@ -1021,7 +1141,7 @@ def _thrust_line(s: _Arrays, e, x_shear):
     its base mid-point::
 
         E_{i+1} y_{t,i+1} = E_i y_{t,i} + y_b (E_{i+1} - E_i) - b (X_i + X_{i+1}) / 2
-                            + kh W (y_W - y_b) + P_w (y_w - y_b)
+                            + sum_H H (y_H - y_b)
 
     Returns the elevations and a flag per surface when the line leaves the sliding mass at an
     interior boundary where |E| >= THRUST_LINE_MIN_FORCE_RATIO * max |E|.
@@ -1030,8 +1150,7 @@ def _thrust_line(s: _Arrays, e, x_shear):
     moment_step = (
         s.y_base * delta_e
         - 0.5 * s.width * (x_shear[:, :-1] + x_shear[:, 1:])
-        + s.kh_weight * (s.y_weight - s.y_base)
-        + s.crack_force * (s.crack_y - s.y_base)
+        + s.horizontal_load_moment - s.horizontal_load * s.y_base
     )
     h = np.concatenate([np.zeros((e.shape[0], 1)), np.cumsum(moment_step, axis=1)], axis=1)
     largest = np.max(np.abs(e), axis=1, keepdims=True)
@@ -1228,9 +1347,11 @@ def _general_limit_equilibrium(
             "(lambda could not be determined)"
         )
     # Per-slice forces at the final (F, lambda); E_n is left as computed so that it shows the
-    # remaining force imbalance.
-    e = gle.interslice_normal(fos, lam)
-    x_shear = lam[:, np.newaxis] * f_boundary * e
+    # remaining force imbalance. X = lambda f E' acts on the effective interslice force; the
+    # total E = E' + U is reported, and its line of thrust checked.
+    effective_e = gle.interslice_normal(fos, lam)
+    x_shear = lam[:, np.newaxis] * f_boundary * effective_e
+    e = effective_e + s.side_water
     normal, effective, capacity, m_alpha = _base_forces(s, fos, x_shear[:, 1:] - x_shear[:, :-1])
     y_thrust, outside = _thrust_line(s, e, x_shear)
     return _finish(
@@ -1251,7 +1372,8 @@ def spencer(
 ) -> SafetyResult:
     r"""Spencer's method (Spencer 1967): force and moment equilibrium, parallel interslice forces.
 
-    The interslice forces all have the inclination theta, X = lambda E with lambda = tan(theta).
+    The effective interslice forces all have the inclination theta, X = lambda E' with
+    lambda = tan(theta) (E' = E - U, see :func:`morgenstern_price`).
     F and lambda satisfy force equilibrium of every slice and moment equilibrium of the whole
     mass; they are found as in :func:`morgenstern_price` with f(x) = 1 (the force recursion of
     Zhu et al. 2005 solved by damped Newton iteration).
@@ -1308,6 +1430,13 @@ def morgenstern_price(
     sign (a pole of the recursion). Zhu et al. alternate the two updates instead; the joint
     step converged on far more steep, kinked surfaces in our trials. Converged when the Newton
     step changes F and lambda by less than ``tolerance``.
+
+    The interslice function applies to the effective interslice force, X = lambda f E' with
+    E' = E - U and U the water force on the boundary (hydrostatic from the neighbouring base
+    pore pressures, see ``_Arrays.side_water``): water carries no shear, and with total forces
+    the assumed inclination would depend on the depth of water standing on a submerged slope
+    (which must give the F of its buoyant unit weight; Duncan, Wright and Brandon 2014, ch. 6).
+    The recursion above is then written for E', with U_i - U_{i+1} among the loads of slice i.
 
     Parameters
     ----------

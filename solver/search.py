@@ -133,6 +133,11 @@ class SearchSettings:
         Brandon 2014). They stay in the result's messages as warnings.
     batch_size : int
         Trial surfaces sliced and solved together; bounds the memory of big searches.
+    direction : {None, +1, -1}
+        Direction of movement along x of the surfaces searched. None (default) takes it from
+        the ground (from its higher end towards its lower end) and, where both ends of the
+        ground are at the same elevation (an embankment, a cutting between level ground),
+        searches both faces; +1 or -1 searches only the face whose mass moves that way.
     """
 
     method: str = "bishop_simplified"
@@ -145,6 +150,7 @@ class SearchSettings:
     max_iterations: int = MAX_ITERATIONS
     admissible_only: bool = True
     batch_size: int = SEARCH_BATCH_SIZE
+    direction: int | None = None
 
     def __post_init__(self) -> None:
         if self.method not in methods.METHOD_NAMES:
@@ -158,6 +164,12 @@ class SearchSettings:
             value = getattr(self, name)
             if not np.isfinite(value) or value < 0:
                 raise MethodError(f"search setting {name} must be a number >= 0, got {value!r}")
+        if self.direction is not None and (
+            isinstance(self.direction, bool) or self.direction not in (1, -1)
+        ):
+            raise MethodError(
+                f"search setting direction must be +1, -1 or None, got {self.direction!r}"
+            )
 
 
 @dataclass(frozen=True)
@@ -185,6 +197,10 @@ class RankedSurface:
         Largest vertical depth of the surface below the ground [m] (at slice mid-points).
     area : float
         Area of the sliding mass [m2].
+    direction : int or None
+        Direction of movement along x (+1 or -1) the surface was solved with; pass it to
+        :func:`solver.slicing.slice_surface` to slice it again the same way (needed where
+        the ends of the ground are level). None: from the ground.
     """
 
     kind: str
@@ -199,6 +215,7 @@ class RankedSurface:
     exit_x: float
     depth: float
     area: float
+    direction: int | None = None
 
     def describe(self) -> str:
         """One line locating the surface, for reports."""
@@ -427,11 +444,13 @@ class SlopeGeometry:
         return abs(self.x_toe - self.x_crest)
 
 
-def slope_geometry(section) -> SlopeGeometry:
-    """Crest, toe and facing of the slope of ``section`` (see :class:`SlopeGeometry`)."""
+def slope_geometry(section, direction: int | None = None) -> SlopeGeometry:
+    """Crest, toe and facing of the slope of ``section`` (see :class:`SlopeGeometry`): of the
+    face whose mass moves in ``direction`` (+1 towards +x, -1 towards -x), by default the
+    one the ground descends to (towards +x when its ends are level)."""
     ground = _ground_points(section)
     x, y = ground[:, 0], ground[:, 1]
-    facing = 1 if y[0] >= y[-1] else -1
+    facing = (1 if y[0] >= y[-1] else -1) if direction is None else int(direction)
     if facing < 0:
         x, y = -x[::-1], y[::-1]
     y_high, y_low = y.max(), y.min()
@@ -453,7 +472,8 @@ def slope_geometry(section) -> SlopeGeometry:
     )
 
 
-def default_grid(section, nx: int = 30, ny: int = 30, n_radii: int = 20):
+def default_grid(section, nx: int = 30, ny: int = 30, n_radii: int = 20, *,
+                 direction: int | None = None):
     """Default grid and radius placement above the slope of ``section``.
 
     Centres cover a rectangle above the face: in x from one slope width before the crest to one
@@ -462,14 +482,15 @@ def default_grid(section, nx: int = 30, ny: int = 30, n_radii: int = 20):
     the crest (shallow circles, which ``min_depth`` may filter) down to one slope height below
     the toe, or down to the top of the impenetrable base. Common practice (Duncan, Wright and
     Brandon 2014, ch. 8); the grid should be checked so that the critical centre is not on its
-    edge, which :func:`grid_and_radius` reports.
+    edge, which :func:`grid_and_radius` reports. ``direction`` picks the face as in
+    :func:`slope_geometry`.
 
     Returns
     -------
     dict
         Keyword arguments for :func:`grid_circles`.
     """
-    g = slope_geometry(section)
+    g = slope_geometry(section, direction)
     width = max(g.face_length, g.height, 1.0)
     x_mid = 0.5 * (g.x_crest + g.x_toe)
     half = 0.5 * g.face_length + width
@@ -486,20 +507,22 @@ def default_grid(section, nx: int = 30, ny: int = 30, n_radii: int = 20):
     )
 
 
-def default_entry_exit(section, n_entry: int = 20, n_exit: int = 20, n_tangents: int = 10):
+def default_entry_exit(section, n_entry: int = 20, n_exit: int = 20, n_tangents: int = 10,
+                       *, direction: int | None = None):
     """Default ranges of the entry-and-exit search for ``section``.
 
     Entry points run from one slope width behind the crest to the middle of the face; exit
     points from the middle of the face to one slope width beyond the toe (clipped to the ground
     line). Tangent elevations run from the toe level down to one slope height below it (or to the
-    top of the base). Common practice (Duncan, Wright and Brandon 2014, ch. 8).
+    top of the base). Common practice (Duncan, Wright and Brandon 2014, ch. 8). ``direction``
+    picks the face as in :func:`slope_geometry`.
 
     Returns
     -------
     dict
         Keyword arguments for :func:`entry_exit`.
     """
-    g = slope_geometry(section)
+    g = slope_geometry(section, direction)
     width = max(g.face_length, g.height, 1.0)
     x_mid = 0.5 * (g.x_crest + g.x_toe)
     behind = np.clip(g.x_crest - g.facing * width, g.x_min, g.x_max)
@@ -536,7 +559,9 @@ def grid_and_radius(
     Every centre of an ``nx * ny`` grid carries one circle per tangent elevation (or explicit
     radius); all circles are sliced and solved in batches and the lowest factor of safety
     among the admissible, converged circles that pass the size filters wins. Omitted ranges
-    and tangents come from :func:`default_grid`.
+    and tangents come from :func:`default_grid`. Where the ground does not say which way the
+    mass moves (both ends level) and ``settings.direction`` is None, both faces are searched,
+    each with its own default placement, and the result's notes say which face is critical.
 
     Parameters
     ----------
@@ -568,23 +593,29 @@ def grid_and_radius(
         2nd ed. Wiley, ch. 8.
     """
     settings = settings or SearchSettings()
-    if x_range is None or y_range is None or (tangent_elevations is None and radii is None):
-        default = default_grid(section, nx, ny, n_radii)
-        x_range = default["x_range"] if x_range is None else x_range
-        y_range = default["y_range"] if y_range is None else y_range
-        if tangent_elevations is None and radii is None:
-            tangent_elevations = default["tangent_elevations"]
-    centre_x, centre_y, radius = grid_circles(
-        x_range, y_range, nx, ny, tangent_elevations=tangent_elevations, radii=radii
-    )
-    n_dropped = nx * ny * np.atleast_1d(tangent_elevations if radii is None else radii).size
-    evaluated = _evaluate_circles(section, centre_x, centre_y, radius, settings)
-    evaluated.rejected["tangent above the centre"] += int(n_dropped - centre_x.size)
-    evaluated.n_trials += int(n_dropped - centre_x.size)
-    result = _finish(section, evaluated, settings, (f"grid and radius ({settings.method})",))
-    notes = _grid_edge_notes(result.critical, x_range, y_range, nx, ny, tangent_elevations,
-                             _base_points(section))
-    return replace(result, notes=notes)
+    parts, grids = [], {}
+    for direction in _directions(section, settings):
+        grid = dict(x_range=x_range, y_range=y_range, tangent_elevations=tangent_elevations)
+        if x_range is None or y_range is None or (tangent_elevations is None and radii is None):
+            default = default_grid(section, nx, ny, n_radii, direction=direction)
+            for key in ("x_range", "y_range"):
+                grid[key] = default[key] if grid[key] is None else grid[key]
+            if tangent_elevations is None and radii is None:
+                grid["tangent_elevations"] = default["tangent_elevations"]
+        centre_x, centre_y, radius = grid_circles(nx=nx, ny=ny, radii=radii, **grid)
+        n_dropped = nx * ny * np.atleast_1d(
+            grid["tangent_elevations"] if radii is None else radii).size
+        evaluated = _evaluate_circles(section, centre_x, centre_y, radius, settings, direction)
+        evaluated.rejected["tangent above the centre"] += int(n_dropped - centre_x.size)
+        evaluated.n_trials += int(n_dropped - centre_x.size)
+        parts.append(evaluated)
+        grids[direction] = grid
+    result = _finish(section, _concatenate(parts, sum(p.n_trials for p in parts)), settings,
+                     (f"grid and radius ({settings.method})",))
+    grid = grids[result.critical.direction]
+    notes = _grid_edge_notes(result.critical, grid["x_range"], grid["y_range"], nx, ny,
+                             grid["tangent_elevations"], _base_points(section))
+    return replace(result, notes=result.notes + notes)
 
 
 def entry_exit(
@@ -631,24 +662,31 @@ def entry_exit(
     settings = settings or SearchSettings()
     _require_int("n_entry", n_entry, 1)
     _require_int("n_exit", n_exit, 1)
-    if entry_range is None or exit_range is None or (tangent_elevations is None and radii is None):
-        default = default_entry_exit(section, n_entry, n_exit, n_tangents)
-        entry_range = default["entry_range"] if entry_range is None else entry_range
-        exit_range = default["exit_range"] if exit_range is None else exit_range
-        if tangent_elevations is None and radii is None:
-            tangent_elevations = default["tangent_elevations"]
-    levels = np.atleast_1d(np.asarray(tangent_elevations if radii is None else radii, float))
-    x1 = _spread(entry_range, n_entry, "entry_range")
-    x2 = _spread(exit_range, n_exit, "exit_range")
-    x1, x2, level = (a.ravel() for a in np.meshgrid(x1, x2, levels, indexing="ij"))
-    key = "radius" if radii is not None else "tangent_elevation"
-    circles = surface_from_entry_exit(section, x1, x2, **{key: level})
-    cx, cy, r = (np.asarray(v, float) for v in (circles.centre_x, circles.centre_y, circles.radius))
-    ok = np.isfinite(r)
-    evaluated = _evaluate_circles(section, cx[ok], cy[ok], r[ok], settings)
-    evaluated.rejected["no circle through entry and exit"] += int((~ok).sum())
-    evaluated.n_trials += int((~ok).sum())
-    return _finish(section, evaluated, settings, (f"entry and exit ({settings.method})",))
+    parts = []
+    for direction in _directions(section, settings):
+        entries, exits, tangents = entry_range, exit_range, tangent_elevations
+        if entries is None or exits is None or (tangents is None and radii is None):
+            default = default_entry_exit(section, n_entry, n_exit, n_tangents,
+                                         direction=direction)
+            entries = default["entry_range"] if entries is None else entries
+            exits = default["exit_range"] if exits is None else exits
+            if tangents is None and radii is None:
+                tangents = default["tangent_elevations"]
+        levels = np.atleast_1d(np.asarray(tangents if radii is None else radii, float))
+        x1 = _spread(entries, n_entry, "entry_range")
+        x2 = _spread(exits, n_exit, "exit_range")
+        x1, x2, level = (a.ravel() for a in np.meshgrid(x1, x2, levels, indexing="ij"))
+        key = "radius" if radii is not None else "tangent_elevation"
+        circles = surface_from_entry_exit(section, x1, x2, **{key: level})
+        cx, cy, r = (np.asarray(v, float)
+                     for v in (circles.centre_x, circles.centre_y, circles.radius))
+        ok = np.isfinite(r)
+        evaluated = _evaluate_circles(section, cx[ok], cy[ok], r[ok], settings, direction)
+        evaluated.rejected["no circle through entry and exit"] += int((~ok).sum())
+        evaluated.n_trials += int((~ok).sum())
+        parts.append(evaluated)
+    return _finish(section, _concatenate(parts, sum(p.n_trials for p in parts)), settings,
+                   (f"entry and exit ({settings.method})",))
 
 
 def refine_circle(
@@ -713,7 +751,7 @@ def refine_circle(
             if step < step_tolerance:
                 break
             trial = point + step * pattern
-            evaluated = _evaluate_circles(section, *trial.T, settings)
+            evaluated = _evaluate_circles(section, *trial.T, settings, start.direction)
             tally.add(evaluated)
             if evaluated.fos.size and evaluated.fos.min() < best:
                 i = int(np.argmin(evaluated.fos))
@@ -724,7 +762,7 @@ def refine_circle(
             else:
                 step *= 0.5
         if best < start.fos:
-            refined = _single_circle(section, point, settings)
+            refined = _single_circle(section, point, settings, start.direction)
             if refined is not None:
                 candidates.append(refined)
     return _merge(
@@ -835,7 +873,7 @@ def optimise_polyline(
         )
         if violation > 0:
             return _PENALTY * (1 + violation)
-        evaluated = _evaluate_polylines(section, pts[None], settings)
+        evaluated = _evaluate_polylines(section, pts[None], settings, start.direction)
         tally.add(evaluated)
         if evaluated.fos.size == 0:
             return _PENALTY
@@ -852,7 +890,7 @@ def optimise_polyline(
     solution = optimize.minimize(objective, p0, method=optimiser, options=options)
     candidates = list(result.surfaces)
     if solution.fun < _PENALTY:
-        candidates.append(_polyline_surface(points_of(solution.x)))
+        candidates.append(_polyline_surface(points_of(solution.x), start.direction))
     return _merge(
         section, result, candidates, settings, tally, f"non-circular optimisation ({method})"
     )
@@ -1028,6 +1066,7 @@ class _Evaluated:
     exit_x: np.ndarray
     depth: np.ndarray
     area: np.ndarray
+    direction: np.ndarray  # (n,) +1 / -1 of movement along x
     n_trials: int
     n_valid: int
     rejected: Counter
@@ -1050,30 +1089,44 @@ class _Tally:
         self.filtered.update(evaluated.filtered)
 
 
-def _evaluate_circles(section, centre_x, centre_y, radius, settings) -> _Evaluated:
+def _directions(section, settings) -> tuple[int, ...]:
+    """Directions of movement (+1, -1) to search: the settings' one, else the ground's (from
+    its higher end to its lower one), else both when its ends are level."""
+    if settings.direction is not None:
+        return (settings.direction,)
+    ground = _ground_points(section)
+    left, right = ground[0, 1], ground[-1, 1]
+    if left == right:
+        return (1, -1)
+    return (1,) if left > right else (-1,)
+
+
+def _evaluate_circles(section, centre_x, centre_y, radius, settings, direction=None):
+    direction = _directions(section, settings)[0] if direction is None else direction
     parts = []
     for start in range(0, len(centre_x), settings.batch_size):
         part = slice(start, start + settings.batch_size)
         batch = slice_circles(
-            section, centre_x[part], centre_y[part], radius[part], n_slices=settings.n_slices
+            section, centre_x[part], centre_y[part], radius[part], n_slices=settings.n_slices,
+            direction=direction,
         )
-        parts.append(
-            _solve_batch(batch, settings, centre_x[part], centre_y[part], radius[part], None)
-        )
+        parts.append(_solve_batch(batch, settings, centre_x[part], centre_y[part],
+                                  radius[part], None, direction))
     return _concatenate(parts, len(centre_x))
 
 
-def _evaluate_polylines(section, points, settings) -> _Evaluated:
+def _evaluate_polylines(section, points, settings, direction=None) -> _Evaluated:
+    direction = _directions(section, settings)[0] if direction is None else direction
     parts = []
     for start in range(0, len(points), settings.batch_size):
         part = points[start : start + settings.batch_size]
-        batch = slice_polyline(section, part, n_slices=settings.n_slices)
+        batch = slice_polyline(section, part, n_slices=settings.n_slices, direction=direction)
         nan = np.full(len(part), np.nan)
-        parts.append(_solve_batch(batch, settings, nan, nan, nan, part))
+        parts.append(_solve_batch(batch, settings, nan, nan, nan, part, direction))
     return _concatenate(parts, len(points))
 
 
-def _solve_batch(batch, settings, centre_x, centre_y, radius, points) -> _Evaluated:
+def _solve_batch(batch, settings, centre_x, centre_y, radius, points, direction) -> _Evaluated:
     rejected = batch.rejected()
     index = np.asarray(batch.index, dtype=int)
     n_valid = int(index.size)
@@ -1084,12 +1137,14 @@ def _solve_batch(batch, settings, centre_x, centre_y, radius, points) -> _Evalua
             centre_x=empty, centre_y=empty, radius=empty,
             points=None if points is None else np.asarray(points)[:0],
             fos=empty, entry_x=empty, exit_x=empty, depth=empty, area=empty,
+            direction=np.empty(0, dtype=int),
             n_trials=len(centre_x), n_valid=0, rejected=rejected, filtered=filtered,
         )
     slices = batch.slices
     solved = factor_of_safety(slices, method=settings.method, **_method_options(settings))
-    fos = np.asarray(solved.fos, dtype=float)
-    has_fos = np.isfinite(fos) & (fos > 0)
+    fos = np.asarray(solved.fos, dtype=float)  # NaN where not converged
+    last = np.asarray(solved.last_iterate, dtype=float)
+    has_fos = np.isfinite(last) & (last > 0)
     converged = np.asarray(solved.converged, dtype=bool) & has_fos
     low_m_alpha = np.array(["m_alpha" in message for message in solved.message], dtype=bool)
     doubtful = converged & ~np.asarray(solved.admissible, dtype=bool) & low_m_alpha
@@ -1118,6 +1173,7 @@ def _solve_batch(batch, settings, centre_x, centre_y, radius, points) -> _Evalua
         exit_x=exit_x[keep],
         depth=depth[keep],
         area=area[keep],
+        direction=np.full(int(keep.sum()), direction, dtype=int),
         n_trials=len(centre_x),
         n_valid=n_valid,
         rejected=rejected,
@@ -1172,6 +1228,7 @@ def _concatenate(parts, n_trials) -> _Evaluated:
         exit_x=cat("exit_x"),
         depth=cat("depth"),
         area=cat("area"),
+        direction=cat("direction").astype(int),
         n_trials=n_trials,
         n_valid=tally.n_valid,
         rejected=tally.rejected,
@@ -1208,6 +1265,7 @@ def _candidates_of(evaluated: _Evaluated, method: str) -> list[RankedSurface]:
                 exit_x=float(evaluated.exit_x[i]),
                 depth=float(evaluated.depth[i]),
                 area=float(evaluated.area[i]),
+                direction=int(evaluated.direction[i]),
             )
         )
     return out
@@ -1249,6 +1307,7 @@ def _finish(section, evaluated: _Evaluated, settings, stages) -> SearchResult:
         rejected=+evaluated.rejected,
         filtered=+evaluated.filtered,
         stages=tuple(stages),
+        notes=_face_notes(section, settings, surfaces, ()),
     )
 
 
@@ -1280,7 +1339,7 @@ def _merge(section, result, candidates, settings, tally: _Tally, stage) -> Searc
         rejected=+(result.rejected + tally.rejected),
         filtered=+(result.filtered + tally.filtered),
         stages=result.stages + (stage,),
-        notes=result.notes,
+        notes=_face_notes(section, settings, kept, result.notes),
     )
 
 
@@ -1293,15 +1352,17 @@ def _evaluate_surfaces(section, surfaces, settings) -> tuple[list[RankedSurface]
     out: list[RankedSurface] = []
     dropped: Counter = Counter()
     evaluations = []
-    if circles:
-        values = np.array([(s.centre_x, s.centre_y, s.radius) for s in circles])
-        evaluations.append(_evaluate_circles(section, *values.T, settings))
-    if polylines:
+    for direction in sorted({s.direction for s in surfaces}, key=lambda d: d or 0):
+        group = [s for s in circles if s.direction == direction]
+        if group:
+            values = np.array([(s.centre_x, s.centre_y, s.radius) for s in group])
+            evaluations.append(_evaluate_circles(section, *values.T, settings, direction))
         by_size: dict[int, list] = {}
         for surface in polylines:
-            by_size.setdefault(len(surface.points), []).append(surface.points)
+            if surface.direction == direction:
+                by_size.setdefault(len(surface.points), []).append(surface.points)
         for stack in by_size.values():
-            evaluations.append(_evaluate_polylines(section, np.stack(stack), settings))
+            evaluations.append(_evaluate_polylines(section, np.stack(stack), settings, direction))
     for evaluated in evaluations:
         dropped.update(evaluated.rejected)
         dropped.update(evaluated.filtered)
@@ -1310,29 +1371,53 @@ def _evaluate_surfaces(section, surfaces, settings) -> tuple[list[RankedSurface]
     return out, +dropped
 
 
-def _single_circle(section, point, settings) -> RankedSurface | None:
-    evaluated = _evaluate_circles(section, *(np.array([v]) for v in point), settings)
+def _single_circle(section, point, settings, direction=None) -> RankedSurface | None:
+    evaluated = _evaluate_circles(section, *(np.array([v]) for v in point), settings, direction)
     found = _candidates_of(evaluated, settings.method)
     return found[0] if found else None
 
 
-def _polyline_surface(points) -> RankedSurface:
+def _polyline_surface(points, direction=None) -> RankedSurface:
     nan = float("nan")
     return RankedSurface("polyline", nan, "", False, nan, nan, nan, np.asarray(points, float),
-                         float(points[0, 0]), float(points[-1, 0]), nan, nan)
+                         float(points[0, 0]), float(points[-1, 0]), nan, nan, direction)
 
 
 def _select(evaluated: _Evaluated, rows) -> _Evaluated:
     values = {
         name: getattr(evaluated, name)[rows]
-        for name in ("centre_x", "centre_y", "radius", "fos", "entry_x", "exit_x", "depth", "area")
+        for name in ("centre_x", "centre_y", "radius", "fos", "entry_x", "exit_x", "depth", "area",
+                     "direction")
     }
     points = None if evaluated.points is None else evaluated.points[rows]
     return _Evaluated(points=points, n_trials=evaluated.n_trials, n_valid=evaluated.n_valid,
                       rejected=evaluated.rejected, filtered=evaluated.filtered, **values)
 
 
+#: Start of the note that says which face of a two-faced section is critical.
+_FACES_NOTE = "the ends of the ground are level, so both faces were searched"
+
+
+def _face_notes(section, settings, surfaces, notes) -> tuple:
+    """``notes`` with the note on the critical face (replacing an earlier one) when the
+    search covered both faces."""
+    notes = tuple(n for n in notes if not n.startswith(_FACES_NOTE))
+    if len(_directions(section, settings)) < 2 or not surfaces:
+        return notes
+    critical = surfaces[0]
+    other = [s.fos for s in surfaces if s.direction != critical.direction]
+    towards = {1: "+x", -1: "-x"}
+    note = (f"{_FACES_NOTE}: the critical surface moves towards {towards[critical.direction]}"
+            f" (F = {critical.fos:.3f}); ")
+    note += (f"the best kept surface moving towards {towards[-critical.direction]} has "
+             f"F = {min(other):.3f}" if other else
+             f"no surface moving towards {towards[-critical.direction]} was kept")
+    return notes + (note,)
+
+
 def _same_surface(a: RankedSurface, b: RankedSurface) -> bool:
+    if None not in (a.direction, b.direction) and a.direction != b.direction:
+        return False
     if a.kind != b.kind:
         return False
     if a.kind == "circle":

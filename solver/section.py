@@ -188,12 +188,19 @@ class WaterLine:
         parallel to an inclined phreatic surface (Skempton and DeLory 1957).
     allow_suction : bool
         When false (default), negative pore pressure above the line is set to 0.
+    confined : bool
+        When true, the line is the piezometric level of a confined (artesian) aquifer: where
+        it rises above the ground, the pore pressure at a slice base still uses its full head
+        (u = gamma_w * (h_line - y_base)), and no water is ponded on the ground by it. When
+        false (default), a head above the ground is taken at ground level unless the section
+        allows ponding.
     """
 
     name: str
     points: np.ndarray
     inclination_correction: bool = False
     allow_suction: bool = False
+    confined: bool = False
 
     def __post_init__(self) -> None:
         if not isinstance(self.name, str) or not self.name.strip() or self.name == DRY:
@@ -202,7 +209,7 @@ class WaterLine:
         object.__setattr__(
             self, "points", _polyline(self.points, f"water_line {self.name!r}: points")
         )
-        for key in ("inclination_correction", "allow_suction"):
+        for key in ("inclination_correction", "allow_suction", "confined"):
             if not isinstance(getattr(self, key), bool):
                 raise SectionError(
                     f"water_line {self.name!r}: {key} = {getattr(self, key)!r} must be true "
@@ -386,7 +393,8 @@ class Section:
         for line in self.water_lines:
             if line.name in points:
                 new = WaterLine(
-                    line.name, points[line.name], line.inclination_correction, line.allow_suction
+                    line.name, points[line.name], line.inclination_correction,
+                    line.allow_suction, line.confined,
                 )
                 _check_span(new.points, self.ground, f"water_line {line.name!r}")
                 line = new
@@ -622,7 +630,7 @@ _ARRAYS = {
         "undrained_strength", "strength_gradient", "strength_datum", "water", "ru",
     },
     "stratum": {"material", "bottom", "polygon"},
-    "water_line": {"name", "points", "inclination_correction", "allow_suction"},
+    "water_line": {"name", "points", "inclination_correction", "allow_suction", "confined"},
     "surcharge": {"x_from", "x_to", "pressure"},
 }
 _DRAINED_ONLY = {"cohesion", "friction_angle"}
@@ -668,6 +676,7 @@ def section_from_dict(data: Mapping[str, Any]) -> Section:
             points=_required(item, "points", f"water_line {item.get('name')!r}"),
             inclination_correction=item.get("inclination_correction", False),
             allow_suction=item.get("allow_suction", False),
+            confined=item.get("confined", False),
         )
         for item in arrays["water_line"]
     )
@@ -734,6 +743,7 @@ def section_to_dict(section: Section) -> dict:
             "points": w.points.tolist(),
             "inclination_correction": w.inclination_correction,
             "allow_suction": w.allow_suction,
+            "confined": w.confined,
         }
         for w in section.water_lines
     ]

@@ -36,11 +36,12 @@ class Slices:
     y_top : ndarray
         Elevation of the ground surface at the slice mid-point [m].
     weight : ndarray
-        Total weight of the slice [kN/m], soil of every stratum (moist above its water line,
-        saturated below) plus water ponded on the ground above it.
+        Total vertical gravity load of the slice [kN/m], acting at the slice mid-point: soil of
+        every stratum (moist above its water line, saturated below) plus the vertical part of
+        the pressure of water ponded on the ground above it (gamma_w times the water area).
     y_weight : ndarray
-        Elevation of the centroid of the slice weight [m]; the line of action of the
-        pseudo-static force kh * W.
+        Elevation of the centroid of the soil weight (``seismic_weight``) [m]; the line of
+        action of the pseudo-static force kh * W.
     cohesion : ndarray
         Cohesion at the base [kPa]: c' of a drained material, Su of an undrained one.
     tan_phi : ndarray
@@ -52,13 +53,29 @@ class Slices:
         Resultant vertical external load on the top of the slice [kN/m] (strip surcharges and
         ponded water are included here or in ``weight``, never in both: ponded water is in
         ``weight``, strip surcharges here), acting at the slice mid-point.
+    seismic_weight : ndarray
+        Weight of the soil alone [kN/m] (``weight`` without ponded water), on which the
+        pseudo-static force kh * W acts: free water above the ground moves with no inertial
+        thrust on the slope in this model. Defaults to ``weight`` (hand-built tables without
+        ponded water).
+    top_water_horizontal : ndarray
+        Horizontal part of the pressure of ponded water on the slice top [kN/m], positive in
+        the direction of movement: gamma_w * (mean water depth) * (rise of the ground across
+        the slice in the direction of movement). Negative on a face that descends in the
+        direction of movement, where the water pushes the slope back. Defaults to 0.
+    y_top_water : ndarray
+        Elevation [m] at which the line of action of the water force on the slice top (normal
+        to the ground, through the centroid of the water pressure along it) crosses the
+        vertical through the slice mid-point: the vertical part (in ``weight``, at the
+        mid-point) and the horizontal part at this elevation are together statically
+        equivalent to the water pressure on the slice top. Defaults to ``y_top``.
     base_material : ndarray of int
         Index of the material at the slice base into ``Section.materials``; -1 when inactive.
     active : ndarray of bool
         False for padding slices of zero width.
     kh : float
-        Pseudo-static horizontal seismic coefficient [-], force kh * W in the direction of
-        movement.
+        Pseudo-static horizontal seismic coefficient [-], force kh * ``seismic_weight`` in the
+        direction of movement, at ``y_weight``.
     crack_water_force : ndarray (n_surfaces,)
         Horizontal thrust of water in the tension crack [kN/m], 0.5 * gamma_w * z_w**2, pushing
         the mass in the direction of movement; 0 when the crack is dry or absent.
@@ -90,6 +107,9 @@ class Slices:
     base_material: np.ndarray
     active: np.ndarray
     kh: float = 0.0
+    seismic_weight: np.ndarray = field(default=None)  # type: ignore[assignment]
+    top_water_horizontal: np.ndarray = field(default=None)  # type: ignore[assignment]
+    y_top_water: np.ndarray = field(default=None)  # type: ignore[assignment]
     crack_water_force: np.ndarray = field(default=None)  # type: ignore[assignment]
     crack_water_y: np.ndarray = field(default=None)  # type: ignore[assignment]
     centre_x: np.ndarray = field(default=None)  # type: ignore[assignment]
@@ -115,6 +135,14 @@ class Slices:
         ):
             if getattr(self, name) is None:
                 object.__setattr__(self, name, default.copy())
+        # Per-slice fields of ponded water default to "no ponded water".
+        for name, default in (
+            ("seismic_weight", self.weight),
+            ("top_water_horizontal", np.zeros(np.shape(self.x_left))),
+            ("y_top_water", self.y_top),
+        ):
+            if getattr(self, name) is None:
+                object.__setattr__(self, name, np.array(default, dtype=float))
 
     @property
     def n_surfaces(self) -> int:

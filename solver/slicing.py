@@ -16,9 +16,17 @@ count per batch with zero-width slices whose ``active`` flag is False.
 Per slice (at the mid-point, on the chord between the surface points at the slice boundaries):
 
 * weight W = sum over strata of gamma * area, moist unit weight above the water line of the
-  stratum's material and saturated below it (ru and dry materials: moist); plus water ponded on
-  the ground when ``Section.pond`` is true and the water line of the material at the ground
-  surface lies above it, gamma_w * depth * width;
+  stratum's material and saturated below it (ru and dry materials: moist), at the centroid
+  ``y_weight`` (the soil weight is also ``seismic_weight``, the weight kh acts on);
+* ponded water, when ``Section.pond`` is true and the (unconfined) water line of the material at
+  the ground surface lies above it: its pressure acts normal to the ground on the slice top.
+  Its vertical part, gamma_w * (mean depth) * width, is added to W; its horizontal part,
+  gamma_w * (mean depth) * (rise of the ground across the slice in the direction of movement),
+  is ``top_water_horizontal``, at the elevation ``y_top_water`` that makes the two parts
+  statically equivalent to the resultant through the centroid of the pressure on the ground
+  segment. With the pore pressure of the full head at the base this makes a submerged slope
+  give the factor of safety of its buoyant unit weight (Duncan, Wright and Brandon 2014,
+  ch. 6); kh does not act on the water;
 * strength at the base: c', tan(phi') of a drained material; Su(y_base) and tan(phi) = 0 of an
   undrained one;
 * pore pressure at the base:
@@ -26,7 +34,8 @@ Per slice (at the mid-point, on the chord between the surface points at the slic
   - water line: u = gamma_w (h_line - y_base), times cos^2(theta) of the line's slope when the
     line has ``inclination_correction`` (Skempton and DeLory 1957), floored at 0 unless the line
     has ``allow_suction``. A water line above the ground is taken at ground level unless the
-    section allows ponding (the excess head then acts as ponded water instead);
+    section allows ponding (the excess head then also acts as ponded water on the ground) or
+    the line is ``confined`` (artesian: the full head acts at the base, nothing is ponded);
   - ru: u = ru * sigma_v, sigma_v = soil weight of the column / width (Bishop and Morgenstern
     1960);
   - undrained (total stress) and dry materials: u = 0;
@@ -44,6 +53,8 @@ References
 ----------
 Bishop, A.W. and Morgenstern, N. (1960). Stability coefficients for earth slopes. Geotechnique,
     10(4), 129-150.
+Duncan, J.M., Wright, S.G. and Brandon, T.L. (2014). Soil Strength and Slope Stability, 2nd ed.
+    Wiley, ch. 6 (external water pressures; submerged slopes and buoyant unit weights).
 Fredlund, D.G. and Krahn, J. (1977). Comparison of slope stability methods of analysis.
     Canadian Geotechnical Journal, 14(3), 429-439.
 Skempton, A.W. and DeLory, F.A. (1957). Stability of natural slopes in London Clay. Proc. 4th
@@ -282,6 +293,7 @@ class _Frame:
     lines: tuple
     line_correction: np.ndarray
     line_suction: np.ndarray
+    line_confined: np.ndarray
     gamma: np.ndarray
     gamma_saturated: np.ndarray
     cohesion: np.ndarray
@@ -377,6 +389,7 @@ class _Frame:
             line_correction=np.array([w.inclination_correction for w in section.water_lines]
                                      + [False]),
             line_suction=np.array([w.allow_suction for w in section.water_lines] + [False]),
+            line_confined=np.array([w.confined for w in section.water_lines] + [False]),
             gamma=values(lambda mat: mat.unit_weight),
             gamma_saturated=values(lambda mat: mat.unit_weight_saturated),
             cohesion=values(lambda mat: mat.cohesion),
@@ -743,15 +756,17 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices):
     base_material = np.where((base_material < 0) & (y_base >= y_top), top_material, base_material)
     soil_stress = weight.copy()  # [kPa] vertical total stress of the soil column
     weight *= b
-    moment *= b
-    if frame.pond:
-        ponded = np.maximum(level(frame.water_index[np.maximum(top_material, 0)]) - y_top, 0.0)
-        ponded = np.where(top_material >= 0, ponded, 0.0)
-        w_pond = GAMMA_W * ponded * b
-        weight += w_pond
-        moment += w_pond * (y_top + 0.5 * ponded)
     with np.errstate(invalid="ignore", divide="ignore"):
-        y_weight = np.where(weight > 0, moment / weight, y_base)
+        y_weight = np.where(weight > 0, moment / soil_stress, y_base)
+    seismic_weight = weight.copy()
+    top_water_horizontal = np.zeros(xm.shape)
+    y_top_water = y_top.copy()
+    if frame.pond:
+        line = frame.water_index[np.maximum(top_material, 0)]
+        ponds = (top_material >= 0) & (line >= 0) & ~frame.line_confined[line]
+        if ponds.any():
+            weight, top_water_horizontal, y_top_water = _ponded_water(
+                frame, line, ponds, x_left, x_right, y_top, weight)
 
     material = np.maximum(base_material, 0)
     cohesion = frame.cohesion[material]
@@ -788,6 +803,9 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices):
         y_top=zero(y_top),
         weight=zero(weight),
         y_weight=zero(y_weight),
+        seismic_weight=zero(seismic_weight),
+        top_water_horizontal=zero(top_water_horizontal),
+        y_top_water=zero(y_top_water),
         cohesion=zero(cohesion),
         tan_phi=zero(tan_phi),
         pore_pressure=zero(pore),
@@ -796,6 +814,40 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices):
         active=active,
     )
     return table, area, unbased
+
+
+def _ponded_water(frame: _Frame, line, ponds, x_left, x_right, y_top, weight):
+    """Weight with the vertical part of the ponded water added, and the horizontal part with
+    its line of action, for the slices ``ponds`` whose (unconfined) line ``line`` may stand
+    above the ground (module docstring).
+
+    Water-line vertices and their crossings of the ground are slice boundaries, so the depth
+    d varies linearly across a slice and never changes sign inside it. The pressure
+    gamma_w * d acts normal to the ground segment; its resultant (gamma_w * mean d * segment
+    length) passes through the centroid of the pressure along the segment, at the fraction
+    t = (d_l + 2 d_r) / (3 (d_l + d_r)) of it from the left end.
+    """
+    b = x_right - x_left
+    g_left = _interp_rows(x_left, frame.ground)
+    g_right = _interp_rows(x_right, frame.ground)
+    rise = g_right - g_left
+
+    def depth(x, g):
+        levels = [_interp_rows(x, p) for p in frame.lines]
+        return np.where(ponds, np.maximum(_level(levels, line, x.shape) - g, 0.0), 0.0)
+
+    d_left, d_right = depth(x_left, g_left), depth(x_right, g_right)
+    mean = 0.5 * (d_left + d_right)
+    weight = weight + GAMMA_W * mean * b
+    horizontal = GAMMA_W * mean * rise
+    with np.errstate(invalid="ignore", divide="ignore"):
+        t = np.where(mean > 0, (d_left + 2.0 * d_right) / (6.0 * mean), 0.5)
+        # The resultant, normal to the ground, crosses the slice's mid-line (where the
+        # vertical part acts, with the soil weight) at this elevation.
+        y_cross = g_left + t * rise - (0.5 - t) * b * b / rise
+    sloped = np.abs(rise) > 1e-9 * np.maximum(b, 1e-300)
+    y_water = np.where((mean > 0) & sloped, y_cross, y_top)
+    return weight, horizontal, y_water
 
 
 def _level(levels, line_index, shape):
@@ -813,9 +865,11 @@ def _pore_pressure(frame: _Frame, xm, y_base, y_top, material, levels, soil_stre
     index = frame.water_index
     line = index[0] if index.min() == index.max() else index[material]
     head = _level(levels, line, xm.shape)
-    if not frame.pond:
-        # Without ponding, a line above the ground carries no excess head.
-        head = np.minimum(head, y_top)
+    if not frame.pond or frame.line_confined.any():
+        # A line above the ground carries no excess head unless water may pond there or the
+        # line is the head of a confined aquifer.
+        keeps_head = frame.line_confined[line] | frame.pond
+        head = np.where(keeps_head, head, np.minimum(head, y_top))
     with np.errstate(invalid="ignore"):
         u = GAMMA_W * (head - y_base)
     if frame.line_correction.any():

@@ -173,7 +173,8 @@ def analyse(section, method: str | None = None, *, non_circular: bool = False, s
         non_circular_method=governing,
     )
     critical = result.critical
-    slices = slice_surface(section, surface_of(critical), settings.n_slices)
+    slices = slice_surface(section, surface_of(critical), settings.n_slices,
+                           direction=critical.direction)
     by_method = [
         MethodResult(
             method=name,
@@ -201,7 +202,8 @@ def analyse(section, method: str | None = None, *, non_circular: bool = False, s
 def plot_analysis(result: AnalysisResult, path: Path) -> Path:
     """Draw the section, its critical surface and slices to the PNG ``path``."""
     surface = surface_of(result.critical)
-    slices = slice_surface(result.section, surface, result.search.settings.n_slices)
+    slices = slice_surface(result.section, surface, result.search.settings.n_slices,
+                           direction=result.critical.direction)
     return plot_section(result.section, path, surface=surface, fos=result.fos,
                         method=result.method, slices=slices)
 

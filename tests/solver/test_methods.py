@@ -78,6 +78,37 @@ def test_janbu_correction_factor_formula(ratio, b1):
     assert janbu_correction_factor(ratio * 40.0, 40.0, b1) == pytest.approx(expected, rel=1e-12)
 
 
+def test_janbu_correction_factor_is_held_beyond_the_chart():
+    # Janbu's (1973) chart ends at d/L = 0.4 (from memory of the chart); beyond it f0 keeps
+    # its value there (common practice) instead of following the parabola down again.
+    # Hand values: 1 + b1 (0.4 - 1.4 * 0.16) = 1 + 0.176 b1.
+    for b1 in JANBU_B1.values():
+        at_end = janbu_correction_factor(0.4, 1.0, b1)
+        assert at_end == pytest.approx(1.0 + 0.176 * b1, rel=1e-12)
+        assert janbu_correction_factor(0.7, 1.0, b1) == at_end
+    np.testing.assert_allclose(
+        janbu_correction_factor(np.array([0.2, 0.5]), 1.0, 0.5), [1.072, 1.088], rtol=1e-12)
+
+
+def test_janbu_simplified_says_when_f0_is_held():
+    # A deep circular arc under a ground falling towards +x: d/L of its sagitta is beyond
+    # the chart (Janbu 1973). Invented numbers.
+    x_mid = np.linspace(-9.5, 9.5, 20)
+    y_base = 10.0 - np.sqrt(100.0 - x_mid**2)
+    y_top = 12.0 - 0.2 * (x_mid + 10.0)
+    slices = make_slices(
+        x_left=x_mid - 0.5, x_right=x_mid + 0.5, alpha=np.arcsin(-x_mid / 10.0), y_base=y_base,
+        y_top=y_top, weight=20.0 * (y_top - y_base), cohesion=20.0, tan_phi=0.0,
+        centre_x=0.0, centre_y=10.0, radius=10.0, moment_x=0.0, moment_y=10.0,
+    )
+    corrected = janbu_simplified(slices, **TIGHT)
+    plain = janbu_simplified(slices, correction=False, **TIGHT)
+    assert corrected.converged[0], corrected.message
+    assert "beyond Janbu's correction chart" in corrected.message[0]
+    assert corrected.fos[0] == pytest.approx(
+        plain.fos[0] * (1.0 + 0.176 * JANBU_B1["cohesion_only"]), rel=1e-12)
+
+
 def test_janbu_correction_factor_values_and_arrays():
     # Janbu (1973): b1 = 0.69 (c only), 0.31 (phi only), 0.50 (c and phi); worked by hand for
     # d/L = 0.1: f0 = 1 + b1 * 0.086.
@@ -167,7 +198,7 @@ def test_rigorous_methods_satisfy_force_and_moment_equilibrium(method, options, 
 def test_interslice_forces_balance_every_slice(method):
     # Each slice: -(E_{i+1} - E_i) + kh W + P_w + N sin a - S cos a = 0 and
     # (X_{i+1} - X_i) - W - Q + N cos a + S sin a = 0, with E_0 = E_n = 0, X_0 = X_n = 0 and
-    # X = lambda f E (Morgenstern and Price 1965).
+    # X = lambda f E' (Morgenstern and Price 1965), E' = E - U the effective interslice force.
     slices = _loaded_circles()
     result = factor_of_safety(slices, method, **TIGHT)
     e, x = result.interslice_normal, result.interslice_shear
@@ -186,7 +217,9 @@ def test_interslice_forces_balance_every_slice(method):
     _assert_below(np.abs(vertical), 1e-6 * weight)
     _assert_below(np.abs(e[:, [0, -1]]), 1e-6 * weight)
     if method == "spencer":
-        np.testing.assert_allclose(x, result.lambda_[:, None] * e, rtol=1e-12, atol=1e-12)
+        effective = e - result.interslice_water
+        np.testing.assert_allclose(x, result.lambda_[:, None] * effective, rtol=1e-12,
+                                   atol=1e-12)
 
 
 def test_line_of_thrust_lies_inside_the_mass_on_plain_circles():
@@ -239,9 +272,10 @@ def test_bishop_equals_the_textbook_formula_on_circles():
 
 
 def test_ordinary_equals_the_textbook_formula_on_circles():
-    # Fellenius (1936): F = sum[c l + (W cos alpha - u l) tan phi] / sum(W sin alpha).
+    # Fellenius (1936): F = sum[c l + (W cos alpha - u l) tan phi] / sum(W sin alpha), the
+    # conventional form (no water forces on the slice sides).
     slices = _circles(ru=0.3)
-    fos = ordinary(slices).fos
+    fos = ordinary(slices, side_water=False).fos
     l, w, a = slices.base_length, slices.weight, slices.alpha
     expected = (
         slices.cohesion * l + (w * np.cos(a) - slices.pore_pressure * l) * slices.tan_phi
@@ -264,13 +298,13 @@ def test_bishop_close_to_spencer_on_dry_circles_and_ordinary_lower():
 
 
 def test_ordinary_falls_further_behind_as_pore_pressure_rises():
-    # Whitman and Bailey (1967); Fredlund and Krahn (1977): the ordinary method's error grows
-    # with pore pressure.
+    # Whitman and Bailey (1967); Fredlund and Krahn (1977): the error of the conventional
+    # ordinary method (no water forces on the slice sides) grows with pore pressure.
     gaps = []
     for ru in (0.0, 0.2, 0.4):
         slices = _circles(ru=ru)
         bishop = bishop_simplified(slices, **TIGHT).fos
-        gaps.append((bishop - ordinary(slices).fos) / bishop)
+        gaps.append((bishop - ordinary(slices, side_water=False).fos) / bishop)
     gaps = np.array(gaps)
     assert np.all(gaps > 0)
     assert np.all(np.diff(gaps, axis=0) > 0)
@@ -411,6 +445,40 @@ def test_negative_effective_normal_force_is_flagged():
     result = ordinary(slices)
     assert not result.admissible.any()
     assert all("negative effective normal force" in m for m in result.message)
+
+
+def test_non_converged_fos_is_nan_and_the_last_iterate_is_kept():
+    # A non-converged iterate is not a factor of safety (result-object convention of the
+    # solver): fos is NaN, last_iterate keeps where the iteration stopped.
+    slices = _circles()
+    for method in ("bishop_simplified", "janbu_simplified", "spencer", "morgenstern_price"):
+        stopped = factor_of_safety(slices, method, tolerance=1e-14, max_iterations=1)
+        done = factor_of_safety(slices, method, **TIGHT)
+        assert np.all(np.isnan(stopped.fos)), method
+        assert np.all(np.isfinite(stopped.last_iterate)), method
+        np.testing.assert_array_equal(done.last_iterate, done.fos)
+        assert np.isnan(stopped.surface(0).fos) and stopped.surface(0).last_iterate > 0
+
+
+def test_ordinary_resolves_the_crack_water_thrust_normal_to_the_base():
+    # Every load of a slice resolved normal to its base, as kh W is (Fellenius 1936, applied
+    # to the crack-water force P_w on the first slice):
+    # N = (W + Q) cos a - (kh W + P_w) sin a, N' = N - u l (conventional form).
+    slices = _loaded_circles()
+    result = ordinary(slices, side_water=False)
+    a = slices.alpha
+    crack = np.zeros_like(slices.weight)
+    crack[:, 0] = slices.crack_water_force
+    expected = ((slices.weight + slices.surcharge) * np.cos(a)
+                - (slices.kh * slices.weight + crack) * np.sin(a)
+                - slices.pore_pressure * slices.base_length)
+    np.testing.assert_allclose(result.normal_force, expected, rtol=1e-12, atol=1e-9)
+    assert np.all(crack[:, 0] > 0)
+
+
+def test_ordinary_side_water_must_be_a_flag():
+    with pytest.raises(MethodError, match="side_water must be True or False, got 'no'"):
+        ordinary(_circles(), side_water="no")
 
 
 def test_non_convergence_is_flagged_not_hidden():

@@ -10,7 +10,7 @@ from solver.slicing import slice_circles, slice_surface
 from solver.surfaces import PolylineSurface
 
 BETA, DEPTH, GAMMA, COHESION, PHI = 25.0, 3.0, 19.0, 4.0, 30.0
-LENGTH = 400.0  # [m] horizontal length of the long uniform slope (invented)
+LENGTH = 800.0  # [m] horizontal length of the long uniform slope (invented)
 
 
 def _long_slope(water_height):
@@ -38,8 +38,9 @@ def _long_slope(water_height):
 def test_long_planar_slide_matches_the_infinite_slope(water_height):
     # Issue requirement: a long slip surface parallel to a uniform slope gives, for every
     # method, F within 2% of the closed form (Skempton and DeLory 1957). Here the surface is
-    # over 100 times as long as it is deep, with ends 6 m long, which are what the 2%
-    # allows for.
+    # over 250 times as long as it is deep, with ends 6 m long, which are what the 2%
+    # allows for (at 400 m long Spencer's method was 1.9-2.1% high with seepage: the ends
+    # weigh more than their share of the length).
     section, slope, top = _long_slope(water_height)
     x0, x1, end = 10.0, LENGTH - 10.0, 6.0
     points = [
@@ -55,8 +56,11 @@ def test_long_planar_slide_matches_the_infinite_slope(water_height):
         assert result.converged[0], (method, result.message)
         assert result.fos[0] == pytest.approx(expected, rel=0.02), method
         if method == "spencer":
-            # Spencer's interslice forces on an infinite slope are parallel to it.
-            assert result.lambda_[0] == pytest.approx(np.tan(np.radians(BETA)), rel=0.02)
+            # Spencer's (total) interslice forces on an infinite slope are parallel to it; in
+            # the middle of the slide, away from the ends.
+            mid = result.interslice_normal.shape[1] // 2
+            inclination = result.interslice_shear[0, mid] / result.interslice_normal[0, mid]
+            assert inclination == pytest.approx(np.tan(np.radians(BETA)), rel=0.02)
 
 
 def _simple_slope(ru):
@@ -85,10 +89,11 @@ def test_bishop_within_one_percent_of_spencer_on_sliced_circles():
 
 
 def test_ordinary_gap_grows_with_ru_on_sliced_circles():
-    # Whitman and Bailey (1967); Fredlund and Krahn (1977).
+    # Whitman and Bailey (1967); Fredlund and Krahn (1977): of the conventional ordinary
+    # method, without water forces on the slice sides.
     gaps = []
     for ru in (0.0, 0.2, 0.4):
         slices = slice_circles(_simple_slope(ru), *CENTRES.T, 40).slices
         bishop = bishop_simplified(slices, tolerance=1e-9).fos
-        gaps.append((bishop - ordinary(slices).fos) / bishop)
+        gaps.append((bishop - ordinary(slices, side_water=False).fos) / bishop)
     assert np.all(np.diff(np.array(gaps), axis=0) > 0)

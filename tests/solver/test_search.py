@@ -441,3 +441,73 @@ def test_a_negative_normal_force_at_the_crest_does_not_remove_the_critical_circl
     assert "negative effective normal force" in known.message[0]
     result = search_critical_surface(section, SearchSettings(method="bishop_simplified"))
     assert result.critical.fos <= known.fos[0] * (1 + 1e-3)
+
+
+# ------------------------------------------------------------------------------------------
+# Sections whose ground does not say which way the mass moves
+
+
+def _embankment():
+    """A symmetric embankment (invented): 6 m high, 10 m crest, side slopes 10:6, on level
+    ground; the two ends of the ground are at the same elevation."""
+    return section_from_dict({
+        "section": {"id": "EMBANKMENT"},
+        "ground": {"points": [[-40, 0], [-15, 0], [-5, 6], [5, 6], [15, 0], [40, 0]]},
+        "material": [{"name": "fill", "unit_weight": 19.0, "cohesion": 4.0,
+                      "friction_angle": 30.0, "water": "none"}],
+        "stratum": [{"material": "fill"}],
+    })
+
+
+def test_search_of_a_symmetric_embankment_finds_the_same_fos_on_both_faces():
+    # By symmetry about x = 0 the best circle of each face has the same F (the grids are
+    # mirror images up to round-off).
+    result = grid_and_radius(_embankment(), SearchSettings(), nx=12, ny=12, n_radii=8)
+    best = {d: min(s.fos for s in result.surfaces if s.direction == d) for d in (1, -1)}
+    assert best[1] == pytest.approx(best[-1], rel=1e-9)
+    assert result.fos == pytest.approx(best[1], rel=1e-9)
+    towards = "+x" if result.critical.direction == 1 else "-x"
+    assert any(f"both faces were searched: the critical surface moves towards {towards}" in n
+               for n in result.notes)
+    # The critical circle lies over the face it moves away from the crest of.
+    assert result.critical.direction * result.critical.exit_x > 0
+
+
+def test_one_face_of_an_embankment_can_be_chosen():
+    result = grid_and_radius(_embankment(), SearchSettings(direction=-1), nx=8, ny=8,
+                             n_radii=6)
+    assert {s.direction for s in result.surfaces} == {-1}
+    assert not any("both faces" in n for n in result.notes)
+    with pytest.raises(MethodError, match="direction must be \\+1, -1 or None, got 0"):
+        SearchSettings(direction=0)
+
+
+def test_full_search_and_warm_reevaluation_of_an_embankment_keep_the_direction():
+    section = _embankment()
+    result = search_critical_surface(section, SearchSettings(), refine=True)
+    assert result.critical.direction in (1, -1)
+    assert any("both faces were searched" in n for n in result.notes)
+    warm = warm_reevaluate(section, result)
+    # Same section: every cached surface gives its own F again.
+    assert warm.fos == pytest.approx(result.fos, rel=1e-9)
+    assert not warm.ranking_changed
+
+
+# ------------------------------------------------------------------------------------------
+# ACADS example 1(a)
+
+
+def test_acads_example_1a():
+    # ACADS slope stability test problem 1(a) (Giam and Donald 1989): homogeneous 2:1 slope
+    # 10 m high, c' = 3 kPa, phi' = 19.6 deg, gamma = 20 kN/m3, dry; referee F = 1.00.
+    # Geometry and referee value from memory; tolerance 3%.
+    section = section_from_dict({
+        "section": {"id": "ACADS-1A"},
+        "ground": {"points": [[20, 25], [30, 25], [50, 35], [70, 35]]},
+        "material": [{"name": "soil", "unit_weight": 20.0, "cohesion": 3.0,
+                      "friction_angle": 19.6, "water": "none"}],
+        "stratum": [{"material": "soil"}],
+    })
+    settings = SearchSettings(method="bishop_simplified", min_depth=0.0)
+    result = refine_circle(section, grid_and_radius(section, settings))
+    assert result.fos == pytest.approx(1.00, rel=0.03)

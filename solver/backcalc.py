@@ -1,0 +1,1485 @@
+"""Back-analysis of an observed slip: the strength that the slip implies.
+
+When a slope has failed, the factor of safety on the observed slip surface, under the water
+conditions at the time of failure, was 1.00. For a drained material that single condition does
+not fix c' and phi' but a curve of pairs, the FoS = 1 locus: for each phi' the c' that gives
+F = 1. What narrows it down (Duncan and Stark 1992; Duncan, Wright and Brandon 2014, ch. 11):
+
+* the *position* of the slip: along the locus, low-c' pairs make shallow surfaces critical and
+  high-c' pairs deep ones, so the pair whose critical surface lies closest to the observed one
+  is the best fit (:func:`match_locus`, scored by the area between the two sliding masses);
+* the *history*: at times when the slope stood under known water levels F was >= 1, which
+  removes the pairs that would have failed then (:func:`history_constraints`).
+
+The forms of strength solved for (``form``):
+
+``"cohesion_friction"``
+    Drained c'-phi': the locus c'(phi') over a range of phi'.
+``"friction"``
+    Drained with c' fixed (0 by default) and phi' solved: the residual strength of a
+    reactivated slip on a pre-existing shear surface, or the fully softened strength of a
+    first-time slide in stiff fissured clay, both normally taken with c' = 0 (Skempton 1970,
+    1977, 1985; Stark and Eid 1997). The two differ in meaning, not in the computation; the
+    curvature of the fully softened envelope at low stress is not modelled (linear
+    Mohr-Coulomb only).
+``"undrained"``
+    Total stress: Su (at the material's strength datum; a stated strength gradient is kept).
+
+Several sections through the same slip are solved jointly for one parameter set: the joint
+locus is the c' (or phi', Su) at which the *mean* factor of safety of the observed surfaces is 1
+(each section's own locus is reported beside it, so a poor agreement between sections shows),
+the stood-date checks require F >= 1 on every section, and the surface-match score is the mean
+of the sections' relative misfits.
+
+Everything here is pure: sections and points in, result dataclasses out. The observed surface
+is sliced once; trial strengths replace the strength of the slices whose base lies in the
+chosen material, so many trial strengths are solved together as one batch of surfaces.
+
+References
+----------
+Duncan, J.M. and Stark, T.D. (1992). Soil strengths from back analysis of slope failures. In
+    Stability and Performance of Slopes and Embankments II, ASCE Geotechnical Special
+    Publication 31, 890-904.
+Duncan, J.M., Wright, S.G. and Brandon, T.L. (2014). Soil Strength and Slope Stability, 2nd ed.
+    Wiley, ch. 11 (analyses of slope failures; back analysis).
+Skempton, A.W. (1970). First-time slides in over-consolidated clays. Geotechnique 20(3),
+    320-324.
+Skempton, A.W. (1977). Slope stability of cuttings in brown London Clay. Proc. 9th ICSMFE,
+    Tokyo, 3, 261-270.
+Skempton, A.W. (1985). Residual strength of clays in landslides, folded strata and the
+    laboratory. Geotechnique 35(1), 3-18.
+Stark, T.D. and Eid, H.T. (1997). Slope stability analyses in stiff fissured clays. Journal of
+    Geotechnical and Geoenvironmental Engineering, ASCE, 123(4), 335-343.
+"""
+
+from __future__ import annotations
+
+import inspect
+import math
+from dataclasses import dataclass, field, replace
+from typing import Callable, Sequence
+
+import numpy as np
+import shapely
+from scipy import optimize
+
+from solver import methods
+from solver.errors import MethodError, SearchError, SectionError, SolverError, SurfaceError
+from solver.methods import factor_of_safety
+from solver.search import (
+    RankedSurface,
+    SearchSettings,
+    optimise_polyline,
+    search_critical_surface,
+)
+from solver.section import DRAINED, DRY, UNDRAINED, Section, section_from_dict, section_to_dict
+from solver.slices import Slices
+from solver.slicing import slice_polyline
+
+__all__ = [
+    "FORMS",
+    "BackAnalysisError",
+    "ObservedSurfaceError",
+    "NoSolutionError",
+    "BackAnalysisSettings",
+    "MatchSettings",
+    "ObservedSlip",
+    "StoodCondition",
+    "Locus",
+    "SurfaceFit",
+    "LocusMatch",
+    "HistoryCheck",
+    "HistoryResult",
+    "SensitivityCase",
+    "BackAnalysisResult",
+    "with_strength",
+    "fos_with_strength",
+    "fos_unity_locus",
+    "surface_misfit",
+    "match_locus",
+    "history_constraints",
+    "sensitivity",
+    "back_analyse",
+]
+
+#: Forms of strength that a back-analysis solves for (see the module docstring).
+FORMS = ("cohesion_friction", "friction", "undrained")
+
+# Numerical settings of the back-analysis (not published values). A root of F(c') = 1 is only
+# as sharp as F itself, so the iterative methods are run to a tighter tolerance than in a
+# search, where only the ranking of surfaces matters.
+#: Tolerance on F of the iterative methods during back-analysis [-].
+BACKCALC_FOS_TOLERANCE = 1e-7
+#: Iteration limit of the iterative methods during back-analysis.
+BACKCALC_MAX_ITERATIONS = 200
+#: Absolute tolerance of the solved strength (brentq ``xtol``) [kPa for c' and Su, deg for phi'].
+BACKCALC_STRENGTH_TOLERANCE = 1e-6
+#: Bracket of c' searched for F = 1 [kPa].
+BACKCALC_COHESION_RANGE = (0.0, 200.0)
+#: Bracket of phi' searched for F = 1 in the friction form [deg].
+BACKCALC_FRICTION_RANGE = (0.0, 60.0)
+#: Bracket of Su searched for F = 1 [kPa].
+BACKCALC_UNDRAINED_RANGE = (0.0, 1000.0)
+#: Locus points whose critical surface is searched (evenly spread over the locus).
+BACKCALC_MATCH_POINTS = 6
+#: Further locus points tried by the bounded refinement of the best match (0: none).
+BACKCALC_REFINE_POINTS = 4
+#: Limit of FoS evaluations of the non-circular optimisation of one match (when asked for).
+BACKCALC_POLYLINE_EVALUATIONS = 400
+
+_MAX_FRICTION = 89.0
+
+
+# --------------------------------------------------------------------------------------------
+# Errors
+
+
+class BackAnalysisError(SolverError, ValueError):
+    """A back-analysis cannot be set up or has no answer; the message says which input."""
+
+
+class ObservedSurfaceError(BackAnalysisError, SurfaceError):
+    """The observed slip surface is not admissible for the section (does not cut the ground,
+    crosses the base, misses the material whose strength is sought)."""
+
+
+class NoSolutionError(BackAnalysisError):
+    """No strength in the searched range gives F = 1; the message gives F at both ends."""
+
+
+# --------------------------------------------------------------------------------------------
+# Inputs and settings
+
+
+@dataclass(frozen=True)
+class BackAnalysisSettings:
+    """Numerical settings of a back-analysis.
+
+    Parameters
+    ----------
+    method : str
+        Method of slices (default Spencer: force and moment equilibrium, suited to the
+        non-circular surfaces that real slips follow).
+    n_slices : int
+        Slices of the observed surface (its vertices add more).
+    tolerance : float
+        [-] Tolerance on F of the iterative methods.
+    max_iterations : int
+        Iteration limit of the iterative methods.
+    strength_tolerance : float
+        [kPa or deg] Absolute tolerance of the solved strength.
+    cohesion_range, friction_range, undrained_range : (float, float)
+        [kPa], [deg], [kPa] Brackets searched for F = 1.
+    """
+
+    method: str = "spencer"
+    n_slices: int = 30
+    tolerance: float = BACKCALC_FOS_TOLERANCE
+    max_iterations: int = BACKCALC_MAX_ITERATIONS
+    strength_tolerance: float = BACKCALC_STRENGTH_TOLERANCE
+    cohesion_range: tuple[float, float] = BACKCALC_COHESION_RANGE
+    friction_range: tuple[float, float] = BACKCALC_FRICTION_RANGE
+    undrained_range: tuple[float, float] = BACKCALC_UNDRAINED_RANGE
+
+    def __post_init__(self) -> None:
+        if self.method not in methods.METHOD_NAMES:
+            raise MethodError(
+                f"unknown method {self.method!r}; valid methods: {', '.join(methods.METHOD_NAMES)}"
+            )
+        _positive_int("n_slices", self.n_slices)
+        _positive_int("max_iterations", self.max_iterations)
+        for name in ("tolerance", "strength_tolerance"):
+            value = getattr(self, name)
+            if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
+                raise MethodError(f"{name} must be a positive number, got {value!r}")
+        for name, upper in (("cohesion_range", math.inf), ("friction_range", _MAX_FRICTION),
+                            ("undrained_range", math.inf)):
+            low, high = _pair(name, getattr(self, name))
+            if not (0 <= low < high <= upper) or not math.isfinite(high):
+                raise MethodError(
+                    f"{name} = {getattr(self, name)!r} must be (low, high) with "
+                    f"0 <= low < high{f' <= {upper:g}' if math.isfinite(upper) else ''}"
+                )
+
+
+@dataclass(frozen=True)
+class MatchSettings:
+    """How the critical surface of a locus point is searched (see :func:`match_locus`).
+
+    Parameters
+    ----------
+    points : int
+        Locus points searched, evenly spread over the solved part of the locus.
+    refine : int
+        Further points tried by a bounded scalar minimisation of the misfit along phi'
+        between the neighbours of the best point (0 switches it off).
+    circles : str
+        "grid and radius" or "entry and exit" (:func:`solver.search.search_critical_surface`).
+    screen_with : str or None
+        Faster method that screens the many trial circles (default Bishop's simplified
+        method); None screens with the back-analysis method itself.
+    non_circular : bool
+        Also optimise a polyline from the best circle (default; slower, but real slips are
+        rarely circles, and a circle cannot follow a slip along a weak layer).
+    polyline_evaluations : int
+        Limit of FoS evaluations of that optimisation.
+    min_depth : float or None
+        [m] Smallest depth of a competing surface; None takes the section's [search] min_depth.
+    """
+
+    points: int = BACKCALC_MATCH_POINTS
+    refine: int = BACKCALC_REFINE_POINTS
+    circles: str = "grid and radius"
+    screen_with: str | None = "bishop_simplified"
+    non_circular: bool = True
+    polyline_evaluations: int = BACKCALC_POLYLINE_EVALUATIONS
+    min_depth: float | None = None
+
+    def __post_init__(self) -> None:
+        _positive_int("points", self.points)
+        _positive_int("polyline_evaluations", self.polyline_evaluations)
+        if isinstance(self.refine, bool) or not isinstance(self.refine, int) or self.refine < 0:
+            raise MethodError(f"refine must be an integer >= 0, got {self.refine!r}")
+        if self.screen_with is not None and self.screen_with not in methods.METHOD_NAMES:
+            raise MethodError(
+                f"unknown screening method {self.screen_with!r}; valid methods: "
+                f"{', '.join(methods.METHOD_NAMES)}"
+            )
+        if self.min_depth is not None and not (math.isfinite(self.min_depth) and self.min_depth >= 0):
+            raise MethodError(f"min_depth must be a number >= 0 m, got {self.min_depth!r}")
+
+
+@dataclass(frozen=True, eq=False)
+class ObservedSlip:
+    """One section through the slip: the section under the water conditions at failure and
+    the observed slip surface in its frame.
+
+    Attributes
+    ----------
+    section : Section
+        The section before the slip, its water lines those at the time of failure.
+    surface : ndarray (k, 2)
+        [m] Observed slip surface, x strictly increasing, both ends on or above the ground.
+    name : str
+        Label in reports (default: the section id).
+    """
+
+    section: Section
+    surface: np.ndarray
+    name: str = ""
+
+    def __post_init__(self) -> None:
+        points = np.array(self.surface, dtype=float)
+        if points.ndim != 2 or points.shape[1] != 2 or len(points) < 2:
+            raise ObservedSurfaceError(
+                f"observed surface must be at least two [x, y] points, got {self.surface!r}"
+            )
+        if not np.isfinite(points).all():
+            raise ObservedSurfaceError(f"observed surface points must be finite, got {points.tolist()}")
+        if (np.diff(points[:, 0]) <= 0).any():
+            i = int(np.argmax(np.diff(points[:, 0]) <= 0))
+            raise ObservedSurfaceError(
+                f"observed surface: x must increase strictly, but x = {points[i, 0]:g} is "
+                f"followed by x = {points[i + 1, 0]:g} m"
+            )
+        points.setflags(write=False)
+        object.__setattr__(self, "surface", points)
+        if not self.name:
+            object.__setattr__(self, "name", self.section.id)
+
+
+@dataclass(frozen=True, eq=False)
+class StoodCondition:
+    """A time when the slope stood: the sections (same order as the observed slips) with their
+    water lines at that time. F >= 1 must hold on every observed surface then."""
+
+    label: str
+    sections: tuple[Section, ...]
+
+
+# --------------------------------------------------------------------------------------------
+# Results
+
+
+@dataclass(frozen=True)
+class Locus:
+    """Strengths that give F = 1 on the observed surface(s).
+
+    One row per point; the "cohesion_friction" form has one point per phi' asked for, the
+    other forms one point.
+
+    Attributes
+    ----------
+    form, material, method : str
+    friction_angle : ndarray (n,)
+        [deg] phi' (solved in the friction form, given otherwise; NaN for undrained).
+    cohesion : ndarray (n,)
+        [kPa] c' (solved in the cohesion_friction form, given otherwise; NaN for undrained).
+    undrained_strength : ndarray (n,)
+        [kPa] Su (solved in the undrained form; NaN otherwise).
+    found : ndarray of bool (n,)
+        Whether F = 1 was reached within the bracket.
+    fos_at_low, fos_at_high : ndarray (n,)
+        [-] F (mean over sections) at the two ends of the bracket of the solved strength.
+    bracket : (float, float)
+        The bracket of the solved strength [kPa or deg].
+    iterations : ndarray of int (n,)
+        Root-finder iterations.
+    message : tuple of str (n,)
+        Why a point has no solution, or the method's warning at the root ("" when all is well).
+    by_section : dict
+        {slip name: ndarray (n,)} the solved strength of each section's own locus (only when
+        several sections are solved jointly).
+    solved : str
+        Name of the solved quantity: "cohesion", "friction_angle" or "undrained_strength".
+    """
+
+    form: str
+    material: str
+    method: str
+    friction_angle: np.ndarray
+    cohesion: np.ndarray
+    undrained_strength: np.ndarray
+    found: np.ndarray
+    fos_at_low: np.ndarray
+    fos_at_high: np.ndarray
+    bracket: tuple[float, float]
+    iterations: np.ndarray
+    message: tuple[str, ...]
+    by_section: dict = field(default_factory=dict)
+    solved: str = "cohesion"
+
+    @property
+    def n_points(self) -> int:
+        return int(self.found.size)
+
+    def values(self) -> np.ndarray:
+        """The solved quantity at every point [kPa or deg]."""
+        return getattr(self, self.solved)
+
+    def point(self, i: int) -> dict:
+        """Strength of point ``i``: {"cohesion", "friction_angle", "undrained_strength"}."""
+        return {
+            "cohesion": float(self.cohesion[i]),
+            "friction_angle": float(self.friction_angle[i]),
+            "undrained_strength": float(self.undrained_strength[i]),
+        }
+
+
+@dataclass(frozen=True)
+class SurfaceFit:
+    """How close a critical surface lies to the observed one, on one section.
+
+    Attributes
+    ----------
+    slip : str
+        Name of the observed slip (section).
+    critical_fos : float
+        [-] F of the critical surface found with the point's strength (<= 1 up to search
+        accuracy, since the observed surface has F = 1).
+    critical_kind : str
+        "circle" or "polyline".
+    critical_points : ndarray (k, 2)
+        [m] The critical surface between its ends on the ground, section frame.
+    misfit_area : float
+        [m2] Area between the two surfaces: the symmetric difference of the two sliding
+        masses.
+    observed_area : float
+        [m2] Area of the observed sliding mass.
+    misfit_ratio : float
+        [-] misfit_area / observed_area (0: the same mass).
+    hausdorff : float
+        [m] Hausdorff distance between the two surface lines.
+    """
+
+    slip: str
+    critical_fos: float
+    critical_kind: str
+    critical_points: np.ndarray
+    misfit_area: float
+    observed_area: float
+    misfit_ratio: float
+    hausdorff: float
+
+
+@dataclass(frozen=True)
+class LocusMatch:
+    """A locus point with the critical surfaces its strength gives.
+
+    ``score`` is the mean ``misfit_ratio`` over the sections; the best fit has the lowest.
+    ``refined`` is True for points added by the refinement between locus points.
+    """
+
+    friction_angle: float
+    cohesion: float
+    undrained_strength: float
+    fits: tuple[SurfaceFit, ...]
+    score: float
+    refined: bool = False
+
+
+@dataclass(frozen=True)
+class HistoryCheck:
+    """F on the observed surface(s) at one stood time, for every locus point.
+
+    ``fos`` is the lowest over the sections [-]; ``stood`` is True where it is >= 1."""
+
+    label: str
+    fos: np.ndarray
+    stood: np.ndarray
+
+
+@dataclass(frozen=True)
+class HistoryResult:
+    """The locus cut down by the stood times.
+
+    Attributes
+    ----------
+    checks : tuple of HistoryCheck
+    surviving : ndarray of bool (n,)
+        Locus points with a solution that gave F >= 1 at every stood time.
+    friction_range, cohesion_range, undrained_range : (float, float) or None
+        Extent of the surviving points [deg], [kPa], [kPa] (None when none survive, or for a
+        quantity the form does not vary).
+    limits : tuple of dict
+        Where the stood constraint crosses F = 1 between two locus points, found by root
+        finding along the locus: {"label", "friction_angle", "cohesion"} (cohesion_friction
+        form only).
+    """
+
+    checks: tuple[HistoryCheck, ...]
+    surviving: np.ndarray
+    friction_range: tuple[float, float] | None
+    cohesion_range: tuple[float, float] | None
+    undrained_range: tuple[float, float] | None
+    limits: tuple[dict, ...] = ()
+
+
+@dataclass(frozen=True)
+class SensitivityCase:
+    """The locus recomputed with one input changed.
+
+    Attributes
+    ----------
+    label : str
+        E.g. "water lines +0.50 m".
+    quantity : str
+        "water level" [m] or "unit weight" [kN/m3].
+    change : float
+        The change applied (every water line raised by it; every unit weight increased by it).
+    values : ndarray (n,)
+        The solved strength at each locus point under the change [kPa or deg].
+    best_value : float
+        The solved strength at the best fit's fixed parameter (its phi' in the
+        cohesion_friction form) under the change; NaN when not found.
+    shift : float
+        best_value minus the best fit's own value.
+    """
+
+    label: str
+    quantity: str
+    change: float
+    values: np.ndarray
+    best_value: float
+    shift: float
+
+
+@dataclass(frozen=True)
+class BackAnalysisResult:
+    """Everything a back-analysis found (see :func:`back_analyse`).
+
+    ``best`` is the best-fitting locus match (None when no surface match was run); its strength
+    gives F = 1 on the observed surface(s) and a critical surface closest to the observed one.
+    ``notes`` carries warnings in plain words.
+    """
+
+    form: str
+    material: str
+    method: str
+    locus: Locus
+    matches: tuple[LocusMatch, ...]
+    best: LocusMatch | None
+    history: HistoryResult | None
+    sensitivity: tuple[SensitivityCase, ...]
+    slips: tuple[str, ...]
+    notes: tuple[str, ...] = ()
+
+
+# --------------------------------------------------------------------------------------------
+# Strength of one material
+
+
+def with_strength(
+    section: Section,
+    material: str,
+    *,
+    cohesion: float | None = None,
+    friction_angle: float | None = None,
+    undrained_strength: float | None = None,
+) -> Section:
+    """A copy of ``section`` in which ``material`` has the given strength.
+
+    Parameters
+    ----------
+    section : Section
+    material : str
+        Name of a material of the section.
+    cohesion : float, optional
+        [kPa] c' (drained).
+    friction_angle : float, optional
+        [deg] phi' (drained).
+    undrained_strength : float, optional
+        [kPa] Su at the strength datum (undrained). Giving it for a drained material makes
+        that material undrained (total stress, no pore pressure, no water line), as an
+        undrained back-analysis of it requires; its unit weights are kept.
+
+    Raises
+    ------
+    SectionError
+        Unknown material, invalid strength, or a drained strength for an undrained material
+        (which has no water line to give its pore pressure).
+    """
+    data = section_to_dict(section)
+    item = next((m for m in data["material"] if m["name"] == material), None)
+    if item is None:
+        known = ", ".join(m["name"] for m in data["material"])
+        raise SectionError(f"material {material!r} is not defined in section {section.id!r} "
+                           f"(known: {known})")
+    drained_given = cohesion is not None or friction_angle is not None
+    if drained_given and undrained_strength is not None:
+        raise SectionError("give a drained strength (cohesion, friction_angle) or an undrained "
+                           "one (undrained_strength), not both")
+    if drained_given:
+        if item["model"] != DRAINED:
+            raise SectionError(
+                f"material {material!r} of section {section.id!r} is undrained; a drained "
+                "strength needs a drained material with a water line (edit the section file)"
+            )
+        if cohesion is not None:
+            item["cohesion"] = float(cohesion)
+        if friction_angle is not None:
+            item["friction_angle"] = float(friction_angle)
+    elif undrained_strength is not None:
+        if item["model"] == DRAINED:
+            for key in ("cohesion", "friction_angle", "ru", "water"):
+                item.pop(key, None)
+            item.update(model=UNDRAINED, strength_gradient=0.0, water=DRY)
+        item["undrained_strength"] = float(undrained_strength)
+    return section_from_dict(data)
+
+
+class _SlipModel:
+    """One observed surface sliced once, with the strength of the chosen material's base
+    slices replaceable by arrays of trial strengths (one trial per row)."""
+
+    def __init__(self, slip: ObservedSlip, material: str, form: str, settings: BackAnalysisSettings):
+        section = slip.section
+        index = section.material_index(material)
+        target = section.materials[index]
+        if form == "undrained" and target.model == DRAINED:
+            section = with_strength(section, material, undrained_strength=0.0)
+        if form != "undrained" and target.model != DRAINED:
+            raise BackAnalysisError(
+                f"material {material!r} of section {section.id!r} is undrained; a {form} "
+                "back-analysis needs a drained material (or use the undrained form)"
+            )
+        self.name = slip.name
+        self.material = material
+        self.section = section
+        self.surface = slip.surface
+        self.form = form
+        self.settings = settings
+        batch = slice_polyline(section, slip.surface, settings.n_slices)
+        if not batch.valid[0]:
+            raise ObservedSurfaceError(
+                f"observed surface of {slip.name!r} (x = {slip.surface[0, 0]:g} to "
+                f"{slip.surface[-1, 0]:g} m) is not admissible for section {section.id!r}: "
+                f"{batch.reason[0]} (both ends must lie on or above the ground line and the "
+                "surface must run below it in between)"
+            )
+        self.slices: Slices = batch.slices
+        self.mask = (self.slices.base_material == index) & self.slices.active
+        if not self.mask.any():
+            found = sorted({section.materials[i].name for i in np.unique(
+                self.slices.base_material[self.slices.active]) if i >= 0})
+            raise ObservedSurfaceError(
+                f"observed surface of {slip.name!r} does not pass through material "
+                f"{material!r} (its base lies in {', '.join(found)}); the slip says nothing "
+                "about that material's strength"
+            )
+        self.su_reference = float(section.materials[index].undrained_strength)
+        self.options = _method_options(settings)
+
+    def fos(self, cohesion, friction_angle, undrained_strength) -> methods.SafetyResult:
+        """F for trial strengths (arrays (m,), broadcast together)."""
+        c, phi, su = np.broadcast_arrays(*(np.atleast_1d(np.asarray(v, dtype=float))
+                                          for v in (cohesion, friction_angle, undrained_strength)))
+        rows = self.slices.select(np.zeros(c.size, dtype=int))
+        mask = np.broadcast_to(self.mask, rows.cohesion.shape)
+        if self.form == "undrained":
+            # Su(y) = Su0 + gradient * depth below the datum: shifting Su0 shifts every base.
+            new_c = np.where(mask, rows.cohesion + (su - self.su_reference)[:, None], rows.cohesion)
+            new_tan = rows.tan_phi
+        else:
+            new_c = np.where(mask, c[:, None], rows.cohesion)
+            new_tan = np.where(mask, np.tan(np.radians(phi))[:, None], rows.tan_phi)
+        return factor_of_safety(replace(rows, cohesion=new_c, tan_phi=new_tan),
+                                self.settings.method, **self.options)
+
+
+def fos_with_strength(
+    slip: ObservedSlip,
+    material: str,
+    *,
+    cohesion=0.0,
+    friction_angle=0.0,
+    undrained_strength=None,
+    settings: BackAnalysisSettings | None = None,
+) -> methods.SafetyResult:
+    """Factor of safety of the observed surface for trial strengths of one material.
+
+    Parameters
+    ----------
+    slip : ObservedSlip
+    material : str
+    cohesion, friction_angle : float or array (m,)
+        [kPa], [deg] Drained trial strengths (broadcast together).
+    undrained_strength : float or array (m,), optional
+        [kPa] Undrained trial strength Su; when given, the material is analysed undrained.
+    settings : BackAnalysisSettings, optional
+
+    Returns
+    -------
+    SafetyResult
+        One row per trial strength.
+    """
+    settings = settings or BackAnalysisSettings()
+    form = "undrained" if undrained_strength is not None else "cohesion_friction"
+    model = _SlipModel(slip, material, form, settings)
+    su = 0.0 if undrained_strength is None else undrained_strength
+    return model.fos(cohesion, friction_angle, su)
+
+
+# --------------------------------------------------------------------------------------------
+# The FoS = 1 locus
+
+
+def fos_unity_locus(
+    slips: Sequence[ObservedSlip] | ObservedSlip,
+    material: str,
+    form: str = "cohesion_friction",
+    *,
+    friction_angles=None,
+    cohesion: float = 0.0,
+    settings: BackAnalysisSettings | None = None,
+) -> Locus:
+    r"""The strengths of ``material`` that give F = 1 on the observed surface(s).
+
+    For the cohesion_friction form, for each phi' of ``friction_angles`` the c' with
+
+    .. math:: \bar F(c', \phi') = \frac{1}{n_s} \sum_{k=1}^{n_s} F_k(c', \phi') = 1
+
+    (n_s observed sections; one section: F = 1), found by Brent's method
+    (:func:`scipy.optimize.brentq`) within ``settings.cohesion_range``. F increases with c' on
+    a fixed surface, so a root exists exactly when F at the two ends of the bracket lies on
+    either side of 1; both ends are solved for every phi' in one batch. The friction form
+    solves phi' with c' = ``cohesion``; the undrained form solves Su.
+
+    Parameters
+    ----------
+    slips : ObservedSlip or sequence of them
+        The sections through the slip with the water at failure and the observed surfaces.
+    material : str
+        The material whose strength is sought.
+    form : {"cohesion_friction", "friction", "undrained"}
+    friction_angles : array_like
+        [deg] phi' of the locus points (cohesion_friction form only; required there).
+    cohesion : float
+        [kPa] c' held fixed in the friction form (0 for residual and fully softened strength).
+    settings : BackAnalysisSettings, optional
+
+    Returns
+    -------
+    Locus
+
+    Raises
+    ------
+    ObservedSurfaceError
+        An observed surface does not cut the ground or misses the material.
+    NoSolutionError
+        No point of the locus reaches F = 1 in the bracket; the message gives F at both ends.
+
+    References
+    ----------
+    Duncan, J.M., Wright, S.G. and Brandon, T.L. (2014). Soil Strength and Slope Stability,
+        2nd ed. Wiley, ch. 11.
+    Brent, R.P. (1973). Algorithms for Minimization without Derivatives. Prentice-Hall, ch. 4.
+    """
+    slips = _as_slips(slips)
+    settings = settings or BackAnalysisSettings()
+    _check_form(form)
+    models = [_SlipModel(s, material, form, settings) for s in slips]
+    fixed = _fixed_parameters(form, friction_angles, cohesion)
+    locus = _solve_locus(models, form, fixed, settings, material)
+    if not locus.found.any():
+        raise NoSolutionError(_no_solution_message(locus, material))
+    if len(models) > 1:
+        own = {m.name: _solve_locus([m], form, fixed, settings, material).values() for m in models}
+        locus = replace(locus, by_section=own)
+    return locus
+
+
+def _fixed_parameters(form: str, friction_angles, cohesion: float) -> np.ndarray:
+    """The parameter held fixed at each locus point: phi' [deg] (cohesion_friction), c' [kPa]
+    (friction), nothing (undrained: one point)."""
+    if form == "cohesion_friction":
+        if friction_angles is None:
+            raise BackAnalysisError("the c'-phi' locus needs friction_angles (phi' values [deg])")
+        phi = np.atleast_1d(np.asarray(friction_angles, dtype=float)).ravel()
+        if phi.size == 0 or not np.isfinite(phi).all() or (phi < 0).any() or (phi > _MAX_FRICTION).any():
+            raise BackAnalysisError(
+                f"friction_angles = {phi.tolist()} must be finite values in [0, {_MAX_FRICTION:g}] deg"
+            )
+        return np.unique(phi)
+    if form == "friction":
+        if not (math.isfinite(cohesion) and cohesion >= 0):
+            raise BackAnalysisError(f"cohesion = {cohesion!r} kPa must be a number >= 0")
+        return np.array([float(cohesion)])
+    return np.array([np.nan])
+
+
+def _trial(form: str, fixed, value):
+    """(cohesion, friction_angle, undrained_strength) arrays for solved ``value`` at ``fixed``."""
+    nan = np.full(np.shape(value), np.nan)
+    if form == "cohesion_friction":
+        return value, fixed, nan
+    if form == "friction":
+        return fixed, value, nan
+    return nan, nan, value
+
+
+def _bracket(form: str, settings: BackAnalysisSettings) -> tuple[float, float]:
+    return {
+        "cohesion_friction": settings.cohesion_range,
+        "friction": settings.friction_range,
+        "undrained": settings.undrained_range,
+    }[form]
+
+
+def _mean_fos(models, form, fixed, value) -> tuple[np.ndarray, list[str]]:
+    """Mean F over the sections for rows (fixed, value); NaN where a section's method did not
+    converge or gave no F. Also the first non-empty message of each row."""
+    c, phi, su = _trial(form, fixed, value)
+    total = np.zeros(np.size(value))
+    messages = [""] * np.size(value)
+    for model in models:
+        solved = model.fos(c, phi, su)
+        fos = np.where(solved.converged & np.isfinite(solved.fos) & (solved.fos > 0),
+                       solved.fos, np.nan)
+        total += fos
+        for i, message in enumerate(solved.message):
+            if message and not messages[i]:
+                messages[i] = f"{model.name}: {message}" if len(models) > 1 else message
+    return total / len(models), messages
+
+
+def _solve_locus(models, form, fixed, settings, material) -> Locus:
+    low, high = _bracket(form, settings)
+    n = fixed.size
+    # F rises with the solved strength; a grid over the bracket, solved as one batch for every
+    # point, gives each root a tight bracket and steps over trial strengths at which the
+    # method does not converge (very low strength on a steep surface).
+    grid = low + (high - low) * _BRACKET_FRACTIONS
+    fos_grid, _ = _mean_fos(models, form, np.repeat(fixed, grid.size), np.tile(grid, n))
+    fos_grid = fos_grid.reshape(n, grid.size)
+    fos_low, fos_high = fos_grid[:, 0], fos_grid[:, -1]
+    value = np.full(n, np.nan)
+    iterations = np.zeros(n, dtype=int)
+    messages = []
+    name = _SOLVED_SYMBOL[form]
+    for i in range(n):
+        row = fos_grid[i]
+        finite = np.isfinite(row)
+        crossing = np.flatnonzero(finite[:-1] & finite[1:] & (row[:-1] <= 1.0) & (row[1:] >= 1.0))
+        if crossing.size == 0:
+            if not finite.any():
+                messages.append(f"{settings.method} gave no converged F for {name} = {low:g} "
+                                f"to {high:g}")
+            elif (row[finite] > 1).all():
+                first = int(np.argmax(finite))
+                messages.append(f"F = {row[first]:.3f} > 1 already at {name} = {grid[first]:g}")
+            elif (row[finite] < 1).all():
+                last = int(finite.size - 1 - np.argmax(finite[::-1]))
+                messages.append(f"F = {row[last]:.3f} < 1 even at {name} = {grid[last]:g}")
+            else:
+                messages.append(f"{settings.method} gave no converged F where F crosses 1")
+            continue
+        a, b = grid[crossing[0]], grid[crossing[0] + 1]
+
+        def excess(v, i=i):
+            fos, _ = _mean_fos(models, form, fixed[i : i + 1], np.array([v]))
+            if not np.isfinite(fos[0]):
+                raise _NoFos(v)
+            return fos[0] - 1.0
+
+        try:
+            root, info = optimize.brentq(
+                excess, a, b, xtol=settings.strength_tolerance, full_output=True,
+                disp=False,
+            )
+        except _NoFos as error:
+            messages.append(f"{settings.method} gave no converged F at {name} = {error.value:g}")
+            continue
+        value[i] = root
+        iterations[i] = info.iterations
+        _, warning = _mean_fos(models, form, fixed[i : i + 1], np.array([root]))
+        messages.append(warning[0] if info.converged else f"root finder: {info.flag}")
+        if not info.converged:
+            value[i] = np.nan
+    c, phi, su = (np.asarray(np.broadcast_to(a, (n,)), dtype=float).copy()
+                  for a in _trial(form, fixed, value))
+    return Locus(
+        form=form, material=material, method=settings.method,
+        friction_angle=phi, cohesion=c, undrained_strength=su,
+        found=np.isfinite(value), fos_at_low=fos_low, fos_at_high=fos_high,
+        bracket=(float(low), float(high)), iterations=iterations, message=tuple(messages),
+        solved=_SOLVED[form],
+    )  # fmt: skip
+
+
+#: Points of the bracketing grid, as fractions of the bracket (denser near the low end, where
+#: the roots of weak soils lie).
+_BRACKET_FRACTIONS = np.array([0.0, 0.0025, 0.005, 0.01, 0.02, 0.035, 0.05, 0.075, 0.1, 0.15,
+                               0.2, 0.3, 0.4, 0.55, 0.7, 0.85, 1.0])
+
+_SOLVED = {"cohesion_friction": "cohesion", "friction": "friction_angle",
+           "undrained": "undrained_strength"}
+_SOLVED_SYMBOL = {"cohesion_friction": "c' [kPa]", "friction": "phi' [deg]",
+                  "undrained": "Su [kPa]"}
+
+
+class _NoFos(Exception):
+    def __init__(self, value: float):
+        super().__init__(value)
+        self.value = value
+
+
+def _no_solution_message(locus: Locus, material: str) -> str:
+    low, high = locus.bracket
+    symbol = _SOLVED_SYMBOL[locus.form]
+    ends = (
+        f"F at {symbol} = {low:g}: {_span(locus.fos_at_low)}; "
+        f"at {symbol} = {high:g}: {_span(locus.fos_at_high)}"
+    )
+    where = ""
+    if locus.form == "cohesion_friction":
+        where = (f" for phi' from {locus.friction_angle.min():g} to "
+                 f"{locus.friction_angle.max():g} deg")
+    elif locus.form == "friction":
+        where = f" with c' = {locus.cohesion[0]:g} kPa"
+    hint = ""
+    if np.nanmin(locus.fos_at_low) > 1:
+        hint = ("; the observed surface is stable even with the weakest strength in the range: "
+                "check the water at failure, the surface and the other materials")
+    elif np.nanmax(locus.fos_at_high) < 1:
+        hint = ("; the observed surface fails even with the strongest strength in the range: "
+                "check the water at failure and widen the range")
+    return (f"no strength of {material!r} in {symbol} = {low:g} to {high:g}{where} gives F = 1 "
+            f"on the observed surface ({locus.method}): {ends}{hint}")
+
+
+def _span(values: np.ndarray) -> str:
+    finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        return "no converged F"
+    if finite.size == 1 or np.isclose(finite.min(), finite.max()):
+        return f"{finite[0]:.3f}"
+    return f"{finite.min():.3f} to {finite.max():.3f}"
+
+
+# --------------------------------------------------------------------------------------------
+# Surface match
+
+
+def surface_misfit(ground, observed, critical) -> tuple[float, float, float]:
+    """Area between two slip surfaces and their Hausdorff distance.
+
+    Parameters
+    ----------
+    ground : array (n, 2) or Section
+        [m] Ground line (x strictly increasing).
+    observed, critical : array (k, 2)
+        [m] The two surfaces, x strictly increasing, between their ends on the ground.
+
+    Returns
+    -------
+    (misfit_area, observed_area, hausdorff)
+        [m2] Area of the symmetric difference of the two sliding masses (the region between
+        each surface and the ground); [m2] area of the observed mass; [m] Hausdorff distance
+        between the two lines (densified to 2 % of their length).
+    """
+    ground = np.asarray(getattr(ground, "ground", ground), dtype=float)
+    observed = np.asarray(observed, dtype=float)
+    critical = np.asarray(critical, dtype=float)
+    mass_observed = _sliding_mass(ground, observed)
+    mass_critical = _sliding_mass(ground, critical)
+    misfit = float(shapely.symmetric_difference(mass_observed, mass_critical).area)
+    distance = float(shapely.hausdorff_distance(
+        shapely.LineString(observed), shapely.LineString(critical), densify=0.02))
+    return misfit, float(mass_observed.area), distance
+
+
+def _sliding_mass(ground: np.ndarray, surface: np.ndarray):
+    """The region below the ground and above the surface, between the surface's ends."""
+    top = max(ground[:, 1].max(), surface[:, 1].max()) + 10.0
+    bottom = min(ground[:, 1].min(), surface[:, 1].min()) - 10.0
+    below_ground = shapely.Polygon(np.vstack([
+        [[ground[0, 0], bottom]], ground, [[ground[-1, 0], bottom]]]))
+    above_surface = shapely.Polygon(np.vstack([
+        [[surface[0, 0], top]], surface, [[surface[-1, 0], top]]]))
+    return shapely.intersection(shapely.make_valid(below_ground), shapely.make_valid(above_surface))
+
+
+def _critical_points(surface: RankedSurface, n: int = 120) -> np.ndarray:
+    """The critical surface between its ends on the ground, as a polyline."""
+    x0, x1 = sorted((surface.entry_x, surface.exit_x))
+    if surface.kind == "circle":
+        x = np.linspace(x0, x1, n)
+        y = surface.centre_y - np.sqrt(np.maximum(surface.radius**2 - (x - surface.centre_x) ** 2, 0))
+        return np.column_stack([x, y])
+    points = np.asarray(surface.points, dtype=float)
+    inside = (points[:, 0] > x0) & (points[:, 0] < x1)
+    x = np.concatenate([[x0], points[inside, 0], [x1]])
+    return np.column_stack([x, np.interp(x, *points.T)])
+
+
+def _search_settings(section: Section, settings: BackAnalysisSettings, match: MatchSettings):
+    options = section.search or {}
+    min_depth = match.min_depth
+    if min_depth is None:
+        min_depth = options.get("min_depth", SearchSettings.min_depth)
+    return SearchSettings(method=settings.method, n_slices=options.get("slices", settings.n_slices),
+                          min_depth=min_depth)
+
+
+def _critical_surface(section: Section, settings: BackAnalysisSettings, match: MatchSettings):
+    search = _search_settings(section, settings, match)
+    screen = match.screen_with if match.screen_with != settings.method else None
+    result = search_critical_surface(section, search, circles=match.circles, screen_with=screen)
+    if match.non_circular:
+        result = optimise_polyline(section, result, method=settings.method,
+                                   max_evaluations=match.polyline_evaluations)
+    return result.critical
+
+
+def _fit(model: _SlipModel, strength: dict, settings, match) -> SurfaceFit:
+    section = _section_with(model, strength)
+    try:
+        critical = _critical_surface(section, settings, match)
+    except SearchError as error:
+        raise BackAnalysisError(
+            f"no critical surface found on {model.name!r} with {_describe(strength, model.form)}: "
+            f"{error}"
+        ) from None
+    points = _critical_points(critical)
+    misfit, observed_area, distance = surface_misfit(model.section.ground, model.surface, points)
+    return SurfaceFit(
+        slip=model.name, critical_fos=float(critical.fos), critical_kind=critical.kind,
+        critical_points=points, misfit_area=misfit, observed_area=observed_area,
+        misfit_ratio=misfit / observed_area if observed_area > 0 else math.inf,
+        hausdorff=distance,
+    )  # fmt: skip
+
+
+def _section_with(model: _SlipModel, strength: dict) -> Section:
+    if model.form == "undrained":
+        return with_strength(model.section, model.material,
+                             undrained_strength=strength["undrained_strength"])
+    return with_strength(model.section, model.material, cohesion=strength["cohesion"],
+                         friction_angle=strength["friction_angle"])
+
+
+def _describe(strength: dict, form: str) -> str:
+    if form == "undrained":
+        return f"Su = {strength['undrained_strength']:.2f} kPa"
+    return f"c' = {strength['cohesion']:.2f} kPa, phi' = {strength['friction_angle']:.2f} deg"
+
+
+def match_locus(
+    slips: Sequence[ObservedSlip] | ObservedSlip,
+    locus: Locus,
+    *,
+    settings: BackAnalysisSettings | None = None,
+    match: MatchSettings | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
+) -> tuple[tuple[LocusMatch, ...], LocusMatch]:
+    """Critical surfaces along the locus and the best-fitting point (Duncan and Stark 1992).
+
+    For ``match.points`` locus points spread evenly over its solved part, the critical surface
+    is searched on every section with that point's strength, and its misfit with the observed
+    surface measured (:func:`surface_misfit`); the score of a point is the mean over the
+    sections of misfit area / observed area. Then (cohesion_friction form, ``match.refine`` >
+    0) a bounded scalar minimisation of the score along phi', between the neighbours of the
+    best point, tries up to ``match.refine`` further points, each first solved for F = 1.
+
+    Parameters
+    ----------
+    slips : ObservedSlip or sequence
+        As given to :func:`fos_unity_locus` (same order).
+    locus : Locus
+    settings : BackAnalysisSettings, optional
+    match : MatchSettings, optional
+    progress : callable(done, total, label), optional
+        Called after each point is searched (the total may shrink when refinement ends early).
+
+    Returns
+    -------
+    (matches, best)
+        Every point searched, in order of phi' (or the single point), and the best one.
+
+    References
+    ----------
+    Duncan, J.M. and Stark, T.D. (1992). Soil strengths from back analysis of slope failures.
+        ASCE Geotechnical Special Publication 31, 890-904.
+    Duncan, J.M., Wright, S.G. and Brandon, T.L. (2014). Soil Strength and Slope Stability,
+        2nd ed. Wiley, ch. 11.
+    """
+    slips = _as_slips(slips)
+    settings = settings or BackAnalysisSettings(method=locus.method)
+    match = match or MatchSettings()
+    models = [_SlipModel(s, locus.material, locus.form, settings) for s in slips]
+    solved = np.flatnonzero(locus.found)
+    if solved.size == 0:
+        raise NoSolutionError(_no_solution_message(locus, locus.material))
+    chosen = np.unique(solved[np.round(np.linspace(0, solved.size - 1, min(match.points, solved.size))).astype(int)])
+    refine = match.refine if locus.form == "cohesion_friction" and chosen.size > 1 else 0
+    total = chosen.size + refine
+    done = 0
+
+    def evaluate(strength: dict, refined: bool) -> LocusMatch:
+        nonlocal done
+        fits = tuple(_fit(m, strength, settings, match) for m in models)
+        done += 1
+        if progress is not None:
+            progress(done, total, _describe(strength, locus.form))
+        return LocusMatch(
+            friction_angle=strength["friction_angle"], cohesion=strength["cohesion"],
+            undrained_strength=strength["undrained_strength"], fits=fits,
+            score=float(np.mean([f.misfit_ratio for f in fits])), refined=refined,
+        )  # fmt: skip
+
+    matches = [evaluate(locus.point(int(i)), False) for i in chosen]
+    if refine:
+        matches += _refine(models, locus, matches, refine, settings, evaluate)
+    if locus.form == "cohesion_friction":
+        matches.sort(key=lambda m: m.friction_angle)
+    best = min(matches, key=lambda m: m.score)
+    return tuple(matches), best
+
+
+#: Score of a phi' without a locus point, for the bounded minimisation (finite, far above any
+#: misfit ratio, so that the minimiser's arithmetic stays finite).
+_NO_SCORE = 1.0e6
+
+
+def _refine(models, locus, matches, budget, settings, evaluate) -> list[LocusMatch]:
+    """Bounded minimisation of the score along phi' around the best coarse point."""
+    phis = np.array([m.friction_angle for m in matches])
+    i = int(np.argmin([m.score for m in matches]))
+    lo, hi = phis[max(i - 1, 0)], phis[min(i + 1, len(phis) - 1)]
+    added: list[LocusMatch] = []
+    seen = {round(float(p), 9): m.score for p, m in zip(phis, matches)}
+
+    def score(phi: float) -> float:
+        key = round(float(phi), 9)
+        if key in seen:
+            return seen[key]
+        if len(added) >= budget:
+            return _NO_SCORE
+        point = _solve_locus(models, "cohesion_friction", np.array([phi]), settings, locus.material)
+        if not point.found[0]:
+            seen[key] = _NO_SCORE
+            return _NO_SCORE
+        result = evaluate(point.point(0), True)
+        added.append(result)
+        seen[key] = result.score
+        return result.score
+
+    optimize.minimize_scalar(score, bounds=(lo, hi), method="bounded",
+                             options={"maxiter": budget, "xatol": 0.1})
+    return added
+
+
+# --------------------------------------------------------------------------------------------
+# History: times when the slope stood
+
+
+def history_constraints(
+    slips: Sequence[ObservedSlip] | ObservedSlip,
+    locus: Locus,
+    stood: Sequence[StoodCondition],
+    *,
+    settings: BackAnalysisSettings | None = None,
+) -> HistoryResult:
+    """Cut the locus down to the strengths that let the slope stand at the stood times.
+
+    At each stood time F >= 1 must hold on every observed surface (the mechanism that later
+    failed had not failed then), with the sections' water lines of that time. A locus point
+    survives when it has a solution and passes every stood time. Between two neighbouring
+    points on either side of a stood limit, the limit itself (F = 1 at the stood time, along
+    the F = 1 locus at failure) is found by root finding on phi' (cohesion_friction form).
+
+    Parameters
+    ----------
+    slips : ObservedSlip or sequence
+        The observed slips at failure (same order as each condition's sections).
+    locus : Locus
+    stood : sequence of StoodCondition
+    settings : BackAnalysisSettings, optional
+
+    Returns
+    -------
+    HistoryResult
+    """
+    slips = _as_slips(slips)
+    settings = settings or BackAnalysisSettings(method=locus.method)
+    checks = []
+    for condition in stood:
+        models = _stood_models(slips, condition, locus, settings)
+        fos = _lowest_fos(models, locus.cohesion, locus.friction_angle, locus.undrained_strength)
+        fos = np.where(locus.found, fos, np.nan)
+        checks.append(HistoryCheck(condition.label, fos, np.asarray(fos >= 1.0)))
+    surviving = locus.found.copy()
+    for check in checks:
+        surviving &= check.stood
+    limits = ()
+    if locus.form == "cohesion_friction" and stood:
+        failure_models = [_SlipModel(s, locus.material, locus.form, settings) for s in slips]
+        limits = _stood_limits(failure_models, slips, locus, stood, checks, settings)
+    return HistoryResult(
+        checks=tuple(checks),
+        surviving=surviving,
+        friction_range=_extent(locus.friction_angle, surviving, locus.form != "undrained"),
+        cohesion_range=_extent(locus.cohesion, surviving, locus.form != "undrained"),
+        undrained_range=_extent(locus.undrained_strength, surviving, locus.form == "undrained"),
+        limits=limits,
+    )
+
+
+def _stood_models(slips, condition: StoodCondition, locus: Locus, settings) -> list[_SlipModel]:
+    if len(condition.sections) != len(slips):
+        raise BackAnalysisError(
+            f"stood time {condition.label!r} gives {len(condition.sections)} section(s) for "
+            f"{len(slips)} observed slip(s); give one per slip, in the same order"
+        )
+    return [
+        _SlipModel(ObservedSlip(section, s.surface, s.name), locus.material, locus.form, settings)
+        for s, section in zip(slips, condition.sections)
+    ]
+
+
+def _lowest_fos(models, cohesion, friction_angle, undrained_strength) -> np.ndarray:
+    c = np.nan_to_num(cohesion)
+    phi = np.nan_to_num(friction_angle)
+    su = np.nan_to_num(undrained_strength)
+    lowest = np.full(np.size(c), np.inf)
+    for model in models:
+        solved = model.fos(c, phi, su)
+        # A section without a converged F leaves the point undecided (NaN), never "stood".
+        lowest = np.minimum(lowest, np.where(solved.converged, solved.fos, np.nan))
+    return lowest
+
+
+def _stood_limits(failure_models, slips, locus, stood, checks, settings) -> tuple[dict, ...]:
+    limits = []
+    phi = locus.friction_angle
+    for condition, check in zip(stood, checks):
+        models = _stood_models(slips, condition, locus, settings)
+        for i in range(locus.n_points - 1):
+            a, b = check.stood[i], check.stood[i + 1]
+            if not (locus.found[i] and locus.found[i + 1]) or a == b:
+                continue
+
+            def excess(p):
+                point = _solve_locus(failure_models, "cohesion_friction", np.array([p]),
+                                     settings, locus.material)
+                if not point.found[0]:
+                    raise _NoFos(p)
+                fos = _lowest_fos(models, point.cohesion, point.friction_angle,
+                                  point.undrained_strength)[0]
+                if not np.isfinite(fos):
+                    raise _NoFos(p)
+                return fos - 1.0
+
+            try:
+                p = optimize.brentq(excess, phi[i], phi[i + 1], xtol=1e-3)
+            except (_NoFos, ValueError):
+                continue
+            point = _solve_locus(failure_models, "cohesion_friction", np.array([p]), settings,
+                                 locus.material)
+            limits.append({"label": condition.label, "friction_angle": float(p),
+                           "cohesion": float(point.cohesion[0]),
+                           "surviving_side": "above" if b else "below"})
+    return tuple(limits)
+
+
+def _extent(values: np.ndarray, keep: np.ndarray, applies: bool):
+    if not applies or not keep.any():
+        return None
+    chosen = values[keep]
+    return (float(np.min(chosen)), float(np.max(chosen)))
+
+
+# --------------------------------------------------------------------------------------------
+# Sensitivity
+
+
+def sensitivity(
+    slips: Sequence[ObservedSlip] | ObservedSlip,
+    locus: Locus,
+    *,
+    water_change: float | None = 0.5,
+    unit_weight_change: float | None = 1.0,
+    best: LocusMatch | None = None,
+    settings: BackAnalysisSettings | None = None,
+) -> tuple[SensitivityCase, ...]:
+    """How the locus moves with the water level and the unit weight.
+
+    The locus is solved again (same fixed parameters, same observed surfaces) with every water
+    line of every section raised and lowered by ``water_change`` [m], then with the unit
+    weights (above and below the water line) of every material raised and lowered by
+    ``unit_weight_change`` [kN/m3]. Materials with ru are not affected by the water change
+    (their pore pressure follows the overburden). The surface match is not repeated: the
+    change is read at the best fit's fixed parameter.
+
+    Parameters
+    ----------
+    slips : ObservedSlip or sequence
+    locus : Locus
+    water_change : float or None
+        [m] > 0; None skips the water cases.
+    unit_weight_change : float or None
+        [kN/m3] > 0; None skips the unit-weight cases.
+    best : LocusMatch, optional
+        The best fit (its phi' for the cohesion_friction form); default the middle of the
+        solved locus.
+    settings : BackAnalysisSettings, optional
+
+    Returns
+    -------
+    tuple of SensitivityCase
+    """
+    slips = _as_slips(slips)
+    settings = settings or BackAnalysisSettings(method=locus.method)
+    for name, value in (("water_change", water_change), ("unit_weight_change", unit_weight_change)):
+        if value is not None and not (math.isfinite(value) and value > 0):
+            raise BackAnalysisError(f"{name} = {value!r} must be a positive number (or omitted)")
+    fixed = _fixed_of(locus)
+    best_fixed, best_value = _best_point(locus, best)
+    cases = []
+    variants = []
+    if water_change is not None:
+        for sign in (+1, -1):
+            change = sign * water_change
+            variants.append((f"water lines {change:+.2f} m", "water level", change,
+                             lambda s, d=change: _shift_water(s, d)))
+    if unit_weight_change is not None:
+        for sign in (+1, -1):
+            change = sign * unit_weight_change
+            variants.append((f"unit weights {change:+.2f} kN/m3", "unit weight", change,
+                             lambda s, d=change: _shift_unit_weight(s, d)))
+    for label, quantity, change, transform in variants:
+        changed = [ObservedSlip(transform(s.section), s.surface, s.name) for s in slips]
+        models = [_SlipModel(s, locus.material, locus.form, settings) for s in changed]
+        moved = _solve_locus(models, locus.form, fixed, settings, locus.material).values()
+        at_best = _solve_locus(models, locus.form, np.array([best_fixed]), settings,
+                               locus.material).values()[0]
+        cases.append(SensitivityCase(label, quantity, change, moved, float(at_best),
+                                     float(at_best - best_value)))
+    return tuple(cases)
+
+
+def _fixed_of(locus: Locus) -> np.ndarray:
+    if locus.form == "cohesion_friction":
+        return locus.friction_angle
+    if locus.form == "friction":
+        return locus.cohesion
+    return np.full(locus.n_points, np.nan)
+
+
+def _best_point(locus: Locus, best: LocusMatch | None) -> tuple[float, float]:
+    """(fixed parameter, solved value) of the best fit, or of the middle solved point."""
+    if best is not None:
+        strength = {"cohesion": best.cohesion, "friction_angle": best.friction_angle,
+                    "undrained_strength": best.undrained_strength}
+    else:
+        solved = np.flatnonzero(locus.found)
+        strength = locus.point(int(solved[solved.size // 2]))
+    fixed = {"cohesion_friction": "friction_angle", "friction": "cohesion",
+             "undrained": "undrained_strength"}[locus.form]
+    return strength[fixed], strength[locus.solved]
+
+
+def _shift_water(section: Section, change: float) -> Section:
+    return section.with_water_lines(
+        {line.name: line.points + np.array([0.0, change]) for line in section.water_lines}
+    )
+
+
+def _shift_unit_weight(section: Section, change: float) -> Section:
+    data = section_to_dict(section)
+    for item in data["material"]:
+        for key in ("unit_weight", "unit_weight_saturated"):
+            if item[key] + change <= 0:
+                raise BackAnalysisError(
+                    f"unit_weight_change = {change:+g} kN/m3 would make {key} of material "
+                    f"{item['name']!r} ({item[key]:g} kN/m3) non-positive"
+                )
+            item[key] += change
+    return section_from_dict(data)
+
+
+# --------------------------------------------------------------------------------------------
+# The whole back-analysis
+
+
+def back_analyse(
+    slips: Sequence[ObservedSlip] | ObservedSlip,
+    material: str,
+    form: str = "cohesion_friction",
+    *,
+    friction_angles=None,
+    cohesion: float = 0.0,
+    stood: Sequence[StoodCondition] = (),
+    settings: BackAnalysisSettings | None = None,
+    match: MatchSettings | None = None,
+    water_change: float | None = 0.5,
+    unit_weight_change: float | None = 1.0,
+    progress: Callable[[int, int, str], None] | None = None,
+) -> BackAnalysisResult:
+    """Back-analyse a slip: locus, surface match and best fit, history, sensitivity.
+
+    Parameters
+    ----------
+    slips : ObservedSlip or sequence
+        Sections through the slip (water at failure) with the observed surfaces.
+    material : str
+        Material whose strength is sought.
+    form : {"cohesion_friction", "friction", "undrained"}
+    friction_angles : array_like
+        [deg] phi' of the locus points (cohesion_friction form).
+    cohesion : float
+        [kPa] c' held fixed in the friction form.
+    stood : sequence of StoodCondition
+        Times when the slope stood (F >= 1 then).
+    settings : BackAnalysisSettings, optional
+    match : MatchSettings or None
+        Surface-match settings; None skips the surface match (no best fit then).
+    water_change : float or None
+        [m] Sensitivity to the water level (None: skip).
+    unit_weight_change : float or None
+        [kN/m3] Sensitivity to the unit weights (None: skip).
+    progress : callable(done, total, label), optional
+        Progress of the surface match.
+
+    Returns
+    -------
+    BackAnalysisResult
+    """
+    slips = _as_slips(slips)
+    settings = settings or BackAnalysisSettings()
+    locus = fos_unity_locus(slips, material, form, friction_angles=friction_angles,
+                            cohesion=cohesion, settings=settings)
+    matches, best = ((), None)
+    if match is not None:
+        matches, best = match_locus(slips, locus, settings=settings, match=match,
+                                    progress=progress)
+    history = history_constraints(slips, locus, stood, settings=settings) if stood else None
+    cases = sensitivity(slips, locus, water_change=water_change,
+                        unit_weight_change=unit_weight_change, best=best, settings=settings)
+    return BackAnalysisResult(
+        form=form, material=material, method=settings.method, locus=locus, matches=matches,
+        best=best, history=history, sensitivity=cases, slips=tuple(s.name for s in slips),
+        notes=_notes(locus, best, history, stood, slips, settings),
+    )  # fmt: skip
+
+
+def _notes(locus, best, history, stood, slips, settings) -> tuple[str, ...]:
+    notes = []
+    if not locus.found.all():
+        missing = int((~locus.found).sum())
+        notes.append(f"{missing} of {locus.n_points} locus points have no strength in the "
+                     "range that gives F = 1 (see their messages)")
+    if best is not None:
+        worst_fos = min(f.critical_fos for f in best.fits)
+        if worst_fos < 0.95:
+            notes.append(
+                f"with the best-fit strength the critical surface has F = {worst_fos:.2f}, well "
+                "below 1: the observed surface is not the critical one for any point searched; "
+                "check the observed surface and the water at failure"
+            )
+        if history is not None:
+            index = _nearest_point(locus, best)
+            if index is not None and not history.surviving[index]:
+                notes.append("the best-fit strength does not satisfy every stood time: the "
+                             "history and the surface position disagree")
+    if history is not None and not history.surviving.any():
+        notes.append("no locus point satisfies every stood time: the record is inconsistent "
+                     "with the water lines used, or the slip surface was not the one that "
+                     "would have failed then")
+    if len(slips) > 1 and locus.by_section:
+        spread = np.nanmax(np.abs(np.array(list(locus.by_section.values()))
+                                  - locus.values()[None, :]))
+        if np.isfinite(spread):
+            notes.append(f"the sections' own loci differ from the joint locus by up to "
+                         f"{spread:.2f} ({_SOLVED_SYMBOL[locus.form]})")
+    return tuple(notes)
+
+
+def _nearest_point(locus: Locus, best: LocusMatch) -> int | None:
+    if locus.form != "cohesion_friction":
+        return 0
+    solved = np.flatnonzero(locus.found)
+    if solved.size == 0:
+        return None
+    return int(solved[np.argmin(np.abs(locus.friction_angle[solved] - best.friction_angle))])
+
+
+# --------------------------------------------------------------------------------------------
+# Helpers
+
+
+def _as_slips(slips) -> list[ObservedSlip]:
+    if isinstance(slips, ObservedSlip):
+        return [slips]
+    slips = list(slips)
+    if not slips:
+        raise BackAnalysisError("give at least one observed slip")
+    names = [s.name for s in slips]
+    if len(set(names)) != len(names):
+        raise BackAnalysisError(f"observed slips need distinct names, got {names}")
+    return slips
+
+
+def _check_form(form: str) -> None:
+    if form not in FORMS:
+        raise BackAnalysisError(f"unknown form {form!r}; valid forms: {', '.join(FORMS)}")
+
+
+def _method_options(settings: BackAnalysisSettings) -> dict:
+    parameters = inspect.signature(getattr(methods, settings.method)).parameters
+    options = {"tolerance": settings.tolerance, "max_iterations": settings.max_iterations}
+    return {name: value for name, value in options.items() if name in parameters}
+
+
+def _positive_int(name: str, value) -> None:
+    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+        raise MethodError(f"{name} must be a positive integer, got {value!r}")
+
+
+def _pair(name: str, value) -> tuple[float, float]:
+    try:
+        low, high = (float(v) for v in value)
+    except (TypeError, ValueError):
+        raise MethodError(f"{name} must be a pair (low, high), got {value!r}") from None
+    return low, high
