@@ -35,6 +35,9 @@ __all__ = [
     "evaluate",
     "notifiable",
     "is_chattering",
+    "AlertView",
+    "Announcement",
+    "announcements",
 ]
 
 
@@ -268,3 +271,89 @@ def is_chattering(record: AlertRecord, window: timedelta, max_changes: int, now:
     before ``now`` (a flapping signal, or a deadband too narrow for the noise)."""
     recent = [t for t in record.changes if now - t <= window]
     return len(recent) > max_changes
+
+
+@dataclass(frozen=True)
+class AlertView:
+    """What the announcement rules need to know of one alert of a section, after a cycle.
+
+    ``kind`` is "level" for the owner's trigger levels (which escalate, de-escalate and
+    suppress one another by ``rank``) and "data" for data-quality alerts (which stand apart).
+    ``notified_episode`` is the firing episode people were last told about.
+    """
+
+    rule_name: str
+    kind: str
+    rank: int
+    state: AlertState
+    episode: int
+    notified_episode: int = 0
+    shelved: bool = False
+
+    @property
+    def told(self) -> bool:
+        """People were told that the current episode fires."""
+        return self.episode > 0 and self.notified_episode == self.episode
+
+
+@dataclass(frozen=True)
+class Announcement:
+    """A notification due for a transition: kind is one of firing, escalated, resolved,
+    de-escalated, data (a data-quality alert firing); ``also_told`` lists alerts that the
+    message reports as standing (a de-escalation names the level that still fires), which
+    count as notified from then on."""
+
+    transition: Transition
+    kind: str
+    also_told: tuple[str, ...] = ()
+
+
+def announcements(transitions: list[Transition], alerts: dict[str, AlertView]) -> list[Announcement]:
+    """The notifications due for one section's transitions of one cycle.
+
+    Rules (issue 6): one notification per state change that people must hear about; a firing
+    of the owner's levels is suppressed while a higher level of the section fires (it is
+    reported as "escalated" when a lower level had been announced); a shelved alert's firing
+    is held until it is un-shelved; every firing that was announced gets its resolution
+    ("de-escalated" while a lower level still fires, else "resolved"), shelved or not, so no
+    one is left believing an alarm stands. Missing data never resolve anything (see
+    :func:`evaluate`).
+
+    Parameters
+    ----------
+    transitions : list of Transition
+        The section's state changes of this cycle.
+    alerts : dict of str to AlertView
+        Every alert of the section by rule name, *after* the cycle's evaluation, with
+        ``notified_episode`` as it was *before* the cycle.
+    """
+    levels = [a for a in alerts.values() if a.kind == "level"]
+    top = max((a.rank for a in levels if a.state is AlertState.FIRING), default=-1)
+    told = {a.rule_name for a in alerts.values() if a.told}
+    result = []
+    for transition in sorted(transitions, key=lambda t: (t.new is AlertState.FIRING, t.rank)):
+        view = alerts[transition.rule_name]
+        if transition.new is AlertState.FIRING:
+            if view.shelved or (view.kind == "level" and transition.rank < top):
+                continue
+            if view.kind == "data":
+                result.append(Announcement(transition, "data"))
+            else:
+                lower_told = any(a.rule_name in told and a.state is AlertState.FIRING
+                                 and a.rank < transition.rank for a in levels)  # fmt: skip
+                result.append(Announcement(transition, "escalated" if lower_told else "firing"))
+            told.add(transition.rule_name)
+        elif transition.new is AlertState.RESOLVED and view.notified_episode == transition.episode:
+            told.discard(transition.rule_name)
+            standing = sorted(
+                (a for a in levels if a.state is AlertState.FIRING and a.rank < transition.rank
+                 and a.rule_name != transition.rule_name),
+                key=lambda a: -a.rank,
+            ) if view.kind == "level" else []  # fmt: skip
+            if standing and top < transition.rank:
+                result.append(Announcement(transition, "de-escalated",
+                                           tuple(a.rule_name for a in standing)))
+                told.update(a.rule_name for a in standing)
+            else:
+                result.append(Announcement(transition, "resolved"))
+    return result

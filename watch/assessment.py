@@ -8,6 +8,7 @@ assessment records, triggers and notifications around it.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import timedelta
 
@@ -18,8 +19,9 @@ from solver.errors import SearchError
 from solver.search import SearchResult, warm_reevaluate
 from solver.section import Section
 from watch.analysis import AnalysisResult, analyse
-from watch.config import Piezometer, SiteConfig
-from watch.groundwater import SideRule, WaterLineEstimate, build_water_line, latest_heads
+from watch.config import Piezometer, SiteConfig, WaterLineSettings
+from watch.groundwater import DEFAULT_SIDE_RULE, WaterLineEstimate
+from watch.waterlines import water_lines_for, water_lines_through
 
 __all__ = [
     "DEFAULT_SIDE_RULE",
@@ -27,11 +29,6 @@ __all__ = [
     "water_lines_at",
     "assess_through_time",
 ]
-
-#: Beyond the outermost instrument of a water line, the line keeps the shape of the section's
-#: design line, shifted by that instrument's departure from it. A design line drawn by the
-#: engineer carries the site's drainage pattern; one instrument tells how far it has risen.
-DEFAULT_SIDE_RULE = SideRule.parallel_to_design_line()
 
 
 @dataclass(frozen=True)
@@ -54,8 +51,13 @@ def water_lines_at(
     readings: pd.DataFrame,
     at,
     default_max_age: timedelta,
+    settings: Sequence[WaterLineSettings] = (),
 ) -> dict[str, WaterLineEstimate]:
     """Every water line of ``section`` at time ``at``, rebuilt from the stored heads.
+
+    Kept for callers without a site configuration at hand; it delegates to
+    :func:`watch.waterlines.water_lines_through`. With the site file, use
+    :func:`watch.waterlines.water_lines_for`, which applies the configured side rules.
 
     Parameters
     ----------
@@ -68,29 +70,12 @@ def water_lines_at(
     at : time (UTC)
     default_max_age : timedelta
         Oldest usable reading for piezometers without their own ``max_age_hours``.
+    settings : sequence of WaterLineSettings
+        Side rules and maximum ages per line (default: parallel to the design line).
     """
-    ours = [p for p in piezometers if p.section == section.id]
-    max_age = {
-        p.id: timedelta(hours=p.max_age_hours) if p.max_age_hours else default_max_age
-        for p in ours
-    }
-    snapshot = latest_heads(readings, at, max_age, instruments=[p.id for p in ours])
-    heads = snapshot.head_by_instrument
-    reasons = snapshot.reasons
-    lines = {}
-    for line in section.water_lines:
-        on_line = {p.id: p.offset for p in ours if p.water_line == line.name}
-        lines[line.name] = build_water_line(
-            on_line,
-            {i: h for i, h in heads.items() if i in on_line},
-            section.ground,
-            DEFAULT_SIDE_RULE,
-            DEFAULT_SIDE_RULE,
-            design_points=line.points,
-            allow_ponding=section.pond,
-            exclusions={i: r for i, r in reasons.items() if i in on_line},
-        )
-    return lines
+    return water_lines_through(
+        section, piezometers, readings, at, default_max_age=default_max_age, settings=settings
+    )
 
 
 def assess_through_time(
@@ -107,11 +92,10 @@ def assess_through_time(
     search whenever the warm result advises one (the factor of safety moved beyond the
     tolerance, or another cached surface became critical).
     """
-    default_age = timedelta(hours=config.ingest.stale_hours)
     results: list[SectionAssessment] = []
     last_search: SearchResult | None = None
     for at in pd.DatetimeIndex(times):
-        lines = water_lines_at(section, config.piezometers, readings, at, default_age)
+        lines = water_lines_for(section, config, readings, at)
         current = section.with_water_lines({name: est.points for name, est in lines.items()})
         reasons: tuple[str, ...] = ()
         if last_search is not None:

@@ -28,6 +28,11 @@ _COMMAND_MODULES = [
     "watch.commands_demo",
     "watch.commands_store",
     "watch.commands_analyse",
+    "watch.commands_forecast",
+    "watch.commands_daemon",
+    "watch.commands_board",
+    "watch.commands_backcalc",
+    "watch.commands_watch",
 ]
 
 

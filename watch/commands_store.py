@@ -121,20 +121,28 @@ def backup(destination: Path, workspace: Path) -> None:
 @workspace_option
 @json_option
 def status(workspace: Path, as_json: bool) -> None:
-    """Show each instrument's newest reading, its age and whether it is stale, and the files
-    waiting in incoming/.
+    """Show every section, worst first (factor of safety, level, trend, age of the newest
+    reading, open alerts and inspections, data problems), then each instrument's newest
+    reading, its age and whether it is stale, and the files waiting in incoming/.
 
     \b
     Example:
         slipwatch status --workspace /srv/slipwatch/quillmarsh --json
     """
+    from watch.caution import CAUTION
+    from watch.clock import SystemClock
     from watch.ingest import workspace_status
+    from watch.section_status import format_sections, sections_status
     from watch.workspace import open_workspace
 
-    result = workspace_status(open_workspace(workspace))
+    ws, now = open_workspace(workspace), SystemClock().now()
+    result = workspace_status(ws, now)
+    result["sections"] = sections_status(ws, now)
     if as_json:
-        echo_json(result)
+        echo_json(result | {"caution": CAUTION})
         return
+    for line in format_sections(result["sections"])[:-1]:
+        click.echo(line)
     click.echo(f"site {result['site']} at {result['now_utc']} (stale after {result['stale_hours']:g} h)")
     for row in result["instruments"]:
         age = "never" if row["age_hours"] is None else f"{row['age_hours']:.1f} h ago"
@@ -142,6 +150,7 @@ def status(workspace: Path, as_json: bool) -> None:
         click.echo(f"  {row['instrument_id']:<12} {row['kind']:<10} newest {row['newest_utc'] or '-':<20} "
                    f"{age:<12} {row['readings']} readings, {row['flagged']} flagged{flag}")  # fmt: skip
     click.echo(f"incoming: {len(result['incoming'])} file(s) waiting; claimed: {len(result['claimed'])}")
+    click.echo(CAUTION)
 
 
 def _utc_option(text: str | None, option: str) -> str | None:

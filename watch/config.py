@@ -17,6 +17,7 @@ from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from watch.errors import ConfigError
+from watch.groundwater import DEFAULT_SIDE_RULE, SideRule
 
 __all__ = [
     "PIEZOMETER_READINGS",
@@ -24,6 +25,7 @@ __all__ = [
     "FEED_LAYOUTS",
     "SiteConfig",
     "SectionRef",
+    "WaterLineSettings",
     "VibratingWireCalibration",
     "Piezometer",
     "RainGauge",
@@ -46,13 +48,41 @@ FEED_LAYOUTS = ("wide", "long")
 
 
 @dataclass(frozen=True)
+class WaterLineSettings:
+    """How the service draws one water line of a section from its piezometers
+    (``[[section.water_line]]``).
+
+    Attributes
+    ----------
+    name : str
+        The section file's ``[[water_line]]`` it applies to.
+    left, right : watch.groundwater.SideRule
+        The rule beyond the outermost instrument towards smaller / larger x.
+    max_age_hours : float or None
+        Oldest usable reading [h] for this line's piezometers that have no ``max_age_hours``
+        of their own (None: the site's ``[ingest] stale_hours``).
+    """
+
+    name: str
+    left: SideRule
+    right: SideRule
+    max_age_hours: float | None = None
+
+
+@dataclass(frozen=True)
 class SectionRef:
-    """A cross-section of the site: its file (solver format) and serving rain gauge."""
+    """A cross-section of the site: its file (solver format), serving rain gauge and how its
+    water lines are drawn from the piezometers."""
 
     id: str
     file: str
     gauge: str | None = None
     location: tuple[float, float] | None = None
+    water_lines: tuple[WaterLineSettings, ...] = ()
+
+    def water_line_settings(self, name: str) -> WaterLineSettings | None:
+        """The settings of the water line ``name``, or None when the site file gives none."""
+        return next((w for w in self.water_lines if w.name == name), None)
 
 
 @dataclass(frozen=True)
@@ -233,14 +263,69 @@ def parse_site_config(data: dict, source: str = "site.toml", path: Path | None =
 
 def _section(r: _Reader, t: dict, i: int) -> SectionRef:
     where = _where("section", t, i)
-    r.keys(t, where, {"id", "file", "gauge", "location"})
+    r.keys(t, where, {"id", "file", "gauge", "location", "water_line"})
     sid = r.get(t, where, "id", str)
+    lines = tuple(
+        _water_line_settings(r, line, f"{where} water_line #{k + 1}")
+        for k, line in enumerate(r.array(t, "water_line"))
+    )
+    names = [line.name for line in lines]
+    for name in names:
+        if names.count(name) > 1:
+            r.fail(f"{where} water_line {name!r}", "name", "is used more than once")
     return SectionRef(
         id=sid,
         file=r.get(t, where, "file", str),
         gauge=r.get(t, where, "gauge", str, default=None),
         location=r.pair(t, where, "location", default=None),
+        water_lines=lines,
     )
+
+
+#: Keys of a side rule ``{rule = ..., ...}`` besides ``rule``, by rule.
+_SIDE_RULE_KEYS = {
+    "hold level": set(),
+    "below ground": {"depth"},
+    "fixed level": {"level", "from"},
+    "design line": set(),
+    "parallel to design line": set(),
+}
+
+
+def _water_line_settings(r: _Reader, t: dict, where: str) -> WaterLineSettings:
+    r.keys(t, where, {"name", "left", "right", "max_age_hours"})
+    name = r.get(t, where, "name", str)
+    where = where.rsplit(" water_line", 1)[0] + f" water_line {name!r}"
+    age = r.number(t, where, "max_age_hours", default=None)
+    if age is not None and age <= 0:
+        r.fail(where, "max_age_hours", f"must be > 0, got {age}")
+    left, right = (_side_rule(r, r.table(t, side, f"{where} {side}"), where, side)
+                   for side in ("left", "right"))  # fmt: skip
+    return WaterLineSettings(name=name, left=left, right=right, max_age_hours=age)
+
+
+def _side_rule(r: _Reader, t: dict, where: str, side: str) -> SideRule:
+    """``{rule = "...", depth/level/from = ...}``; an absent side keeps the default rule."""
+    if not t:
+        return DEFAULT_SIDE_RULE
+    rule = r.choice(t, f"{where} {side}", "rule", tuple(_SIDE_RULE_KEYS))
+    allowed = _SIDE_RULE_KEYS[rule]
+    for key in sorted(set(t) - {"rule"}):
+        if key not in allowed:
+            hint = f"valid with rule {rule!r}: {', '.join(sorted(allowed))}" if allowed else (
+                f"rule {rule!r} takes no other key")
+            r.fail(f"{where} {side}", key, f"is unknown ({hint})")
+    if rule == "below ground":
+        depth = r.number(t, f"{where} {side}", "depth")
+        if depth < 0:
+            r.fail(f"{where} {side}", "depth", f"must be >= 0 m below the ground, got {depth}")
+        return SideRule.below_ground(depth)
+    if rule == "fixed level":
+        return SideRule.fixed_level(
+            r.number(t, f"{where} {side}", "level"),
+            r.number(t, f"{where} {side}", "from", default=None),
+        )
+    return SideRule(rule)
 
 
 def _piezometer(r: _Reader, t: dict, i: int) -> Piezometer:

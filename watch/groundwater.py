@@ -317,6 +317,13 @@ class SideRule:
         return self.kind
 
 
+#: Beyond the outermost instrument of a water line, unless the site file says otherwise, the line
+#: keeps the shape of the section's design line, shifted by that instrument's departure from it.
+#: A design line drawn by the engineer carries the site's drainage pattern; one instrument tells
+#: how far it has risen.
+DEFAULT_SIDE_RULE = SideRule.parallel_to_design_line()
+
+
 @dataclass(frozen=True)
 class WaterLineEstimate:
     """One water regime's piezometric line at one time, and how it was drawn.
@@ -342,6 +349,12 @@ class WaterLineEstimate:
         Instruments of this line left out, with the reason.
     warnings : tuple of str
         Anything a reviewer should know (heads above the ground clipped, for example).
+    readings : tuple of dict
+        What the heads came from, one dict per instrument used, so the line traces back to
+        the feed: for measured heads ``instrument_id``, ``time_utc``, ``head_m``,
+        ``source_file_id``, ``source_line`` (and ``source_file`` when known); for
+        rainfall-model heads the model and the reading it started from. Filled by
+        :mod:`watch.waterlines`; empty from :func:`build_water_line` alone.
     """
 
     points: np.ndarray
@@ -354,6 +367,7 @@ class WaterLineEstimate:
     fallback_reason: str
     excluded: dict[str, str]
     warnings: tuple[str, ...] = ()
+    readings: tuple[dict, ...] = ()
 
     def elevation_at(self, x) -> np.ndarray:
         """Elevation of the line [m] at offsets ``x`` [m] (linear between vertices)."""

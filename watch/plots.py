@@ -22,6 +22,9 @@ STRATA_COLOURS = ("#E69F00", "#009E73", "#F0E442", "#CC79A7", "#D55E00", "#56B4E
 _LIGHTEN = 0.45
 WATER_COLOUR = "#0072B2"
 SURFACE_COLOUR = "#000000"
+#: A second set of water lines (another time): the palette's sky blue.
+OTHER_WATER_COLOUR = "#56B4E9"
+ALTERNATIVE_COLOUR = "#777777"
 #: Approximate width of the drawing area of a 10 inch wide figure [in].
 _AXES_WIDTH_IN = 8.8
 
@@ -35,6 +38,11 @@ def plot_section(
     method: str | None = None,
     slices=None,
     dpi: int = 150,
+    line_label: str = "Water line '{name}'",
+    other_lines: dict | None = None,
+    other_label: str = "Water line '{name}' (other time)",
+    alternatives=(),
+    title: str | None = None,
 ) -> Path:
     """Draw ``section`` with its strata, water lines and an optional slip surface to a PNG.
 
@@ -52,6 +60,15 @@ def plot_section(
         Slice table of the surface (one surface); slice boundaries are drawn from the surface
         up to the ground.
     dpi : int
+    line_label : str
+        Legend label of the section's water lines; ``{name}`` is replaced by the line name.
+    other_lines : dict of str to ndarray (k, 2), optional
+        A second set of water lines [m] (for example at the season's lowest factor of safety),
+        drawn in a lighter blue with markers, labelled with ``other_label``.
+    alternatives : sequence of (surface, fos)
+        Next-best slip surfaces, drawn thin and grey with their factor of safety [-].
+    title : str, optional
+        Figure title instead of the default "Section <id>: factor of safety ...".
 
     Returns
     -------
@@ -86,8 +103,21 @@ def plot_section(
     dashes = ("--", ":", "-.", (0, (6, 2, 1, 2)))
     for i, line in enumerate(section.water_lines):
         (drawn,) = ax.plot(*line.points.T, color=WATER_COLOUR, linewidth=1.4,
-                           linestyle=dashes[i % len(dashes)], label=f"Water line '{line.name}'")
+                           linestyle=dashes[i % len(dashes)], label=line_label.format(name=line.name))
         handles.append(drawn)
+    for i, (name, points) in enumerate((other_lines or {}).items()):
+        points = np.asarray(points, dtype=float)
+        # Markers as well as a lighter blue: the two sets stay apart in grey print.
+        (drawn,) = ax.plot(*points.T, color=OTHER_WATER_COLOUR, linewidth=1.2,
+                           linestyle=dashes[i % len(dashes)], marker="v", markersize=4,
+                           markevery=max(1, len(points) // 8), label=other_label.format(name=name))
+        handles.append(drawn)
+    for alternative, alternative_fos in alternatives:
+        points = _surface_points(alternative, section)
+        if len(points):
+            (drawn,) = ax.plot(*points.T, color=ALTERNATIVE_COLOUR, linewidth=1.0,
+                               label=f"Next-best surface (FoS {alternative_fos:.2f})")
+            handles.append(drawn)
     if surface_points is not None:
         if slices is not None:
             ax.add_collection(_slice_lines(slices, surface, section))
@@ -103,17 +133,22 @@ def plot_section(
     ax.set_aspect("equal", adjustable="box")
     ax.set_xlabel("Offset along section [m]")
     ax.set_ylabel("Elevation [m]")
-    title = f"Section {section.id}"
-    if fos is not None:
-        title += f": factor of safety {fos:.2f}" + (f" ({method})" if method else "")
+    if title is None:
+        title = f"Section {section.id}"
+        if fos is not None:
+            title += f": factor of safety {fos:.2f}" + (f" ({method})" if method else "")
     fig.suptitle(title)
     ax.grid(True, color="#DDDDDD", linewidth=0.5)
     ax.set_axisbelow(True)
-    # The legend goes below the drawing, where it can never hide the slope; the caution is the
-    # figure's bottom label, so the layout keeps room for both.
-    ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.16),
-              ncols=min(4, len(handles)), fontsize=8, frameon=False)
-    fig.supxlabel(CAUTION_SHORT, fontsize=7, color="#444444")
+    # The legend goes below the drawing, where it can never hide the slope ("outside": the
+    # constrained layout makes room for every row of it); the caution sits in a strip at the
+    # foot of the figure that the layout leaves free.
+    strip = 0.28 / fig.get_figheight()
+    fig.get_layout_engine().set(rect=(0, strip, 1, 1 - strip))
+    fig.legend(handles=handles, loc="outside lower center", ncols=min(4, len(handles)),
+               fontsize=8, frameon=False)
+    fig.text(0.5, 0.02 * strip, CAUTION_SHORT, ha="center", va="bottom", fontsize=7,
+             color="#444444")
     fig.savefig(path, dpi=dpi)
     plt.close(fig)
     return path
@@ -237,6 +272,86 @@ def plot_fos_history(
     figure.autofmt_xdate()
     figure.text(0.5, 0.005, CAUTION_SHORT, ha="center", va="bottom", fontsize=7, color="#444444")
     figure.tight_layout(rect=(0, 0.03, 1, 1))
+    path = Path(path)
+    figure.savefig(path, dpi=dpi)
+    plt.close(figure)
+    return path
+
+
+#: Colours of instruments drawn together (Okabe and Ito 2008), with a dash pattern each.
+_SERIES_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#000000")
+_SERIES_DASHES = ("-", "--", "-.", ":")
+
+
+def plot_heads(
+    title: str,
+    series: dict[str, tuple],
+    path: Path,
+    *,
+    levels: dict[str, float] | None = None,
+    dpi: int = 150,
+) -> Path:
+    """Piezometric heads of several instruments through time, with their trigger levels, to a PNG.
+
+    Parameters
+    ----------
+    title : str
+    series : dict of str to (times, head_m)
+        Per instrument id: reading times (UTC) and heads [m] (elevation of water).
+    path : Path
+        Output file (PNG).
+    levels : dict of str to float, optional
+        Trigger levels on head [m] to draw as horizontal lines, by label.
+    """
+    figure, ax = plt.subplots(figsize=(10, 3.8))
+    for i, (name, (times, heads)) in enumerate(series.items()):
+        ax.plot(times, heads, color=_SERIES_COLOURS[i % len(_SERIES_COLOURS)],
+                linestyle=_SERIES_DASHES[i % len(_SERIES_DASHES)], linewidth=1.2, label=name)
+    for i, (label, value) in enumerate(sorted((levels or {}).items(), key=lambda kv: kv[1])):
+        ax.axhline(value, color="#D55E00", linestyle=("--", "-.", ":")[i % 3], linewidth=1.0,
+                   label=f"{label} ({value:.2f} m)")
+    ax.set_ylabel("Piezometric head [m]")
+    ax.set_xlabel("Date (UTC)")
+    ax.set_title(title)
+    ax.grid(True, color="#dddddd", linewidth=0.6)
+    if series or levels:
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, frameon=False)
+    figure.autofmt_xdate()
+    figure.text(0.5, 0.005, CAUTION_SHORT, ha="center", va="bottom", fontsize=7, color="#444444")
+    figure.tight_layout(rect=(0, 0.03, 1, 1))
+    path = Path(path)
+    figure.savefig(path, dpi=dpi)
+    plt.close(figure)
+    return path
+
+
+def plot_fos_trend(times, fos, path: Path, *, window_label: str, levels=None, dpi: int = 110) -> Path:
+    """A small trend plot of the factor of safety over a recent window (status board), to a PNG.
+
+    Parameters
+    ----------
+    times, fos : sequences
+        Assessment times (UTC) and factors of safety [-] inside the window.
+    path : Path
+    window_label : str
+        The window, e.g. "last 24 h"; shown under the plot.
+    levels : dict of str to float, optional
+        Trigger levels on the factor of safety [-], drawn as thin lines when inside the range.
+    """
+    figure, ax = plt.subplots(figsize=(2.8, 1.15))
+    ax.plot(times, fos, color="#000000", linewidth=1.2, marker="." if len(fos) < 30 else None)
+    low, high = (float(np.nanmin(fos)), float(np.nanmax(fos))) if len(fos) else (0.0, 1.0)
+    pad = max(0.02, 0.15 * (high - low))
+    for value in (levels or {}).values():
+        if low - pad <= value <= high + pad:
+            ax.axhline(value, color="#D55E00", linestyle="--", linewidth=0.8)
+    ax.set_ylim(low - pad, high + pad)
+    ax.set_ylabel("FoS [-]", fontsize=7)
+    ax.set_xlabel(f"{window_label} (UTC)", fontsize=7)
+    ax.tick_params(labelsize=6)
+    ax.set_xticks([])
+    ax.grid(True, axis="y", color="#dddddd", linewidth=0.5)
+    figure.tight_layout(pad=0.3)
     path = Path(path)
     figure.savefig(path, dpi=dpi)
     plt.close(figure)

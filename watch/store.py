@@ -183,6 +183,223 @@ MIGRATIONS: list[tuple[int, str, str]] = [
         );
         """,
     ),
+    (
+        2,
+        "water lines",
+        """
+        -- Every water line an assessment used, with the readings it was drawn through
+        -- (instrument, time_utc, head_m, source_file_id, source_line of each), so that any
+        -- factor of safety traces back to the feed rows. assessment_id is NULL for lines
+        -- stored outside an assessment (forecasts, replays).
+        CREATE TABLE water_lines (
+            id INTEGER PRIMARY KEY,
+            assessment_id INTEGER REFERENCES assessments(id),
+            section_id TEXT NOT NULL,
+            line_name TEXT NOT NULL,
+            time_utc TEXT NOT NULL,
+            points_json TEXT NOT NULL,
+            source TEXT NOT NULL,
+            fallback TEXT NOT NULL,
+            fallback_reason TEXT NOT NULL DEFAULT '',
+            readings_json TEXT NOT NULL,
+            details_json TEXT NOT NULL DEFAULT '{}',
+            created_utc TEXT NOT NULL
+        );
+        CREATE INDEX water_lines_assessment ON water_lines(assessment_id);
+        CREATE INDEX water_lines_section_time ON water_lines(section_id, time_utc);
+        -- Rainfall-response models calibrated per piezometer; the newest usable one of an
+        -- instrument forecasts its heads and stands in for it when its readings are unusable.
+        CREATE TABLE response_models (
+            id INTEGER PRIMARY KEY,
+            instrument_id TEXT NOT NULL,
+            gauge_id TEXT NOT NULL,
+            calibrated_utc TEXT NOT NULL,
+            record_start_utc TEXT NOT NULL,
+            record_end_utc TEXT NOT NULL,
+            step_h REAL NOT NULL,
+            base_head_m REAL NOT NULL,
+            gain_m_per_mm REAL NOT NULL,
+            recession_h REAL NOT NULL,
+            lag_steps INTEGER NOT NULL,
+            nse REAL,
+            rmse_m REAL,
+            min_nse REAL NOT NULL,
+            n_observations INTEGER NOT NULL,
+            missing_rain_steps INTEGER NOT NULL DEFAULT 0,
+            converged INTEGER NOT NULL,
+            usable INTEGER NOT NULL,
+            reason TEXT NOT NULL
+        );
+        CREATE INDEX response_models_instrument ON response_models(instrument_id, calibrated_utc);
+        """,
+    ),
+    (
+        3,
+        "assessment cycle",
+        """
+        -- An assessment records how its factor of safety was obtained and what it rests on;
+        -- inputs_key is a digest of those inputs (section version, readings used), so a cycle
+        -- whose inputs did not change does not calculate again.
+        ALTER TABLE assessments ADD COLUMN status TEXT NOT NULL DEFAULT 'ok';
+        ALTER TABLE assessments ADD COLUMN evaluation TEXT;
+        ALTER TABLE assessments ADD COLUMN fos_by_method_json TEXT NOT NULL DEFAULT '[]';
+        ALTER TABLE assessments ADD COLUMN warnings_json TEXT NOT NULL DEFAULT '[]';
+        ALTER TABLE assessments ADD COLUMN inputs_key TEXT;
+        ALTER TABLE assessments ADD COLUMN duration_s REAL;
+        -- The surfaces kept by each section's last full search, so that warm re-evaluation
+        -- survives a restart. One row per section, replaced by every full search.
+        CREATE TABLE search_cache (
+            section_id TEXT PRIMARY KEY REFERENCES sections(id),
+            section_version_id INTEGER REFERENCES section_versions(id),
+            time_utc TEXT NOT NULL,
+            search_json TEXT NOT NULL,
+            created_utc TEXT NOT NULL
+        );
+        -- alerts (migration 1) holds the stored state of every alert, one row per
+        -- (section, rule): the state machine record in state_json, the firing episode, what
+        -- was notified, acknowledgement and shelving.
+        ALTER TABLE alerts ADD COLUMN kind TEXT NOT NULL DEFAULT 'level';
+        ALTER TABLE alerts ADD COLUMN quantity TEXT;
+        ALTER TABLE alerts ADD COLUMN rank INTEGER NOT NULL DEFAULT 0;
+        ALTER TABLE alerts ADD COLUMN episode INTEGER NOT NULL DEFAULT 0;
+        ALTER TABLE alerts ADD COLUMN notified_episode INTEGER NOT NULL DEFAULT 0;
+        ALTER TABLE alerts ADD COLUMN last_value REAL;
+        ALTER TABLE alerts ADD COLUMN acknowledged_episode INTEGER;
+        ALTER TABLE alerts ADD COLUMN acknowledged_note TEXT;
+        ALTER TABLE alerts ADD COLUMN shelved_until_utc TEXT;
+        ALTER TABLE alerts ADD COLUMN shelved_by TEXT;
+        ALTER TABLE alerts ADD COLUMN shelved_reason TEXT;
+        ALTER TABLE alerts ADD COLUMN shelved_utc TEXT;
+        CREATE UNIQUE INDEX alerts_section_rule ON alerts(section_id, rule);
+        -- Every state change, acknowledgement and shelving of an alert.
+        CREATE TABLE alert_events (
+            id INTEGER PRIMARY KEY,
+            alert_id INTEGER NOT NULL REFERENCES alerts(id),
+            time_utc TEXT NOT NULL,
+            event TEXT NOT NULL,
+            old_state TEXT,
+            new_state TEXT,
+            episode INTEGER,
+            value REAL,
+            assessment_id INTEGER REFERENCES assessments(id),
+            by_name TEXT,
+            note TEXT,
+            created_utc TEXT NOT NULL
+        );
+        CREATE INDEX alert_events_alert ON alert_events(alert_id, time_utc);
+        -- Notifications queued in the same transaction as the change that causes them;
+        -- watch.notify delivers them and never edits these rows.
+        CREATE TABLE notification_outbox (
+            id INTEGER PRIMARY KEY,
+            idempotency_key TEXT NOT NULL UNIQUE,
+            site_id TEXT,
+            section_id TEXT,
+            alert_id INTEGER REFERENCES alerts(id),
+            kind TEXT NOT NULL CHECK (kind IN ('firing', 'resolved', 'escalated',
+                'de-escalated', 'repeat', 'inspection', 'data')),
+            level TEXT,
+            subject TEXT NOT NULL,
+            body TEXT NOT NULL,
+            payload_json TEXT NOT NULL,
+            created_utc TEXT NOT NULL
+        );
+        CREATE INDEX notification_outbox_alert ON notification_outbox(alert_id);
+        -- inspections (migration 1): one request per alert and firing episode.
+        ALTER TABLE inspections ADD COLUMN level TEXT;
+        ALTER TABLE inspections ADD COLUMN episode INTEGER;
+        ALTER TABLE inspections ADD COLUMN due_utc TEXT;
+        ALTER TABLE inspections ADD COLUMN checklist_json TEXT NOT NULL DEFAULT '[]';
+        ALTER TABLE inspections ADD COLUMN closed_by TEXT;
+        CREATE UNIQUE INDEX inspections_alert_episode ON inspections(alert_id, episode);
+        -- One row per run of the cycle: when, for which time, and what it did.
+        CREATE TABLE cycles (
+            id INTEGER PRIMARY KEY,
+            at_utc TEXT NOT NULL,
+            started_utc TEXT NOT NULL,
+            finished_utc TEXT,
+            report_json TEXT
+        );
+        """,
+    ),
+    (
+        4,
+        "notification delivery",
+        """
+        -- One row per outbox notification and receiver (channel + recipient); round 0 is the
+        -- notification itself, round n its n-th repeat while the alarm stands. Rows sent
+        -- together share a message_key, fixed when the message is formed, so that a retry
+        -- re-sends the same message under the same idempotency key.
+        CREATE TABLE deliveries (
+            id INTEGER PRIMARY KEY,
+            outbox_id INTEGER NOT NULL REFERENCES notification_outbox(id),
+            channel TEXT NOT NULL CHECK (channel IN ('log', 'email', 'webhook')),
+            recipient TEXT NOT NULL,
+            round INTEGER NOT NULL DEFAULT 0,
+            status TEXT NOT NULL CHECK (status IN ('pending', 'sent', 'failed')),
+            message_key TEXT,
+            grouped_utc TEXT,
+            attempts INTEGER NOT NULL DEFAULT 0,
+            next_attempt_utc TEXT NOT NULL,
+            last_error TEXT,
+            created_utc TEXT NOT NULL,
+            sent_utc TEXT,
+            UNIQUE (outbox_id, channel, recipient, round)
+        );
+        CREATE INDEX deliveries_message ON deliveries(message_key);
+        CREATE INDEX deliveries_receiver ON deliveries(channel, recipient, status);
+        -- Every send attempt of a message, successful or not.
+        CREATE TABLE delivery_attempts (
+            id INTEGER PRIMARY KEY,
+            message_key TEXT NOT NULL,
+            channel TEXT NOT NULL,
+            recipient TEXT NOT NULL,
+            attempt INTEGER NOT NULL,
+            time_utc TEXT NOT NULL,
+            status TEXT NOT NULL CHECK (status IN ('sent', 'failed')),
+            error TEXT,
+            outbox_ids_json TEXT NOT NULL
+        );
+        CREATE INDEX delivery_attempts_message ON delivery_attempts(message_key);
+        """,
+    ),
+    (
+        5,
+        "back-analysis",
+        """
+        -- Every back-analysis run of a slip case: what was solved, with which inputs (the case
+        -- file's checksum, the section versions and water lines used) and what it found.
+        CREATE TABLE back_analyses (
+            id INTEGER PRIMARY KEY,
+            case_id TEXT NOT NULL,
+            case_file TEXT NOT NULL,
+            case_sha256 TEXT NOT NULL,
+            section_id TEXT NOT NULL,
+            failed_utc TEXT NOT NULL,
+            material TEXT NOT NULL,
+            form TEXT NOT NULL,
+            method TEXT NOT NULL,
+            best_json TEXT,
+            result_json TEXT NOT NULL,
+            ran_utc TEXT NOT NULL
+        );
+        CREATE INDEX back_analyses_case ON back_analyses(case_id, ran_utc);
+        -- Every parameter version made from a back-analysis: which section, which version,
+        -- the strength applied, from which case, who decided it and when.
+        CREATE TABLE calibrations (
+            id INTEGER PRIMARY KEY,
+            back_analysis_id INTEGER REFERENCES back_analyses(id),
+            section_id TEXT NOT NULL REFERENCES sections(id),
+            section_version_id INTEGER NOT NULL REFERENCES section_versions(id),
+            material TEXT NOT NULL,
+            strength_json TEXT NOT NULL,
+            case_id TEXT NOT NULL,
+            failed_utc TEXT NOT NULL,
+            calibrated_by TEXT NOT NULL,
+            created_utc TEXT NOT NULL
+        );
+        CREATE INDEX calibrations_section ON calibrations(section_id, created_utc);
+        """,
+    ),
 ]
 
 _READING_COLUMNS = (
@@ -192,6 +409,12 @@ _READING_COLUMNS = (
 _RAINFALL_COLUMNS = (
     "gauge_id", "time_utc", "raw_value", "rain_mm", "quality", "source_file_id", "source_line",
 )  # fmt: skip
+#: Columns of ``alerts`` that Store.update_alert may set (migrations 1 and 3).
+_ALERT_COLUMNS = frozenset({
+    "level", "state", "message", "state_json", "updated_utc", "acknowledged_utc", "acknowledged_by",
+    "kind", "quantity", "rank", "episode", "notified_episode", "last_value", "acknowledged_episode",
+    "acknowledged_note", "shelved_until_utc", "shelved_by", "shelved_reason", "shelved_utc",
+})
 
 
 def utc_text(moment: datetime) -> str:
@@ -372,9 +595,11 @@ class Store:
                 (item.id, item.kind, getattr(item, "section", None), _config_json(item), now),
             )
 
-    def record_section_version(self, section_id: str, parameters: dict, provenance: str) -> int:
+    def record_section_version(
+        self, section_id: str, parameters: dict, provenance: str, created_utc: str | None = None
+    ) -> int:
         """Store the section's parameters as a new version when they changed; return the
-        version number in force (inside atomic())."""
+        version number in force (inside atomic()). ``created_utc`` defaults to now."""
         text = json.dumps(parameters, sort_keys=True, default=str)
         checksum = hashlib.sha256(text.encode()).hexdigest()
         last = self.conn.execute(
@@ -388,7 +613,7 @@ class Store:
         self.conn.execute(
             "INSERT INTO section_versions (section_id, version, parameters_json, checksum, "
             "provenance, created_utc) VALUES (?, ?, ?, ?, ?, ?)",
-            (section_id, version, text, checksum, provenance, _now_text()),
+            (section_id, version, text, checksum, provenance, created_utc or _now_text()),
         )
         return version
 
@@ -557,6 +782,391 @@ class Store:
     def counts(self) -> dict[str, int]:
         tables = ("ingested_files", "readings", "rainfall", "rejected_rows")
         return {t: self.conn.execute(f"SELECT COUNT(*) FROM {t}").fetchone()[0] for t in tables}
+
+    # --- section parameter versions (back-analysis issue) ------------------------------------
+
+    def latest_section_version(self, section_id: str) -> dict | None:
+        """The newest ``section_versions`` row of a section (with its row ``id``), or None."""
+        rows = list(self.db.query(
+            "SELECT * FROM section_versions WHERE section_id = ? ORDER BY version DESC LIMIT 1",
+            [section_id],
+        ))
+        return rows[0] if rows else None
+
+    def section_version_rows(self, section_id: str) -> list[dict]:
+        """Every stored parameter version of a section, oldest first."""
+        return list(self.db.query(
+            "SELECT * FROM section_versions WHERE section_id = ? ORDER BY version", [section_id]
+        ))
+
+    def section_version_row(self, version_id: int) -> dict | None:
+        """One ``section_versions`` row by its row id (what assessments refer to), or None."""
+        rows = list(self.db.query("SELECT * FROM section_versions WHERE id = ?", [version_id]))
+        return rows[0] if rows else None
+
+    def add_back_analysis(self, row: dict) -> int:
+        """Insert a ``back_analyses`` row (migration 5; inside atomic()); return its id."""
+        columns = ("case_id", "case_file", "case_sha256", "section_id", "failed_utc", "material",
+                   "form", "method", "best_json", "result_json", "ran_utc")
+        cursor = self.conn.execute(
+            f"INSERT INTO back_analyses ({', '.join(columns)}) "
+            f"VALUES ({', '.join('?' * len(columns))})",
+            tuple(row[c] for c in columns),
+        )
+        return cursor.lastrowid
+
+    def back_analysis_row(self, back_analysis_id: int) -> dict | None:
+        rows = list(self.db.query("SELECT * FROM back_analyses WHERE id = ?", [back_analysis_id]))
+        return rows[0] if rows else None
+
+    def add_calibration(self, row: dict) -> int:
+        """Insert a ``calibrations`` row (migration 5; inside atomic()); return its id."""
+        columns = ("back_analysis_id", "section_id", "section_version_id", "material",
+                   "strength_json", "case_id", "failed_utc", "calibrated_by", "created_utc")
+        cursor = self.conn.execute(
+            f"INSERT INTO calibrations ({', '.join(columns)}) "
+            f"VALUES ({', '.join('?' * len(columns))})",
+            tuple(row[c] for c in columns),
+        )
+        return cursor.lastrowid
+
+    def calibration_rows(self, section_id: str | None = None) -> list[dict]:
+        sql, params = "SELECT * FROM calibrations", []
+        if section_id is not None:
+            sql, params = sql + " WHERE section_id = ?", [section_id]
+        return list(self.db.query(sql + " ORDER BY id", params))
+
+    # --- water lines and rainfall response (groundwater issue) -------------------------------
+
+    def latest_reading_before(self, instrument_id: str, before_utc: str) -> dict | None:
+        """The last stored reading of a piezometer strictly before a time, any quality, with the
+        name of its file; None when there is none."""
+        rows = list(self.db.query(
+            "SELECT t.*, f.name AS source_file FROM readings t "
+            "JOIN ingested_files f ON f.id = t.source_file_id "
+            "WHERE t.instrument_id = ? AND t.time_utc < ? ORDER BY t.time_utc DESC LIMIT 1",
+            [instrument_id, before_utc],
+        ))
+        return rows[0] if rows else None
+
+    def insert_water_line(self, row: dict) -> int:
+        """Insert one ``water_lines`` row (keys = its columns but id); return its id."""
+        columns = [c for c in row if c != "id"]
+        cursor = self.conn.execute(
+            f"INSERT INTO water_lines ({', '.join(columns)}) "
+            f"VALUES ({', '.join('?' * len(columns))})",
+            [row[c] for c in columns],
+        )
+        return cursor.lastrowid
+
+    def water_line_rows(
+        self, *, assessment_id: int | None = None, section_id: str | None = None
+    ) -> list[dict]:
+        """Stored water lines of an assessment or a section, in time and name order."""
+        sql, params = "SELECT * FROM water_lines WHERE 1 = 1", []
+        if assessment_id is not None:
+            sql += " AND assessment_id = ?"
+            params.append(assessment_id)
+        if section_id is not None:
+            sql += " AND section_id = ?"
+            params.append(section_id)
+        return list(self.db.query(sql + " ORDER BY time_utc, line_name, id", params))
+
+    def insert_response_model(self, row: dict) -> int:
+        """Insert one ``response_models`` row (keys = its columns but id); return its id."""
+        columns = [c for c in row if c != "id"]
+        cursor = self.conn.execute(
+            f"INSERT INTO response_models ({', '.join(columns)}) "
+            f"VALUES ({', '.join('?' * len(columns))})",
+            [row[c] for c in columns],
+        )
+        return cursor.lastrowid
+
+    def latest_response_model(self, instrument_id: str, at_utc: str | None = None) -> dict | None:
+        """The newest response model of a piezometer whose record ends at or before ``at_utc``
+        (default: any), or None."""
+        sql, params = "SELECT * FROM response_models WHERE instrument_id = ?", [instrument_id]
+        if at_utc is not None:
+            sql += " AND record_end_utc <= ?"
+            params.append(at_utc)
+        rows = list(self.db.query(sql + " ORDER BY calibrated_utc DESC, id DESC LIMIT 1", params))
+        return rows[0] if rows else None
+
+
+    # --- notification delivery (migration 4; watch.notify) ----------------------------------
+
+    def outbox_rows_without_deliveries(self) -> list[dict]:
+        """Outbox rows nobody has queued for delivery yet, oldest first."""
+        return list(self.db.query(
+            "SELECT * FROM notification_outbox o WHERE NOT EXISTS "
+            "(SELECT 1 FROM deliveries d WHERE d.outbox_id = o.id) ORDER BY o.id"
+        ))
+
+    def alert_receivers(self, alert_id: int) -> list[tuple[str, str]]:
+        """(channel, recipient) of every delivery made for earlier rows of an alert."""
+        return [tuple(r) for r in self.conn.execute(
+            "SELECT DISTINCT d.channel, d.recipient FROM deliveries d "
+            "JOIN notification_outbox o ON o.id = d.outbox_id WHERE o.alert_id = ? "
+            "ORDER BY d.id", (alert_id,),
+        )]
+
+    def add_deliveries(self, rows: Iterable[Sequence]) -> int:
+        """rows: (outbox_id, channel, recipient, round, created_utc); pending and due at once.
+        A delivery already queued is left alone. Return the number added."""
+        return self.conn.executemany(
+            "INSERT INTO deliveries (outbox_id, channel, recipient, round, status, "
+            "next_attempt_utc, created_utc) VALUES (?, ?, ?, ?, 'pending', ?5, ?5) "
+            "ON CONFLICT (outbox_id, channel, recipient, round) DO NOTHING",
+            rows,
+        ).rowcount
+
+    def standing_alarm_deliveries(self, now_utc: str, sent_before_utc: str) -> list[tuple]:
+        """(outbox_id, channel, recipient, round) of the newest delivery, to each receiver, of
+        each standing alarm sent at or before ``sent_before_utc``. An alarm stands when its
+        alert fires, is neither acknowledged in this episode nor shelved, and the newest
+        change people were told of is 'firing', 'escalated' or 'data'."""
+        return [tuple(r) for r in self.conn.execute(
+            "WITH newest AS (SELECT alert_id, MAX(id) AS id FROM notification_outbox "
+            "  WHERE alert_id IS NOT NULL "
+            "  AND kind IN ('firing', 'escalated', 'data', 'resolved', 'de-escalated') GROUP BY alert_id), "
+            "standing AS (SELECT n.id FROM newest n JOIN notification_outbox o ON o.id = n.id "
+            "  JOIN alerts a ON a.id = n.alert_id "
+            "  WHERE o.kind IN ('firing', 'escalated', 'data') AND a.state = 'firing' "
+            "  AND (a.acknowledged_episode IS NULL OR a.acknowledged_episode < a.episode) "
+            "  AND (a.shelved_until_utc IS NULL OR a.shelved_until_utc <= ?)), "
+            "last AS (SELECT d.outbox_id, d.channel, d.recipient, MAX(d.round) AS round "
+            "  FROM deliveries d JOIN standing s ON s.id = d.outbox_id "
+            "  GROUP BY d.outbox_id, d.channel, d.recipient) "
+            "SELECT l.outbox_id, l.channel, l.recipient, l.round FROM last l "
+            "JOIN deliveries d ON d.outbox_id = l.outbox_id AND d.channel = l.channel "
+            "  AND d.recipient = l.recipient AND d.round = l.round "
+            "WHERE d.status = 'sent' AND d.sent_utc <= ? ORDER BY l.outbox_id",
+            (now_utc, sent_before_utc),
+        )]
+
+    def ungrouped_deliveries(self) -> list[tuple]:
+        """(delivery id, site_id, channel, recipient) of pending deliveries not yet in a message."""
+        return [tuple(r) for r in self.conn.execute(
+            "SELECT d.id, o.site_id, d.channel, d.recipient FROM deliveries d "
+            "JOIN notification_outbox o ON o.id = d.outbox_id "
+            "WHERE d.status = 'pending' AND d.message_key IS NULL ORDER BY d.id"
+        )]
+
+    def last_grouped_utc(self, site_id: str, channel: str, recipient: str) -> str | None:
+        """When the newest message of a site to a receiver was formed, or None."""
+        return self.conn.execute(
+            "SELECT MAX(d.grouped_utc) FROM deliveries d JOIN notification_outbox o "
+            "ON o.id = d.outbox_id WHERE o.site_id IS ? AND d.channel = ? AND d.recipient = ?",
+            (site_id, channel, recipient),
+        ).fetchone()[0]
+
+    def group_deliveries(self, delivery_ids: Sequence[int], message_key: str, grouped_utc: str) -> None:
+        """Put deliveries into one message, due at once."""
+        self.conn.executemany(
+            "UPDATE deliveries SET message_key = ?, grouped_utc = ?, next_attempt_utc = ? "
+            "WHERE id = ? AND message_key IS NULL",
+            [(message_key, grouped_utc, grouped_utc, i) for i in delivery_ids],
+        )
+
+    def due_delivery_messages(self, now_utc: str) -> list[str]:
+        """Keys of the pending messages whose next attempt is due, oldest first."""
+        return [r[0] for r in self.conn.execute(
+            "SELECT message_key FROM deliveries WHERE status = 'pending' AND message_key IS NOT NULL "
+            "GROUP BY message_key HAVING MIN(next_attempt_utc) <= ? ORDER BY MIN(id)",
+            (now_utc,),
+        )]
+
+    def delivery_message_rows(self, message_key: str) -> list[dict]:
+        """The pending deliveries of one message with their outbox rows."""
+        return list(self.db.query(
+            "SELECT d.id AS delivery_id, d.channel, d.recipient, d.round, d.attempts, "
+            "d.grouped_utc, o.id AS outbox_id, o.idempotency_key, o.site_id, o.section_id, "
+            "o.alert_id, o.kind, o.level, o.subject, o.body, o.payload_json, o.created_utc "
+            "FROM deliveries d JOIN notification_outbox o ON o.id = d.outbox_id "
+            "WHERE d.message_key = ? AND d.status = 'pending' ORDER BY o.id, d.round",
+            [message_key],
+        ))
+
+    def record_delivery_attempt(self, message_key: str, channel: str, recipient: str, attempt: int,
+                                time_utc: str, error: str | None, outbox_ids: list[int],
+                                next_attempt_utc: str, give_up: bool) -> None:  # fmt: skip
+        """Record one send attempt of a message and move its deliveries on (inside atomic())."""
+        self.conn.execute(
+            "INSERT INTO delivery_attempts (message_key, channel, recipient, attempt, time_utc, "
+            "status, error, outbox_ids_json) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+            (message_key, channel, recipient, attempt, time_utc, "sent" if error is None else "failed",
+             error, json.dumps(outbox_ids)),
+        )  # fmt: skip
+        if error is None:
+            self.conn.execute(
+                "UPDATE deliveries SET status = 'sent', attempts = ?, sent_utc = ?, last_error = NULL "
+                "WHERE message_key = ? AND status = 'pending'",
+                (attempt, time_utc, message_key),
+            )
+        else:
+            self.conn.execute(
+                "UPDATE deliveries SET status = ?, attempts = ?, next_attempt_utc = ?, last_error = ? "
+                "WHERE message_key = ? AND status = 'pending'",
+                ("failed" if give_up else "pending", attempt, next_attempt_utc, error, message_key),
+            )
+
+    def pending_delivery_count(self) -> int:
+        return self.conn.execute("SELECT COUNT(*) FROM deliveries WHERE status = 'pending'").fetchone()[0]
+
+    def requeue_failed_deliveries(self, now_utc: str, message_key: str | None = None) -> int:
+        """Failed deliveries (of one message, or all) pending again with a fresh count of
+        attempts; the attempts made stay in delivery_attempts. Return the number requeued."""
+        sql = "UPDATE deliveries SET status = 'pending', attempts = 0, next_attempt_utc = ? WHERE status = 'failed'"
+        params: list = [now_utc]
+        if message_key is not None:
+            sql += " AND message_key = ?"
+            params.append(message_key)
+        return self.conn.execute(sql, params).rowcount
+
+    def delivery_messages(self, status: str | None = None, limit: int = 100) -> list[dict]:
+        """One row per message, newest first: receiver, status, notification count, attempts,
+        last error, formed and sent times."""
+        sql = (
+            "SELECT message_key, channel, recipient, MIN(status) AS status, COUNT(*) AS notifications, "
+            "MAX(attempts) AS attempts, MAX(last_error) AS last_error, MIN(grouped_utc) AS grouped_utc, "
+            "MAX(next_attempt_utc) AS next_attempt_utc, MAX(sent_utc) AS sent_utc FROM deliveries "
+            "WHERE message_key IS NOT NULL GROUP BY message_key"
+        )
+        params: list = []
+        if status is not None:
+            sql += " HAVING MIN(status) = ?"
+            params.append(status)
+        return list(self.db.query(sql + " ORDER BY MIN(id) DESC LIMIT ?", [*params, limit]))
+    # --- assessment cycle, alerts and inspections (migration 3; watch.cycle) -------------------
+
+    def insert_assessment(self, row: dict) -> int:
+        """Add an ``assessments`` row (columns as keys); return its id (inside atomic())."""
+        return self._insert_row("assessments", row)
+
+    def last_assessment(self, section_id: str, at_or_before_utc: str | None = None,
+                        with_fos: bool = False) -> dict | None:  # fmt: skip
+        """The newest assessment of a section (at or before a time; with ``with_fos``, the newest
+        whose factor of safety is usable: converged and from live readings, status 'ok')."""
+        sql, params = "SELECT * FROM assessments WHERE section_id = ?", [section_id]
+        if at_or_before_utc is not None:
+            sql += " AND time_utc <= ?"
+            params.append(at_or_before_utc)
+        if with_fos:
+            sql += " AND fos IS NOT NULL AND status = 'ok'"
+        rows = list(self.db.query(sql + " ORDER BY time_utc DESC, id DESC LIMIT 1", params))
+        return rows[0] if rows else None
+
+    def cached_search(self, section_id: str) -> dict | None:
+        rows = list(self.db.query("SELECT * FROM search_cache WHERE section_id = ?", [section_id]))
+        return rows[0] if rows else None
+
+    def save_search(self, section_id: str, version_id: int | None, time_utc: str, search_json: str,
+                    created_utc: str) -> None:  # fmt: skip
+        """Keep the section's latest full search (replaces the previous one; inside atomic())."""
+        self.conn.execute(
+            "INSERT INTO search_cache (section_id, section_version_id, time_utc, search_json, "
+            "created_utc) VALUES (?, ?, ?, ?, ?) ON CONFLICT (section_id) DO UPDATE SET "
+            "section_version_id = excluded.section_version_id, time_utc = excluded.time_utc, "
+            "search_json = excluded.search_json, created_utc = excluded.created_utc",
+            (section_id, version_id, time_utc, search_json, created_utc),
+        )
+
+    def alert_rows(self, section_id: str | None = None, states: Sequence[str] | None = None) -> list[dict]:
+        """Stored alerts, by section and rule."""
+        sql, params = "SELECT * FROM alerts WHERE 1 = 1", []
+        if section_id is not None:
+            sql += " AND section_id = ?"
+            params.append(section_id)
+        if states:
+            sql += f" AND state IN ({', '.join('?' * len(states))})"
+            params.extend(states)
+        return list(self.db.query(sql + " ORDER BY section_id, rank DESC, rule", params))
+
+    def alert_row(self, alert_id: int) -> dict | None:
+        rows = list(self.db.query("SELECT * FROM alerts WHERE id = ?", [alert_id]))
+        return rows[0] if rows else None
+
+    def add_alert(self, row: dict) -> int:
+        """Add an alert (one per section and rule; inside atomic()); return its id."""
+        return self._insert_row("alerts", row)
+
+    def update_alert(self, alert_id: int, values: dict) -> None:
+        """Set columns of an alert (inside atomic())."""
+        unknown = set(values) - _ALERT_COLUMNS
+        if unknown:
+            raise StoreError(f"alerts has no column(s) {sorted(unknown)}")
+        assignments = ", ".join(f"{column} = ?" for column in values)
+        self.conn.execute(f"UPDATE alerts SET {assignments} WHERE id = ?", (*values.values(), alert_id))
+
+    def add_alert_event(self, row: dict) -> int:
+        return self._insert_row("alert_events", row)
+
+    def alert_events(self, alert_id: int | None = None) -> list[dict]:
+        sql, params = "SELECT * FROM alert_events", []
+        if alert_id is not None:
+            sql, params = sql + " WHERE alert_id = ?", [alert_id]
+        return list(self.db.query(sql + " ORDER BY id", params))
+
+    def queue_notification(self, row: dict) -> int | None:
+        """Add a ``notification_outbox`` row; an idempotency key already queued is left alone
+        (returns None then). Inside atomic(), with the state change that causes it."""
+        return self._insert_row("notification_outbox", row, conflict="idempotency_key")
+
+    def outbox(self, alert_id: int | None = None) -> list[dict]:
+        sql, params = "SELECT * FROM notification_outbox", []
+        if alert_id is not None:
+            sql, params = sql + " WHERE alert_id = ?", [alert_id]
+        return list(self.db.query(sql + " ORDER BY id", params))
+
+    def open_inspection(self, row: dict) -> int | None:
+        """Add an inspection request; one per alert and firing episode (None when it exists)."""
+        return self._insert_row("inspections", row, conflict="alert_id, episode")
+
+    def inspection_rows(self, open_only: bool = False, section_id: str | None = None) -> list[dict]:
+        sql, params = "SELECT * FROM inspections WHERE 1 = 1", []
+        if open_only:
+            sql += " AND status = 'open'"
+        if section_id is not None:
+            sql += " AND section_id = ?"
+            params.append(section_id)
+        return list(self.db.query(sql + " ORDER BY requested_utc, id", params))
+
+    def close_inspection(self, inspection_id: int, completed_utc: str, closed_by: str, note: str) -> None:
+        self.conn.execute(
+            "UPDATE inspections SET status = 'closed', completed_utc = ?, closed_by = ?, notes = ? "
+            "WHERE id = ?",
+            (completed_utc, closed_by, note, inspection_id),
+        )
+
+    def newest_reading(self, instrument_id: str, at_or_before_utc: str) -> dict | None:
+        """The newest stored reading of a piezometer or rain gauge at or before a time, any
+        quality: ``time_utc``, ``quality``, ``value`` (head_m or rain_mm)."""
+        kind = self.conn.execute("SELECT kind FROM instruments WHERE id = ?", (instrument_id,)).fetchone()
+        table, column, value = ("readings", "instrument_id", "head_m")
+        if kind and kind[0] == "rain_gauge":
+            table, column, value = ("rainfall", "gauge_id", "rain_mm")
+        rows = list(self.db.query(
+            f"SELECT time_utc, quality, {value} AS value FROM {table} WHERE {column} = ? "
+            "AND time_utc <= ? ORDER BY time_utc DESC LIMIT 1",
+            [instrument_id, at_or_before_utc],
+        ))
+        return rows[0] if rows else None
+
+    def start_cycle(self, at_utc: str, started_utc: str) -> int:
+        return self._insert_row("cycles", {"at_utc": at_utc, "started_utc": started_utc})
+
+    def finish_cycle(self, cycle_id: int, finished_utc: str, report_json: str) -> None:
+        self.conn.execute("UPDATE cycles SET finished_utc = ?, report_json = ? WHERE id = ?",
+                          (finished_utc, report_json, cycle_id))  # fmt: skip
+
+    def _insert_row(self, table: str, row: dict, conflict: str | None = None) -> int | None:
+        # Column names come from our own code, never from input; values are ? parameters.
+        columns = ", ".join(row)
+        sql = f"INSERT INTO {table} ({columns}) VALUES ({', '.join('?' * len(row))})"
+        if conflict:
+            sql += f" ON CONFLICT ({conflict}) DO NOTHING"
+        cursor = self.conn.execute(sql, tuple(row.values()))
+        return cursor.lastrowid if cursor.rowcount else None
 
 
 def _statements(sql: str) -> list[str]:

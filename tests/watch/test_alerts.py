@@ -139,3 +139,106 @@ def test_chattering_is_counted():
     now = T0 + len(values) * STEP
     assert is_chattering(record, timedelta(hours=6), max_changes=8, now=now)
     assert not is_chattering(record, timedelta(hours=6), max_changes=100, now=now)
+
+
+# --- announcements: escalation, de-escalation, suppression, shelving -------------------------
+
+from watch.alerts import AlertView, announcements  # noqa: E402
+
+RED = TriggerRule(name="fos-red", quantity="fos", level="red", rank=2, trigger=1.15, clear=1.20)
+
+
+def _section_replay(values, shelved=()):
+    """Amber and red on one FoS series; notified episodes kept as the store would keep them.
+    Returns the announcements as (rule, kind) per observation."""
+    rules = {"fos-amber": amber(), "fos-red": RED}
+    records = {name: AlertRecord("WC-040", name) for name in rules}
+    notified = {name: 0 for name in rules}
+    said = []
+    for i, value in enumerate(values):
+        at = T0 + i * STEP
+        transitions = []
+        for name, rule in rules.items():
+            records[name], changes = evaluate(rule, records[name], value, at)
+            transitions += changes
+        views = {name: AlertView(name, "level", rules[name].rank, records[name].state,
+                                 records[name].episode, notified[name], name in shelved)
+                 for name in rules}
+        step = []
+        for a in announcements(transitions, views):
+            step.append((a.transition.rule_name, a.kind))
+            if a.transition.new is AlertState.FIRING:
+                notified[a.transition.rule_name] = a.transition.episode
+            for name in a.also_told:
+                notified[name] = records[name].episode
+        said.append(step)
+    return said
+
+
+def test_escalation_then_de_escalation_then_resolution():
+    said = _section_replay([1.40, 1.22, 1.12, 1.18, 1.22, 1.35])
+    assert said == [
+        [],
+        [("fos-amber", "firing")],
+        [("fos-red", "escalated")],
+        [],  # 1.18: red in its deadband
+        [("fos-red", "de-escalated")],  # 1.22 >= red's clear value; amber still fires
+        [("fos-amber", "resolved")],
+    ]
+
+
+def test_straight_to_red_suppresses_amber_and_de_escalation_makes_amber_known():
+    said = _section_replay([1.40, 1.10, 1.22, 1.35])
+    # amber fires with red in the same cycle: suppressed, only red is announced
+    assert said[1] == [("fos-red", "firing")]
+    # red clears, amber still fires: "de-escalated" tells people that amber stands ...
+    assert said[2] == [("fos-red", "de-escalated")]
+    # ... so amber's clearing is announced too
+    assert said[3] == [("fos-amber", "resolved")]
+
+
+def test_both_clear_at_once_each_announced_firing_gets_its_resolution():
+    said = _section_replay([1.40, 1.22, 1.10, 1.40])
+    assert said[3] == [("fos-amber", "resolved"), ("fos-red", "resolved")]
+
+
+def test_a_shelved_alert_firing_is_held_but_its_resolution_of_an_announced_episode_is_not():
+    said = _section_replay([1.40, 1.22, 1.40], shelved=("fos-amber",))
+    assert said == [[], [], []]  # never announced, so its clearing is not announced either
+
+
+def test_data_alerts_stand_apart_from_the_levels():
+    stale = TriggerRule(name="data-stale", quantity="age_h", level="data", rank=0, trigger=6.0,
+                        clear=3.0, direction=Direction.ABOVE)
+    record, changes = evaluate(stale, AlertRecord("WC-040", "data-stale"), 20.0, T0)
+    red_view = AlertView("fos-red", "level", 2, AlertState.FIRING, 1, 1)
+    views = {"data-stale": AlertView("data-stale", "data", 0, record.state, record.episode),
+             "fos-red": red_view}
+    # A red level firing does not suppress the news that the data stopped.
+    assert [(a.transition.rule_name, a.kind) for a in announcements(changes, views)] == [
+        ("data-stale", "data")]
+
+
+def test_time_zone_of_the_observation_times_is_irrelevant():
+    # The same instants written in another zone (UTC+01:00) give the same states and changes.
+    from datetime import timezone as tz
+
+    plus_one = tz(timedelta(hours=1))
+    rule = amber(on_delay=timedelta(minutes=30), off_delay=timedelta(minutes=15))
+    values = [1.40, 1.20, 1.20, 1.20, 1.35, 1.35, 1.40]
+    a = AlertRecord("WC-040", rule.name)
+    b = AlertRecord("WC-040", rule.name)
+    for i, value in enumerate(values):
+        a, changes_a = evaluate(rule, a, value, T0 + i * STEP)
+        b, changes_b = evaluate(rule, b, value, (T0 + i * STEP).astimezone(plus_one))
+        assert [(t.new, t.at) for t in changes_a] == [(t.new, t.at) for t in changes_b]
+        assert a.state is b.state
+
+
+def test_a_repeated_observation_changes_nothing():
+    # A file delivered twice gives the same reading twice at the same time: no second change.
+    record, first = evaluate(amber(), AlertRecord("WC-040", "fos-amber"), 1.20, T0)
+    again, second = evaluate(amber(), record, 1.20, T0)
+    assert [t.new for t in first] == [AlertState.PENDING, AlertState.FIRING]
+    assert second == []
+    assert again.episode == record.episode == 1

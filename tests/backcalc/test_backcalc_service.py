@@ -1,0 +1,176 @@
+"""Tests of the service side of back-analysis: case files, parameter versions, calibration and
+the `backcalc` / `calibrate` commands (in-process), on the invented demo site's configuration."""
+
+from __future__ import annotations
+
+import json
+import shutil
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from watch.backcalc import load_case, run_case
+from watch.cli import main
+from watch.clock import ManualClock
+from watch.errors import ConfigError, ModelError
+from watch.parameters import calibrate, current_section, section_history
+from watch.workspace import init_workspace
+
+REPO = Path(__file__).resolve().parents[2]
+DEMO_CASE = REPO / "config" / "slips" / "wc_060_2026-01.toml"
+NOW = datetime(2026, 4, 2, 9, 0, tzinfo=timezone.utc)
+
+#: A quick case on the demo section: the design water lines, one searched point, circles only.
+QUICK_CASE = """
+[slip]
+id = "TEST-1"
+section = "WC-060"
+failed_at = "2026-01-16T06:00:00Z"
+
+[surface]
+points = [[12.0, 74.0], [14.0, 71.0], [17.4, 67.8], [21.4, 65.0], [26.0, 64.42], [31.5, 64.25],
+          [33.4, 64.3]]
+
+[water]
+at_failure = "design lines"
+{water_lines}
+
+[back_analysis]
+material = "Weak clay"
+form = "{form}"
+friction_angles = [10.0, 20.0, 5.0]
+match_points = {points}
+refine_points = 0
+non_circular = false
+water_change_m = 0.5
+unit_weight_change_kn_m3 = 0
+"""
+
+
+@pytest.fixture()
+def workspace(tmp_path):
+    ws = init_workspace(tmp_path / "ws", REPO / "config" / "site.toml")
+    for section in (REPO / "config" / "sections").glob("*.toml"):
+        shutil.copy(section, ws.sections / section.name)
+    return ws
+
+
+def write_case(tmp_path, form="drained c'-phi'", points=2, water_lines=""):
+    path = tmp_path / "case.toml"
+    path.write_text(QUICK_CASE.format(form=form, points=points, water_lines=water_lines),
+                    encoding="utf-8")
+    return path
+
+
+def test_current_section_records_the_file_as_version_1(workspace):
+    with workspace.open_store() as store:
+        section, version_id = current_section(workspace, store, "WC-040", now=NOW)
+        again, same_id = current_section(workspace, store, "WC-040")
+        history = section_history(store, "WC-040")
+    assert section.id == "WC-040" and version_id == same_id
+    assert [(v.version, v.provenance) for v in history] == [(1, "section file sections/wc_040.toml")]
+    assert history[0].created_utc == "2026-04-02T09:00:00Z"
+    with workspace.open_store(read_only=True) as store:
+        assert current_section(workspace, store, "WC-060")[1] is None
+    with workspace.open_store() as store, pytest.raises(ConfigError, match="'XX-1' is not listed"):
+        current_section(workspace, store, "XX-1")
+
+
+def test_demo_case_file_reads(workspace):
+    case = load_case(DEMO_CASE)
+    assert case.section_id == "WC-060" and case.form == "cohesion_friction"
+    assert case.failed_at == datetime(2026, 1, 16, 6, tzinfo=timezone.utc)
+    assert case.stood == (datetime(2025, 12, 22, 7, 15, tzinfo=timezone.utc),)
+    np.testing.assert_array_equal(case.friction_angles, np.arange(0.0, 41.0, 2.0))
+
+
+def test_case_file_errors_name_the_key(tmp_path):
+    path = write_case(tmp_path, form="peak")
+    with pytest.raises(ConfigError, match="form = 'peak' is not one of"):
+        load_case(path)
+    path.write_text(QUICK_CASE.format(form="residual", points=1, water_lines="")
+                    .replace("refine_points", "refine_pionts"), encoding="utf-8")
+    with pytest.raises(ConfigError, match="unknown key\\(s\\) refine_pionts"):
+        load_case(path)
+
+
+def test_missing_readings_at_failure_is_a_clear_error(workspace):
+    # No feed was ingested into this workspace, so WC060-PA has no reading at the failure.
+    with pytest.raises(ModelError, match="no usable readings for water line 'clay' of section "
+                                         "'WC-060' at 2026-01-16T06:00:00Z"):
+        run_case(workspace, DEMO_CASE, ManualClock(NOW), record=False)
+
+
+def test_a_water_line_given_in_the_case_file_is_used(workspace, tmp_path):
+    given = [[0.0, 71.0], [14.0, 70.6], [24.0, 67.6], [33.0, 64.6], [35.6, 62.85],
+             [36.6, 62.85], [55.0, 63.0]]
+    lines = f'[[water.line]]\nname = "clay"\npoints = {given}\n'
+    outcome = run_case(workspace, write_case(tmp_path, "residual", 1, lines), ManualClock(NOW),
+                       record=False)
+    clay = outcome.at_failure["WC-060"].water_line("clay")
+    np.testing.assert_array_equal(clay.points, given)
+    assert outcome.water["WC-060 at failure 2026-01-16T06:00:00Z"]["clay"] == "given in the case file"
+    assert outcome.result.locus.found[0]
+
+
+def test_backcalc_and_calibrate_commands(workspace, tmp_path):
+    runner = CliRunner()
+    case = write_case(tmp_path)
+    saved, plot = tmp_path / "result.json", tmp_path / "result.png"
+    run = runner.invoke(main, ["backcalc", str(case), "-w", str(workspace.root), "--json",
+                               "--save", str(saved), "--plot", str(plot)])
+    assert run.exit_code == 0, run.output
+    data = json.loads(run.output)
+    assert data["case"]["method"] == "spencer" and data["best"] is not None
+    assert data["back_analysis_id"] == 1 and plot.stat().st_size > 10_000
+    assert json.loads(saved.read_text())["best"] == data["best"]
+
+    text = runner.invoke(main, ["backcalc", str(case), "-w", str(workspace.root),
+                                "--no-progress"])
+    assert text.exit_code == 0, text.output
+    assert "FoS = 1 locus" in text.output and "Best fit: c' =" in text.output
+
+    done = runner.invoke(main, ["calibrate", str(saved), "--sections", "WC-040 WC-080",
+                                "--by", "T. Tester", "-w", str(workspace.root)])
+    assert done.exit_code == 0, done.output
+    assert "WC-040: 'Weak clay'" in done.output and "WC-080: 'Weak clay'" in done.output
+    best = data["best"]
+    with workspace.open_store() as store:
+        section, version_id = current_section(workspace, store, "WC-080")
+        history = section_history(store, "WC-080")
+        rows = store.calibration_rows("WC-080")
+    clay = section.materials[section.material_index("Weak clay")]
+    np.testing.assert_allclose([clay.cohesion, clay.friction_angle],
+                               [best["cohesion_kpa"], best["friction_angle_deg"]], rtol=1e-12)
+    assert [v.version for v in history] == [1, 2] and history[-1].id == version_id
+    assert "back-analysis TEST-1" in history[-1].provenance
+    assert "calibrated by T. Tester" in history[-1].provenance
+    assert rows[0]["section_version_id"] == version_id and rows[0]["back_analysis_id"] == 1
+
+    wrong = runner.invoke(main, ["calibrate", str(saved), "--sections", "FE-210",
+                                 "-w", str(workspace.root)])
+    assert wrong.exit_code == 1
+    assert "section 'FE-210' has no material 'Weak clay'" in wrong.output
+
+
+def test_calibrate_is_all_or_nothing(workspace, tmp_path):
+    outcome = run_case(workspace, write_case(tmp_path, "residual", 1), ManualClock(NOW),
+                       record=False)
+    with workspace.open_store() as store:
+        with pytest.raises(ConfigError, match="'FE-210' has no material"):
+            calibrate(workspace, store, outcome, ["WC-040", "FE-210"], "T. Tester", NOW)
+        assert store.calibration_rows() == []
+        assert [v.version for v in section_history(store, "WC-040")] == []
+        done = calibrate(workspace, store, outcome, ["WC-040"], "T. Tester", NOW)
+    assert done[0].after["cohesion_kpa"] == 0.0
+    np.testing.assert_allclose(done[0].after["friction_angle_deg"],
+                               outcome.result.best.friction_angle, rtol=1e-12)
+
+
+@pytest.mark.parametrize("command", ["backcalc", "calibrate"])
+def test_commands_have_help_with_an_example(command):
+    result = CliRunner().invoke(main, [command, "--help"])
+    assert result.exit_code == 0 and "Example" in result.output

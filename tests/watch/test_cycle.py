@@ -1,0 +1,184 @@
+"""The assessment cycle on a few days of the invented demo season (behaviour checks: the demo
+data are invented, so no value here is a published reference; trigger values are examples,
+common practice, no source)."""
+
+import json
+import shutil
+import subprocess
+import sys
+from datetime import datetime, timedelta, timezone
+from pathlib import Path
+
+import pytest
+
+from solver.search import SearchSettings
+from watch.analysis import analyse
+from watch.clock import ManualClock
+from watch.cycle import replay_season, run_cycle, search_from_json, search_to_json
+from watch.errors import UserError
+from watch.sections import load_section
+from tests.watch.cycle_helpers import announced_alarms, make_workspace
+
+ROOT = Path(__file__).resolve().parents[2]
+JANUARY = ROOT / "demo_feeds" / "wendlecombe_2026-01.csv"
+START = datetime(2026, 1, 14, 6, tzinfo=timezone.utc)
+STEP = timedelta(hours=6)
+
+# WC-040's amber level waits 12 h before firing here, so that a pending state can be caught.
+_PENDING_AMBER = """
+[[trigger]]
+section = "WC-040"
+name = "fos-amber"
+on_delay_hours = 12
+"""
+
+
+def _history(workspace):
+    with workspace.open_store(read_only=True) as store:
+        events = [(e["time_utc"], store.alert_row(e["alert_id"])["rule"], e["new_state"])
+                  for e in store.alert_events() if e["event"] == "state change"]  # fmt: skip
+        outbox = [(r["idempotency_key"], r["created_utc"]) for r in store.outbox()]
+        inspections = [(r["section_id"], r["level"], r["episode"]) for r in store.inspection_rows()]
+    return events, outbox, inspections
+
+
+def _replay(workspace, start, end, feeds=(JANUARY,)):
+    clock = ManualClock(start)
+    return replay_season(workspace, start, end, STEP, clock, feeds=list(feeds), sections=["WC-040"])
+
+
+@pytest.fixture(scope="module")
+def storm(tmp_path_factory):
+    """WC-040 through the January storm, 6-hourly, in one process."""
+    workspace = make_workspace(tmp_path_factory.mktemp("storm") / "ws", _PENDING_AMBER)
+    _replay(workspace, START, START + timedelta(days=5))
+    return workspace
+
+
+def test_the_storm_raises_and_clears_wc040_once(storm):
+    events, outbox, inspections = _history(storm)
+    fired = [rule for _, rule, state in events if state == "firing"]
+    assert fired.count("fos-red") == 1 and fired.count("fos-amber") == 1
+    by_alarm, still_open = announced_alarms(storm)
+    assert still_open == set()
+    kinds = {rule: k for (_, rule, _), k in by_alarm.items()}
+    # Heavy rain raised "watch" first, so red escalated; amber fired under red (suppressed),
+    # was named when red came down, and got its own resolution.
+    assert kinds["fos-red"] == ["escalated", "inspection", "de-escalated"]
+    assert kinds["fos-amber"] == ["resolved"]
+    assert kinds["rain-24h"] == ["firing", "resolved"]
+    assert inspections == [("WC-040", "red", 1)]
+
+
+def test_the_amber_level_waits_for_its_on_delay(storm):
+    events, _, _ = _history(storm)
+    amber = [(t, s) for t, rule, s in events if rule == "fos-amber"]
+    assert [s for _, s in amber[:2]] == ["pending", "firing"]
+    pending, firing = (datetime.fromisoformat(t.replace("Z", "+00:00")) for t, _ in amber[:2])
+    assert firing - pending >= timedelta(hours=12)
+
+
+def test_restart_mid_pending_and_mid_firing_neither_resets_nor_resends(storm, tmp_path):
+    """Three processes share one store: the first stops with amber pending, the second with
+    red firing; the history equals the uninterrupted run's, event for event."""
+    workspace = make_workspace(tmp_path / "ws", _PENDING_AMBER)
+    stops = [START + timedelta(hours=42), START + timedelta(hours=54)]  # 15 Jan 24:00, 16 Jan 12:00
+    script = (
+        "import sys; from datetime import datetime, timedelta; from pathlib import Path\n"
+        "from watch.clock import ManualClock; from watch.cycle import replay_season\n"
+        "from watch.workspace import open_workspace\n"
+        "start, end = (datetime.fromisoformat(a) for a in sys.argv[2:4])\n"
+        "replay_season(open_workspace(sys.argv[1]), start, end, timedelta(hours=6), ManualClock(start),\n"
+        "              feeds=[Path(sys.argv[4])], sections=['WC-040'])\n"
+    )
+    segments = [(START, stops[0]), (stops[0] + STEP, stops[1])]
+    for begin, end in segments:
+        subprocess.run([sys.executable, "-c", script, str(workspace.root), begin.isoformat(), end.isoformat(),
+                        str(JANUARY)], check=True, cwd=ROOT)  # fmt: skip
+        with workspace.open_store(read_only=True) as store:
+            states = {r["rule"]: r["state"] for r in store.alert_rows("WC-040")}
+        if end == stops[0]:
+            assert states["fos-amber"] == "pending"
+        else:
+            assert states["fos-red"] == "firing"
+    _replay(workspace, stops[1] + STEP, START + timedelta(days=5))
+    uninterrupted, restarted = _history(storm), _history(workspace)
+    assert [e for e in restarted[0]] == [e for e in uninterrupted[0]]
+    assert [k for k, _ in restarted[1]] == [k for k, _ in uninterrupted[1]]
+    assert restarted[2] == uninterrupted[2]
+
+
+def test_no_silent_all_clear_when_the_data_stop(tmp_path):
+    # The feed stops at 16 Jan 12:00 with WC-040 at red. Its design line alone would give a
+    # factor of safety near 1.33, above every clear value: it must not clear anything.
+    cut = tmp_path / "wendlecombe_2026-01.csv"
+    lines = JANUARY.read_text(encoding="utf-8").splitlines(keepends=True)
+    kept = [line for line in lines if not line[:2].isdigit() or _logger_time(line) <= datetime(2026, 1, 16, 12)]
+    cut.write_text("".join(kept), encoding="utf-8")
+    workspace = make_workspace(tmp_path / "ws")
+    _replay(workspace, START, START + timedelta(days=4), feeds=[cut])
+    events, outbox, _ = _history(workspace)
+    with workspace.open_store(read_only=True) as store:
+        states = {r["rule"]: r["state"] for r in store.alert_rows("WC-040")}
+        last = store.last_assessment("WC-040")
+    assert states["fos-red"] == "firing"
+    assert states["data-stale"] == "firing"
+    assert not any(rule.startswith("fos") and state == "resolved" for _, rule, state in events)
+    assert [k for k, _ in outbox if "/data-stale/" in k] == ["WC-040/data-stale/1/data"]
+    assert "design line" in last["warnings_json"]
+
+
+def _logger_time(line: str) -> datetime:
+    return datetime.strptime(line.split(",")[0], "%d/%m/%Y %H:%M")
+
+
+def test_unchanged_inputs_are_not_calculated_again(tmp_path):
+    workspace = make_workspace(tmp_path / "ws")
+    clock = ManualClock(START)
+    replay_season(workspace, START, START, STEP, clock, feeds=[JANUARY], sections=["WC-040"])
+    again = run_cycle(workspace, clock, sections=["WC-040"])
+    assert again.sections[0].status == "unchanged"
+    with workspace.open_store(read_only=True) as store:
+        assert store.conn.execute("SELECT COUNT(*) FROM assessments").fetchone()[0] == 1
+
+
+def test_a_duplicate_delivery_changes_nothing(tmp_path):
+    workspace = make_workspace(tmp_path / "ws")
+    clock = ManualClock(START)
+    replay_season(workspace, START, START, STEP, clock, feeds=[JANUARY], sections=["WC-040"])
+    before = _history(workspace)
+    shutil.copy(workspace.processed / "wendlecombe_2026-01_d001.csv", tmp_path / "again.csv")
+    resent = workspace.incoming / "wendlecombe_2026-01_resent.csv"
+    shutil.copy(tmp_path / "again.csv", resent)
+    import os
+    import time
+
+    os.utime(resent, (time.time() - 3600, time.time() - 3600))
+    clock.advance(timedelta(minutes=5))
+    report = run_cycle(workspace, clock, sections=["WC-040"])
+    assert any("already ingested" in line for line in report.files)
+    assert report.sections[0].status == "unchanged"
+    assert _history(workspace) == before
+
+
+def test_the_cycle_refuses_a_time_in_the_future(tmp_path):
+    workspace = make_workspace(tmp_path / "ws")
+    with pytest.raises(UserError, match="later than now"):
+        run_cycle(workspace, ManualClock(START), at=START + timedelta(hours=1))
+
+
+def test_unknown_section_is_refused_with_the_known_ones(tmp_path):
+    workspace = make_workspace(tmp_path / "ws")
+    with pytest.raises(UserError, match=r"XX-1 not in the site file \(sections: WC-040"):
+        run_cycle(workspace, ManualClock(START), sections=["XX-1"])
+
+
+def test_cached_search_round_trips_through_json():
+    section = load_section(ROOT / "config" / "sections" / "wc_040.toml")
+    search = analyse(section).search
+    back = search_from_json(search_to_json(search))
+    assert back.method == search.method
+    assert isinstance(back.settings, SearchSettings) and back.settings == search.settings
+    assert [s.fos for s in back.surfaces] == pytest.approx([s.fos for s in search.surfaces], rel=1e-12)
+    assert back.critical.radius == pytest.approx(search.critical.radius, rel=1e-12)
+    assert json.loads(search_to_json(back)) == json.loads(search_to_json(search))

@@ -1,0 +1,228 @@
+"""Commands of the watch: assess (one cycle now), alerts (list, ack, shelve), inspections (list,
+CSV, close)."""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+from pathlib import Path
+
+import click
+
+from watch.cli import echo_json, json_option, workspace_option
+from watch.errors import UserError
+
+
+def register(group: click.Group) -> None:
+    for command in (assess, alerts, inspections):
+        group.add_command(command)
+
+
+def _time_option(text: str | None, option: str) -> datetime | None:
+    if text is None:
+        return None
+    try:
+        moment = datetime.fromisoformat(text)
+    except ValueError:
+        raise UserError(f"{option} {text!r} is not an ISO 8601 time, e.g. 2026-01-16T06:00Z") from None
+    return (moment if moment.tzinfo else moment.replace(tzinfo=timezone.utc)).astimezone(timezone.utc)
+
+
+@click.command()
+@click.option("--section", "sections", multiple=True, help="Section id to assess (repeatable).")
+@click.option("--all", "every", is_flag=True, help="Assess every section, with a progress bar.")
+@click.option("--at", "at", help="Time to assess, ISO 8601 (UTC unless it carries an offset); default now.")
+@workspace_option
+@json_option
+def assess(sections: tuple[str, ...], every: bool, at: str | None, workspace: Path, as_json: bool) -> None:
+    """Run one assessment cycle now: ingest the waiting files, rebuild the water lines,
+    re-evaluate the factor of safety, store the assessment, evaluate the trigger levels and
+    queue notifications and inspection requests.
+
+    \b
+    Example:
+        slipwatch assess --all -w /srv/slipwatch/quillmarsh
+        slipwatch assess --section WC-040 --json
+    """
+    from watch.clock import SystemClock
+    from watch.cycle import run_cycle
+    from watch.caution import CAUTION
+    from watch.workspace import open_workspace
+
+    if not sections and not every:
+        raise UserError("say what to assess: --section ID (repeatable) or --all")
+    report = run_cycle(open_workspace(workspace), SystemClock(), sections=list(sections) or None,
+                       at=_time_option(at, "--at"), progress=every and not as_json)  # fmt: skip
+    if as_json:
+        echo_json(report.to_dict() | {"caution": CAUTION})
+        return
+    for line in report.files:
+        click.echo(f"ingested: {line}")
+    for name in report.released:
+        click.echo(f"un-shelved (expired): {name}")
+    for s in report.sections:
+        fos = "n/a" if s.fos is None else f"{s.fos:.3f} ({s.method}, {s.evaluation})"
+        click.echo(f"{s.section_id}: {s.status}; FoS {fos}" + (f"; {s.message}" if s.message else ""))
+        for change in s.changes:
+            click.echo(f"  alert {change}")
+        for warning in s.warnings:
+            click.echo(f"  warning: {warning}")
+        if s.notifications or s.inspections:
+            click.echo(f"  {s.notifications} notification(s) queued, {s.inspections} inspection request(s) opened")
+    rate = len(report.sections) / report.seconds if report.seconds else 0.0
+    click.echo(f"{len(report.sections)} section(s) in {report.seconds:.1f} s ({rate:.1f}/s), "
+               f"{len(report.failed)} failed or not converged")  # fmt: skip
+    click.echo(CAUTION)
+
+
+@click.group(invoke_without_command=True)
+@click.option("--open", "open_only", is_flag=True, help="Only alerts that are pending or firing.")
+@workspace_option
+@json_option
+@click.pass_context
+def alerts(ctx: click.Context, open_only: bool, workspace: Path, as_json: bool) -> None:
+    """List the alerts, worst first: state, level, value, acknowledgement, shelving and
+    chattering. Subcommands acknowledge and shelve.
+
+    \b
+    Example:
+        slipwatch alerts --open
+        slipwatch alerts ack 12 --by "J. Ferrand" --note "inspection booked"
+    """
+    if ctx.invoked_subcommand is not None:
+        return
+    from watch.alerting import list_alerts
+    from watch.clock import SystemClock
+    from watch.workspace import open_workspace
+
+    rows = list_alerts(open_workspace(workspace), SystemClock(), open_only=open_only)
+    if as_json:
+        echo_json(rows)
+        return
+    if not rows:
+        click.echo("no open alerts" if open_only else "no alerts stored yet")
+    for a in rows:
+        value = "" if a["last_value"] is None else f" value {a['last_value']:.3g}"
+        marks = "".join([
+            f" ack by {a['acknowledged_by']}" if a["acknowledged"] else "",
+            f" SHELVED until {a['shelved_until_utc']} by {a['shelved_by']}" if a["shelved"] else "",
+            f" CHATTERING ({a['changes_in_window']} changes)" if a["chattering"] else "",
+        ])  # fmt: skip
+        click.echo(f"#{a['id']:<4} {a['section_id']:<8} {a['rule']:<24} {a['level']:<6} {a['state']:<9} "
+                   f"since {a['since_utc'] or '-'}{value}{marks}")  # fmt: skip
+
+
+@alerts.command("ack")
+@click.argument("alert_id", type=int)
+@click.option("--by", required=True, help="Who acknowledges.")
+@click.option("--note", default="", help="What is being done about it.")
+@workspace_option
+@json_option
+def ack(alert_id: int, by: str, note: str, workspace: Path, as_json: bool) -> None:
+    """Acknowledge a pending or firing alert (who, when, note). It keeps being evaluated.
+
+    \b
+    Example:
+        slipwatch alerts ack 12 --by "J. Ferrand" --note "inspection booked for 14:00"
+    """
+    from watch.alerting import acknowledge
+    from watch.clock import SystemClock
+    from watch.workspace import open_workspace
+
+    row = acknowledge(open_workspace(workspace), SystemClock(), alert_id, by, note)
+    if as_json:
+        echo_json(row)
+    else:
+        click.echo(f"alert {alert_id} ({row['section_id']}/{row['rule']}) acknowledged by {by}")
+
+
+@alerts.command("shelve")
+@click.argument("alert_id", type=int)
+@click.option("--until", "until", required=True, help="Expiry, ISO 8601 (UTC unless offset given).")
+@click.option("--reason", required=True, help="Why it is shelved.")
+@click.option("--by", required=True, help="Who shelves it.")
+@workspace_option
+@json_option
+def shelve_command(alert_id: int, until: str, reason: str, by: str, workspace: Path, as_json: bool) -> None:
+    """Shelve an alert until a time: its firing notifications and inspection requests are held
+    until then (released if it still fires); it un-shelves itself at expiry.
+
+    \b
+    Example:
+        slipwatch alerts shelve 7 --until 2026-01-20T18:00Z --reason "PA logger awaiting repair" --by "J. Ferrand"
+    """
+    from watch.alerting import shelve
+    from watch.clock import SystemClock
+    from watch.workspace import open_workspace
+
+    row = shelve(open_workspace(workspace), SystemClock(), alert_id, _time_option(until, "--until"), reason, by)
+    if as_json:
+        echo_json(row)
+    else:
+        click.echo(f"alert {alert_id} ({row['section_id']}/{row['rule']}) shelved until "
+                   f"{row['shelved_until_utc']} by {by}")  # fmt: skip
+
+
+@click.group(invoke_without_command=True)
+@click.option("--open", "open_only", is_flag=True, help="Only requests not closed yet.")
+@click.option("--csv", "csv_path", type=click.Path(dir_okay=False, path_type=Path), help="Write them to a CSV file.")
+@workspace_option
+@json_option
+@click.pass_context
+def inspections(ctx: click.Context, open_only: bool, csv_path: Path | None, workspace: Path, as_json: bool) -> None:
+    """List the site-inspection requests (section, level, due by, checklist); `close` records
+    the outcome.
+
+    \b
+    Example:
+        slipwatch inspections --open --csv open_inspections.csv
+        slipwatch inspections close 3 --note "no new cracks; toe drain cleared" --by "A. Marsh"
+    """
+    if ctx.invoked_subcommand is not None:
+        return
+    from watch.clock import SystemClock
+    from watch.inspections import list_inspections, write_csv
+    from watch.workspace import open_workspace
+
+    rows = list_inspections(open_workspace(workspace), SystemClock(), open_only=open_only)
+    if csv_path is not None:
+        write_csv(rows, csv_path)
+        if not as_json:
+            click.echo(f"{len(rows)} inspection request(s) written to {csv_path}")
+    if as_json:
+        echo_json(rows)
+        return
+    if not rows:
+        click.echo("no open inspection requests" if open_only else "no inspection requests yet")
+    for r in rows:
+        overdue = " OVERDUE" if r["overdue"] else ""
+        click.echo(f"#{r['id']:<4} {r['section_id']:<8} {r['level']:<6} {r['status']:<6} requested "
+                   f"{r['requested_utc']} due {r['due_utc']}{overdue}: {r['reason']}")  # fmt: skip
+        if r["status"] == "open":
+            click.echo("      look at: " + "; ".join(r["checklist"]))
+        else:
+            click.echo(f"      closed {r['completed_utc']} by {r['closed_by']}: {r['notes']}")
+
+
+@inspections.command("close")
+@click.argument("inspection_id", type=int)
+@click.option("--note", required=True, help="What was found and done.")
+@click.option("--by", required=True, help="Who inspected.")
+@workspace_option
+@json_option
+def close(inspection_id: int, note: str, by: str, workspace: Path, as_json: bool) -> None:
+    """Close an inspection request with what was found.
+
+    \b
+    Example:
+        slipwatch inspections close 3 --note "no new cracks; toe drain cleared" --by "A. Marsh"
+    """
+    from watch.clock import SystemClock
+    from watch.inspections import close_inspection
+    from watch.workspace import open_workspace
+
+    row = close_inspection(open_workspace(workspace), SystemClock(), inspection_id, note, by)
+    if as_json:
+        echo_json(row)
+    else:
+        click.echo(f"inspection request {inspection_id} ({row['section_id']}) closed by {by}")
+

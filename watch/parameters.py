@@ -1,0 +1,281 @@
+"""Parameter versions of the sections: which strengths, weights and water lines an assessment
+used, and where they came from.
+
+Every section has a history of parameter versions in the store's ``section_versions`` table
+(the section as ``solver.section.section_to_dict`` JSON, a checksum, a provenance line and the
+time it was recorded). The newest version is the one in force. Before any version is stored
+the section file listed in site.toml is the section, and the first use records it as version 1
+with provenance "section file <path>". A back-analysis (:func:`calibrate`) adds a version
+whose provenance names the case, the failure date and who ran it; earlier assessments keep
+the version id they recorded, so their inputs can always be recovered.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from datetime import datetime
+
+from solver.errors import SectionError
+from solver.backcalc import with_strength
+from solver.section import Section, section_from_dict, section_to_dict
+from watch.errors import ConfigError, StoreError
+from watch.sections import load_section
+from watch.store import Store, utc_text
+from watch.workspace import Workspace
+
+__all__ = [
+    "SectionVersion",
+    "Calibration",
+    "current_section",
+    "section_version",
+    "section_history",
+    "calibrate",
+]
+
+
+@dataclass(frozen=True)
+class SectionVersion:
+    """One stored parameter version of a section.
+
+    ``id`` is the row id that ``assessments.section_version_id`` refers to; ``version`` counts
+    1, 2, ... per section.
+    """
+
+    id: int
+    section_id: str
+    version: int
+    provenance: str
+    created_utc: str
+    checksum: str
+
+    @classmethod
+    def from_row(cls, row: dict) -> SectionVersion:
+        return cls(
+            id=row["id"], section_id=row["section_id"], version=row["version"],
+            provenance=row["provenance"], created_utc=row["created_utc"],
+            checksum=row["checksum"],
+        )  # fmt: skip
+
+
+def current_section(
+    workspace: Workspace, store: Store, section_id: str, now: datetime | None = None
+) -> tuple[Section, int | None]:
+    """The section with its parameter version in force, and that version's row id.
+
+    The newest stored version of ``section_id``; when none is stored yet, the section file
+    that site.toml lists for it, which is then recorded as version 1 with provenance
+    "section file <path>" (at ``now``, default the time of writing). Works inside or outside
+    an open transaction of ``store``. A read-only store cannot record the first version: the
+    section file is returned with version id None, and the caller must not claim a version.
+
+    Raises ConfigError when site.toml does not list the section, its file is invalid, or the
+    file's [section] id differs from ``section_id``; StoreError for a stored version that no
+    longer reads as a section.
+    """
+    row = store.latest_section_version(section_id)
+    if row is not None:
+        return _section_of(row), row["id"]
+    config = workspace.config()
+    ref = next((s for s in config.sections if s.id == section_id), None)
+    if ref is None:
+        known = ", ".join(s.id for s in config.sections) or "none"
+        raise ConfigError(
+            f"section {section_id!r} is not listed in {workspace.site_file} (known: {known})"
+        )
+    section = load_section(workspace.root / ref.file)
+    if section.id != section_id:
+        raise ConfigError(
+            f"{workspace.root / ref.file}: [section] id = {section.id!r}, but site.toml lists "
+            f"this file for section {section_id!r}; make them agree"
+        )
+    if store.read_only:
+        return section, None
+    def record() -> int:
+        # A section added to site.toml after the last sync has no row yet for the version
+        # to refer to.
+        if store.conn.execute("SELECT 1 FROM sections WHERE id = ?", (section_id,)).fetchone() is None:
+            store.sync_site(config)
+        store.record_section_version(
+            section_id, section_to_dict(section), f"section file {ref.file}",
+            utc_text(now) if now is not None else None,
+        )
+        return store.latest_section_version(section_id)["id"]
+
+    if store.conn.in_transaction:
+        return section, record()
+    with store.atomic():
+        return section, record()
+
+
+def section_version(store: Store, version_id: int) -> tuple[Section, SectionVersion]:
+    """The section exactly as stored under a version row id (e.g. an assessment's
+    ``section_version_id``), with that version's record."""
+    row = store.section_version_row(version_id)
+    if row is None:
+        raise StoreError(f"no section parameter version with id {version_id} in {store.path}")
+    return _section_of(row), SectionVersion.from_row(row)
+
+
+def section_history(store: Store, section_id: str) -> list[SectionVersion]:
+    """Every stored parameter version of a section, oldest first."""
+    return [SectionVersion.from_row(r) for r in store.section_version_rows(section_id)]
+
+
+def _section_of(row: dict) -> Section:
+    try:
+        return section_from_dict(json.loads(row["parameters_json"]))
+    except (SectionError, json.JSONDecodeError) as error:
+        raise StoreError(
+            f"stored parameter version {row['version']} of section {row['section_id']!r} "
+            f"(id {row['id']}) does not read as a section: {error}"
+        ) from None
+
+
+# --------------------------------------------------------------------------------------------
+# Calibration from a back-analysis
+
+
+@dataclass(frozen=True)
+class Calibration:
+    """A parameter version made from a back-analysis, for one section."""
+
+    section_id: str
+    material: str
+    version: int
+    version_id: int
+    previous_version_id: int | None
+    before: dict  # the material's strength before [kPa, deg]
+    after: dict  # and after
+    provenance: str
+    calibration_id: int
+
+
+def calibrate(
+    workspace: Workspace,
+    store: Store,
+    case_result,
+    sections,
+    who: str,
+    now: datetime,
+) -> list[Calibration]:
+    """Store the back-calculated strength as a new parameter version of each chosen section.
+
+    Parameters
+    ----------
+    workspace : Workspace
+    store : Store
+        Open for writing; all sections are calibrated in one transaction (all or none).
+    case_result : watch.backcalc.CaseResult or dict
+        A back-analysis run, or its JSON (``slipwatch backcalc --save``). Its best fit is the
+        strength applied to its material.
+    sections : sequence of str
+        Section ids to calibrate (each must have the material).
+    who : str
+        Who decided the calibration (recorded in the provenance).
+    now : datetime
+        Time of the calibration (timezone-aware).
+
+    Returns
+    -------
+    list of Calibration
+
+    Raises
+    ------
+    ConfigError
+        No best fit in the result, an empty name, an unknown section, a section without the
+        material, or a strength the section cannot take.
+    """
+    data = case_result if isinstance(case_result, dict) else _result_dict(case_result)
+    case, best = data["case"], data.get("best")
+    if best is None:
+        raise ConfigError(
+            f"back-analysis of {case['id']!r} has no best fit (the surface match was not run); "
+            "run `slipwatch backcalc` again with match_points > 0"
+        )
+    if not who or not who.strip():
+        raise ConfigError("say who decides the calibration (--by NAME)")
+    sections = list(dict.fromkeys(sections))
+    if not sections:
+        raise ConfigError("name at least one section to calibrate (--sections ID ...)")
+    material, form = case["material"], case["form"]
+    strength = _strength_of(best, form)
+    provenance = (
+        f"back-analysis {case['id']} (slip of {case['failed_utc']} on {case['section_id']}, "
+        f"{case['method']}, {form}): {material!r} {_describe(strength)}; run {data['ran_utc']}"
+        + (f" (back-analysis {data['back_analysis_id']})" if data.get("back_analysis_id") else "")
+        + f"; calibrated by {who.strip()} on {utc_text(now)}"
+    )
+    done = []
+    with store.atomic():
+        for section_id in sections:
+            section, previous_id = current_section(workspace, store, section_id, now=now)
+            if material not in {m.name for m in section.materials}:
+                raise ConfigError(
+                    f"section {section_id!r} has no material {material!r} (known: "
+                    f"{', '.join(m.name for m in section.materials)}); calibrate only sections "
+                    "in the same material"
+                )
+            old = section.materials[section.material_index(material)]
+            try:
+                new_section = with_strength(section, material, **strength)
+            except SectionError as error:
+                raise ConfigError(f"section {section_id!r}: {error}") from None
+            version = store.record_section_version(
+                section_id, section_to_dict(new_section), provenance, utc_text(now)
+            )
+            row = store.latest_section_version(section_id)
+            calibration_id = store.add_calibration({
+                "back_analysis_id": data.get("back_analysis_id"), "section_id": section_id,
+                "section_version_id": row["id"], "material": material,
+                "strength_json": json.dumps(strength), "case_id": case["id"],
+                "failed_utc": case["failed_utc"], "calibrated_by": who.strip(),
+                "created_utc": utc_text(now),
+            })  # fmt: skip
+            done.append(Calibration(
+                section_id=section_id, material=material, version=version, version_id=row["id"],
+                previous_version_id=previous_id, before=_strength_dict(old),
+                after=_strength_dict(new_section.materials[new_section.material_index(material)]),
+                provenance=provenance, calibration_id=calibration_id,
+            ))  # fmt: skip
+    return done
+
+
+def _result_dict(case_result) -> dict:
+    from watch.backcalc import result_to_dict  # backcalc builds on this module
+
+    return result_to_dict(case_result)
+
+
+def _strength_of(best: dict, form: str) -> dict:
+    """Keyword arguments of ``with_strength`` for the best fit of a result of ``form``."""
+    from watch.backcalc import FORMS
+
+    if form not in FORMS:
+        raise ConfigError(f"back-analysis result has an unknown form {form!r}")
+    if FORMS[form][0] == "undrained":
+        keys = {"undrained_strength": "undrained_strength_kpa"}
+    else:
+        keys = {"cohesion": "cohesion_kpa", "friction_angle": "friction_angle_deg"}
+    strength = {}
+    for name, key in keys.items():
+        value = best.get(key)
+        if not isinstance(value, (int, float)) or not math.isfinite(value):
+            raise ConfigError(f"back-analysis result: best fit has no valid {key} ({value!r})")
+        strength[name] = float(value)
+    return strength
+
+
+def _strength_dict(material) -> dict:
+    if material.model == "undrained":
+        return {"model": "undrained", "undrained_strength_kpa": material.undrained_strength,
+                "strength_gradient_kpa_per_m": material.strength_gradient}
+    return {"model": "drained", "cohesion_kpa": material.cohesion,
+            "friction_angle_deg": material.friction_angle}
+
+
+def _describe(strength: dict) -> str:
+    if "undrained_strength" in strength:
+        return f"Su = {strength['undrained_strength']:.2f} kPa"
+    return f"c' = {strength['cohesion']:.2f} kPa, phi' = {strength['friction_angle']:.2f} deg"

@@ -1,0 +1,81 @@
+"""The state of every section for ``slipwatch status``: worst first, with its factor of safety,
+level, trend, age of the newest reading, open alerts, open inspections and data problems."""
+
+from __future__ import annotations
+
+from datetime import datetime, timedelta
+
+from watch.alerting import record_of
+from watch.alerts import AlertState, is_chattering
+from watch.caution import CAUTION
+from watch.store import parse_utc_text, utc_text
+from watch.triggers import alert_settings, section_gauge
+from watch.workspace import Workspace
+
+__all__ = ["sections_status", "format_sections"]
+
+
+def sections_status(workspace: Workspace, now: datetime) -> list[dict]:
+    """One dict per section of the site file, worst first: firing level rank, then data
+    problems, then lowest factor of safety."""
+    config = workspace.config()
+    cycle = alert_settings(config).cycle
+    window = timedelta(hours=cycle.chatter_window_hours)
+    result = []
+    with workspace.open_store(read_only=True) as store:
+        for ref in config.sections:
+            last = store.last_assessment(ref.id, with_fos=True)
+            newest = store.last_assessment(ref.id)
+            earlier = None
+            if last is not None:
+                earlier = store.last_assessment(
+                    ref.id, utc_text(parse_utc_text(last["time_utc"]) - timedelta(hours=24)), with_fos=True)
+            alerts = store.alert_rows(ref.id)
+            firing = [a for a in alerts if a["state"] == AlertState.FIRING.value]
+            open_alerts = [a for a in alerts if a["state"] in (AlertState.FIRING.value, AlertState.PENDING.value)]
+            levels = sorted((a for a in firing if a["kind"] == "level"), key=lambda a: -a["rank"])
+            data = [f"{a['rule']}: {a['message']}" for a in firing if a["kind"] == "data"]
+            if newest is not None and newest["status"] in ("failed", "not converged", "no live data"):
+                data.append(f"last assessment {newest['status']}: {newest['message']}")
+            gauge = section_gauge(config, ref.id)
+            instruments = [p.id for p in config.piezometers if p.section == ref.id] + ([gauge] if gauge else [])
+            times = [r["time_utc"] for i in instruments if (r := store.newest_reading(i, utc_text(now)))]
+            newest_reading = max(times) if times else None
+            inspections = store.inspection_rows(open_only=True, section_id=ref.id)
+            result.append({
+                "section_id": ref.id,
+                "fos": last["fos"] if last else None,
+                "method": last["method"] if last else None,
+                "assessed_utc": last["time_utc"] if last else None,
+                "fos_change_24h": (last["fos"] - earlier["fos"]) if last and earlier else None,
+                "level": levels[0]["level"] if levels else None,
+                "rank": levels[0]["rank"] if levels else 0,
+                "newest_reading_utc": newest_reading,
+                "reading_age_h": None if newest_reading is None else
+                round((now - parse_utc_text(newest_reading)).total_seconds() / 3600, 2),
+                "open_alerts": [f"{a['rule']} ({a['state']})" for a in open_alerts],
+                "open_inspections": [i["id"] for i in inspections],
+                "data_problems": data,
+                "chattering": [a["rule"] for a in alerts
+                               if is_chattering(record_of(a), window, cycle.chatter_max_changes, now)],
+            })  # fmt: skip
+    result.sort(key=lambda s: (-s["rank"], -len(s["data_problems"]),
+                               s["fos"] if s["fos"] is not None else -1.0))  # fmt: skip
+    return result
+
+
+def format_sections(rows: list[dict]) -> list[str]:
+    """Text lines of the section table, with the caution."""
+    lines = ["sections (worst first):"]
+    for s in rows:
+        fos = "  n/a" if s["fos"] is None else f"{s['fos']:.2f}"
+        trend = "" if s["fos_change_24h"] is None else f" ({s['fos_change_24h']:+.2f}/24 h)"
+        age = "never" if s["reading_age_h"] is None else f"{s['reading_age_h']:.1f} h"
+        lines.append(
+            f"  {s['section_id']:<10} FoS {fos}{trend:<15} level {s['level'] or '-':<8} "
+            f"newest reading {age:<9} open alerts {len(s['open_alerts'])}, "
+            f"open inspections {len(s['open_inspections'])}"
+        )
+        lines += [f"      data problem: {p}" for p in s["data_problems"]]
+    lines.append(CAUTION)
+    return lines
