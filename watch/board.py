@@ -891,6 +891,9 @@ figure { margin: 1em 0; }
 figure img { max-width: 100%; height: auto; border: 1px solid #c8c8c8; background: #ffffff; }
 figcaption { font-size: 0.9em; color: #333333; max-width: 70em; }
 ul.problems { margin: 0; padding-left: 1.1em; }
+/* The alert and data-quality columns carry sentences: give them room to read. */
+table.overview td:nth-last-child(-n+2) { min-width: 16em; }
+table.overview img { max-width: 200px; height: auto; }
 """
 
 _CSP = "default-src 'none'; img-src 'self' data:; style-src 'unsafe-inline'"
@@ -1245,7 +1248,7 @@ def _overview_page(status: SiteStatus, trends: dict) -> str:
             f"<td>{_list([escape(p) for p in s.data_problems], 'none')}</td></tr>"
         )
     parts.append(
-        "<table><thead><tr><th>Section</th><th>Level</th><th>Factor of safety [-]</th>"
+        "<table class=\"overview\"><thead><tr><th>Section</th><th>Level</th><th>Factor of safety [-]</th>"
         "<th>Trend, last 24 h</th><th>Trend, last 7 days</th><th>Rain 24 h / 7 days [mm]</th>"
         "<th>Newest reading (age)</th><th>Open alerts and inspections</th>"
         "<th>Data-quality problems</th></tr></thead><tbody>" + "\n".join(rows)

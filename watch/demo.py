@@ -1,28 +1,29 @@
 """The bundled demo: the invented Quillmarsh Valley Line watched through an invented wet season.
 
-``run_demo`` builds a fresh workspace from ``config/`` and ``demo_feeds/`` and runs every stage
-of the job that exists: ingest of the logger files, water lines rebuilt from the readings, and
-the factor of safety of every section through the season (a full critical-surface search at
-the start, warm re-evaluation after, full searches when the warm result advises one).
+``run_demo`` builds a fresh workspace from ``config/`` and ``demo_feeds/`` and runs the whole
+job the way the service would, with a manual clock instead of the wall clock:
+
+1. the season is replayed cycle by cycle: logger files arrive as the clock passes their
+   readings, each cycle ingests them, rebuilds the water lines, re-evaluates the factors of
+   safety, evaluates the trigger levels, queues notifications and opens inspection requests,
+   and the notifications are delivered (to the log channel: the demo sends nothing out);
+2. a forecast on the eve of the January storm: rain to each trigger level and a 60 mm storm;
+3. the back-analysis of the WC-060 slip, and the calibration of its neighbours with it;
+4. one more cycle, now on the calibrated parameters;
+5. the status board and a PDF report for the engineering file.
 """
 
 from __future__ import annotations
 
 import shutil
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import datetime, timedelta, timezone
 from pathlib import Path
 from typing import Callable
 
-import pandas as pd
-
-from watch.analysis import surface_of
-from watch.assessment import assess_through_time, readings_frame
 from watch.caution import CAUTION
+from watch.clock import ManualClock
 from watch.errors import WorkspaceError
-from watch.ingest import ingest
-from watch.plots import plot_fos_history, plot_section
-from watch.sections import load_section
 from watch.workspace import init_workspace
 
 __all__ = ["run_demo", "DEMO_ROOT", "DemoSettings"]
@@ -33,16 +34,27 @@ DEMO_ROOT = Path(__file__).resolve().parents[1]
 #: Marker file of a demo workspace: only a folder holding it is ever deleted by the demo.
 _MARKER = ".slipwatch-demo"
 
+_UTC = timezone.utc
+
 
 @dataclass(frozen=True)
 class DemoSettings:
-    """What the demo replays: the season, and how often it assesses every section."""
+    """What the demo replays and which optional stages it runs."""
 
-    start: str = "2025-10-01T06:00Z"
-    end: str = "2026-03-31T06:00Z"
-    step: str = "1D"
-    #: The time the demo pretends it is when it ingests (just after the season).
-    now: datetime = datetime(2026, 4, 1, 6, 0, tzinfo=timezone.utc)
+    start: datetime = datetime(2025, 10, 1, 6, 0, tzinfo=_UTC)
+    end: datetime = datetime(2026, 3, 31, 6, 0, tzinfo=_UTC)
+    step: timedelta = timedelta(days=1)
+    #: The eve of the January storm: when duty staff would ask "how much rain until...".
+    forecast_at: datetime = datetime(2026, 1, 14, 6, 0, tzinfo=_UTC)
+    forecast_storm_mm: float = 60.0
+    forecast_storm_hours: float = 24.0
+    slip_case: str = "slips/wc_060_2026-01.toml"
+    calibrate_sections: tuple[str, ...] = ("WC-040", "WC-080")
+    report_section: str = "WC-040"
+    forecast: bool = True
+    back_analysis: bool = True
+    board: bool = True
+    report: bool = True
 
 
 def run_demo(
@@ -51,17 +63,137 @@ def run_demo(
     settings: DemoSettings = DemoSettings(),
     root: Path = DEMO_ROOT,
 ) -> dict:
-    """Build ``workspace`` from the bundled demo and run every stage that exists so far.
+    """Build ``workspace`` from the bundled demo and run the whole job on it.
 
-    Returns a summary dict (also printed through ``echo``).
+    Returns a summary dict of what was made (also told through ``echo``).
     """
+    from watch.cycle import replay_season, run_cycle, season_summary
+    from watch.notify import deliver_pending
+
     config_dir, feeds_dir = root / "config", root / "demo_feeds"
     if not (config_dir / "site.toml").is_file() or not feeds_dir.is_dir():
         raise WorkspaceError(
             f"the demo data is not beside the program ({config_dir}, {feeds_dir}); run the "
             "demo from a clone of the slipwatch repository (`make demo`)"
         )
-    workspace = Path(workspace)
+    ws = _fresh_workspace(Path(workspace), config_dir)
+    config = ws.config()
+    clock = ManualClock(settings.start)
+    summary: dict = {"workspace": str(ws.root)}
+    echo(f"Demo site: {config.name} ({config.owner}); every name and reading is invented")
+    echo(f"Workspace: {ws.root}")
+
+    # 1. The season, cycle by cycle.
+    echo("")
+    echo(f"1. Replaying the season {settings.start:%Y-%m-%d} to {settings.end:%Y-%m-%d}, one "
+         f"cycle every {_span(settings.step)}: logger files arrive, are ingested, water lines "
+         "are rebuilt, factors of safety re-evaluated, trigger levels checked ...")
+
+    def deliver(_report) -> None:
+        with ws.open_store() as store:
+            deliver_pending(ws, store, clock)
+
+    replay = replay_season(
+        ws, settings.start, settings.end, settings.step, clock,
+        feeds=sorted(feeds_dir.glob("*.csv")), on_cycle=deliver,
+    )
+    summary["cycles"] = getattr(replay, "cycles", None)
+    lines = season_summary(ws)
+    summary["season"] = lines
+    echo("   Alerts raised during the season (time UTC, section, level, rule; when resolved):")
+    for line in lines:
+        echo(f"   {line}")
+    echo(f"   Messages delivered to {ws.root / 'notifications.log'} (log channel; e-mail and "
+         "webhooks are configured in site.toml [notify])")
+
+    # 2. Forecast on the eve of the storm.
+    if settings.forecast:
+        from watch.forecast import calibrate_site, forecast_site, rain_to_trigger_site
+
+        at = settings.forecast_at
+        echo("")
+        echo(f"2. Forecast as at {at:%Y-%m-%d %H:%M} UTC, the eve of the January storm "
+             "(rainfall-response models calibrated on the previous 60 days):")
+        calibrate_site(ws, at, days=60)
+        storm = forecast_site(ws, settings.forecast_storm_mm, settings.forecast_storm_hours, at)
+        thresholds = rain_to_trigger_site(ws, [24, 48], at)
+        for text in (thresholds.describe(), storm.describe()):
+            for line in text.splitlines():
+                echo(f"   {line}")
+
+    # 3. Back-analysis of the slip and calibration of the neighbours.
+    if settings.back_analysis:
+        from watch.backcalc import plot_back_analysis, run_case
+        from watch.parameters import calibrate
+
+        echo("")
+        echo("3. Back-analysis of the WC-060 slip of 16 January 2026 (observed surface, water "
+             "lines rebuilt from the readings at the failure time):")
+        outcome = run_case(ws, ws.root / settings.slip_case, clock)
+        best = outcome.result.best
+        plot = plot_back_analysis(outcome, ws.reports / "backcalc_WC-060.png")
+        echo(f"   method {outcome.result.method}; best fit c' = {best.cohesion:.1f} kPa, "
+             f"phi' = {best.friction_angle:.1f} deg (its critical surface lies closest to the "
+             "observed one at FoS = 1)")
+        history = outcome.result.history
+        if history is not None:
+            echo(f"   range consistent with the record (stood dates FoS >= 1): "
+                 f"{_range_text(history)}")
+        before = _latest_fos(ws, settings.calibrate_sections)
+        with ws.open_store() as store:
+            done = calibrate(ws, store, outcome, list(settings.calibrate_sections),
+                             "demo engineer", clock.now())
+        for item in done:
+            echo(f"   calibrated {item.section_id} ({item.material}): {_strength(item.before)} "
+                 f"-> {_strength(item.after)}, parameter version {item.version}")
+        summary["back_analysis"] = {"cohesion": best.cohesion,
+                                    "friction_angle": best.friction_angle, "plot": str(plot)}
+
+        # 4. The next cycle uses the calibrated parameters.
+        clock.advance(timedelta(minutes=15))
+        run_cycle(ws, clock)
+        after = _latest_fos(ws, settings.calibrate_sections)
+        echo("")
+        echo(f"4. Cycle at {clock.now():%Y-%m-%d %H:%M} UTC on the calibrated parameters:")
+        versions = {item.section_id: item.version for item in done}
+        for section_id in settings.calibrate_sections:
+            (fos0, _), (fos1, version_id) = before[section_id], after[section_id]
+            used = ("the calibrated parameters, version "
+                    f"{versions[section_id]}" if section_id in versions else
+                    f"parameter version id {version_id}")
+            echo(f"   {section_id}: FoS {_fos(fos0)} before calibration -> {_fos(fos1)} with "
+                 f"{used}")
+        summary["after_calibration"] = after
+
+    # 5. Board and report.
+    if settings.board:
+        from watch.board import build_board
+
+        board = build_board(ws, clock.now())
+        summary["board"] = str(getattr(board, "index", ws.root / "board"))
+    if settings.report:
+        from watch.report import build_report
+
+        report = build_report(ws, settings.report_section, settings.start, settings.end,
+                              clock.now())
+        summary["report"] = str(getattr(report, "path", report))
+
+    echo("")
+    echo("Outputs:")
+    if settings.board:
+        echo(f"   status board: {summary['board']}  (open in a browser, or "
+             f"`slipwatch serve --workspace {ws.root}`)")
+    if settings.report:
+        echo(f"   PDF report for the engineering file: {summary['report']}")
+    echo(f"   figures: {ws.reports}")
+    echo(f"   try: slipwatch status --workspace {ws.root}; slipwatch alerts --workspace "
+         f"{ws.root}; slipwatch inspections --workspace {ws.root}")
+    echo("")
+    echo(CAUTION)
+    return summary
+
+
+def _fresh_workspace(workspace: Path, config_dir: Path):
     _clear_previous_demo(workspace)
     ws = init_workspace(workspace, config_dir / "site.toml")
     (ws.root / _MARKER).write_text("made by `slipwatch demo`; safe to delete\n", encoding="utf-8")
@@ -69,92 +201,7 @@ def run_demo(
         shutil.copy2(section_file, ws.sections / section_file.name)
     if (config_dir / "slips").is_dir():
         shutil.copytree(config_dir / "slips", ws.root / "slips")
-    config = ws.config()
-    echo(f"Demo site: {config.name} ({config.owner}), invented for the demo")
-    echo(f"Workspace: {ws.root}")
-
-    # 1. Ingest the season's logger files.
-    feeds = sorted(feeds_dir.glob("*.csv"))
-    report = ingest(ws, feeds, now=settings.now, progress=False)
-    totals = {k: sum(getattr(f, k) for f in report.files)
-              for k in ("accepted", "duplicates", "rejected", "flagged")}
-    skipped = [f for f in report.files if f.status != "ingested"]
-    echo("")
-    echo(f"1. Ingest: {len(feeds)} feed files, {totals['accepted']} readings stored, "
-         f"{totals['rejected']} bad rows rejected with reasons, {totals['flagged']} readings "
-         f"flagged, {len(skipped)} file(s) not ingested again")
-    for summary in report.files:
-        if summary.rejected or summary.status != "ingested":
-            echo(f"   {summary.line()}")
-    with ws.open_store(read_only=True) as store:
-        problems = list(store.db.query(
-            "SELECT f.name AS file, r.line, r.reason FROM rejected_rows r "
-            "JOIN ingested_files f ON f.id = r.file_id ORDER BY f.name, r.line LIMIT 6"
-        ))
-        readings = readings_frame(store.db.query(
-            "SELECT instrument_id, time_utc, head_m, quality FROM readings"
-        ))
-        rain = pd.DataFrame(list(store.db.query(
-            "SELECT gauge_id, time_utc, rain_mm FROM rainfall WHERE quality = 'ok'"
-        )))
-    for problem in problems:
-        echo(f"   rejected: {problem['file']} line {problem['line']}: {problem['reason']}")
-    echo(f"   (first {len(problems)} shown; every rejected row is kept with its file, line, raw "
-         "text and reason in the store's rejected_rows table)")
-
-    # 2-3. Water lines from the readings and the factor of safety through the season.
-    times = pd.date_range(settings.start, settings.end, freq=settings.step)
-    rain["time_utc"] = pd.to_datetime(rain["time_utc"], utc=True)
-    echo("")
-    echo(f"2. Water lines rebuilt from the piezometers and factors of safety at {len(times)} "
-         f"times from {times[0]:%Y-%m-%d} to {times[-1]:%Y-%m-%d}:")
-    summary = {"workspace": str(ws.root), "ingest": totals, "sections": {}}
-    for ref in config.sections:
-        section = load_section(ws.root / ref.file)
-        history = assess_through_time(section, config, readings, times)
-        fos = pd.Series([a.fos for a in history], index=times)
-        worst = history[int(fos.values.argmin())]
-        full = sum(a.evaluation == "full search" for a in history)
-        csv_path = ws.reports / f"fos_{section.id}.csv"
-        pd.DataFrame({
-            "time_utc": times.strftime("%Y-%m-%dT%H:%M:%SZ"),
-            "fos": fos.values.round(4),
-            "method": [a.method for a in history],
-            "evaluation": [a.evaluation for a in history],
-        }).to_csv(csv_path, index=False)
-        daily_rain = _daily_rain(rain, ref.gauge)
-        history_png = plot_fos_history(
-            section.id, times, fos.values, ws.reports / f"fos_{section.id}.png",
-            method=worst.method, rain_times=daily_rain.index, rain_mm=daily_rain.values,
-            rain_label=f"Rain {ref.gauge}\n[mm/day]" if ref.gauge else "Rain\n[mm/day]",
-        )
-        worst_section = section.with_water_lines(
-            {name: line.points for name, line in worst.water_lines.items()}
-        )
-        critical = worst.search.critical
-        section_png = plot_section(
-            worst_section, ws.reports / f"section_{section.id}_worst.png",
-            surface=surface_of(critical), fos=worst.fos, method=worst.method,
-        )
-        echo(f"   {section.id:8s} start {fos.iloc[0]:.2f}, lowest {fos.min():.2f} on "
-             f"{worst.at:%Y-%m-%d %H:%M} UTC, end {fos.iloc[-1]:.2f} ({worst.method}; "
-             f"{full} full searches, {len(history) - full} warm re-evaluations)")
-        summary["sections"][section.id] = {
-            "start": float(fos.iloc[0]), "lowest": float(fos.min()),
-            "lowest_at": worst.at.isoformat(), "end": float(fos.iloc[-1]),
-            "full_searches": full, "csv": str(csv_path), "plots": [str(history_png),
-                                                                   str(section_png)],
-        }
-
-    echo("")
-    echo(f"Outputs in {ws.reports}: fos_<section>.csv (the season's factors of safety), "
-         "fos_<section>.png (with rainfall), section_<section>_worst.png (water lines and "
-         "critical surface at the season's lowest factor of safety).")
-    echo("Next stages of the job (alerts and inspection requests, status board, back-analysis "
-         "of the WC-060 slip) are being built; see the README.")
-    echo("")
-    echo(CAUTION)
-    return summary
+    return ws
 
 
 def _clear_previous_demo(workspace: Path) -> None:
@@ -171,8 +218,32 @@ def _clear_previous_demo(workspace: Path) -> None:
     )
 
 
-def _daily_rain(rain: pd.DataFrame, gauge: str | None) -> pd.Series:
-    if rain.empty or gauge is None:
-        return pd.Series(dtype=float)
-    ours = rain[rain["gauge_id"] == gauge]
-    return ours.set_index("time_utc")["rain_mm"].astype(float).resample("1D").sum()
+def _span(step: timedelta) -> str:
+    hours = step.total_seconds() / 3600
+    return f"{hours / 24:g} day(s)" if hours >= 24 else f"{hours:g} h"
+
+
+def _range_text(history) -> str:
+    parts = []
+    for label, value, unit in (("phi'", getattr(history, "friction_range", None), "deg"),
+                               ("c'", getattr(history, "cohesion_range", None), "kPa")):
+        if value:
+            low, high = value
+            parts.append(f"{label} {low:.1f} to {high:.1f} {unit}")
+    return ", ".join(parts) or "no pair survives"
+
+
+def _latest_fos(ws, sections) -> dict:
+    with ws.open_store(read_only=True) as store:
+        rows = {sid: store.last_assessment(sid, with_fos=True) for sid in sections}
+    return {sid: (row["fos"], row["section_version_id"]) if row else (None, None)
+            for sid, row in rows.items()}
+
+
+def _fos(value) -> str:
+    return "n/a" if value is None else f"{value:.2f}"
+
+
+def _strength(values: dict) -> str:
+    return ", ".join(f"{key} {value:.1f}" if isinstance(value, float) else f"{key} {value}"
+                     for key, value in values.items())

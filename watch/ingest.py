@@ -37,7 +37,7 @@ from watch.config import Piezometer, SiteConfig
 from watch.errors import FeedError, UserError, WorkspaceError
 from watch.feeds import FeedReader, RowProblem
 from watch.quality import Previous, assess_piezometer, assess_rain_gauge, time_window_problems
-from watch.store import Store
+from watch.store import Store, utc_text
 from watch.workspace import Workspace
 
 __all__ = ["FileSummary", "IngestReport", "ingest", "reconcile", "TEMPORARY_SUFFIXES"]
@@ -232,7 +232,8 @@ def _ingest_claimed(workspace: Workspace, store: Store, config: SiteConfig, clai
     summary = FileSummary(claim.name, "ingested", feed.name if feed else None)
     try:
         with store.atomic():
-            file_id = store.add_file(claim.name, summary.feed, sha, size, archived_as="")
+            file_id = store.add_file(claim.name, summary.feed, sha, size, archived_as="",
+                                     ingested_utc=utc_text(now))
             problems: list[RowProblem] = []
             if feed is None:
                 patterns = ", ".join(f"{f.name}: {f.pattern}" for f in config.feeds) or "no [[feed]] in site.toml"

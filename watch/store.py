@@ -634,11 +634,14 @@ class Store:
             self.db.query("SELECT * FROM ingested_files WHERE sha256 = ? ORDER BY id DESC", [sha256])
         )
 
-    def add_file(self, name: str, feed: str | None, sha256: str, size_bytes: int, archived_as: str) -> int:
+    def add_file(self, name: str, feed: str | None, sha256: str, size_bytes: int, archived_as: str,
+                 ingested_utc: str | None = None) -> int:  # fmt: skip
+        """Record a file being ingested; ``ingested_utc`` is the ingest's clock time (a replay
+        passes its manual clock), else the system time."""
         cursor = self.conn.execute(
             "INSERT INTO ingested_files (name, feed, sha256, size_bytes, status, archived_as, "
             "ingested_utc) VALUES (?, ?, ?, ?, 'ingested', ?, ?)",
-            (name, feed, sha256, size_bytes, archived_as, _now_text()),
+            (name, feed, sha256, size_bytes, archived_as, ingested_utc or _now_text()),
         )
         return cursor.lastrowid
 
