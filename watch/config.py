@@ -9,7 +9,6 @@ were silently ignored would switch off a quality check.
 from __future__ import annotations
 
 import math
-import tomllib
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
@@ -18,6 +17,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from watch.errors import ConfigError
 from watch.groundwater import DEFAULT_SIDE_RULE, SideRule
+from watch.tomlfiles import read_toml
 
 __all__ = [
     "PIEZOMETER_READINGS",
@@ -217,13 +217,7 @@ class SiteConfig:
 def load_site_config(path: Path | str) -> SiteConfig:
     """Read and check ``site.toml``; raise ConfigError naming the file and key on any fault."""
     path = Path(path)
-    try:
-        with path.open("rb") as handle:
-            data = tomllib.load(handle)
-    except FileNotFoundError:
-        raise ConfigError(f"site file {path} not found; create one with `slipwatch init`") from None
-    except tomllib.TOMLDecodeError as error:
-        raise ConfigError(f"{path}: not valid TOML: {error}") from None
+    data, _ = read_toml(path, "site file", "; create one with `slipwatch init`")
     return parse_site_config(data, source=str(path), path=path)
 
 
