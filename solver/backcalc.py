@@ -31,6 +31,13 @@ locus is the c' (or phi', Su) at which the *mean* factor of safety of the observ
 the stood-date checks require F >= 1 on every section, and the surface-match score is the mean
 of the sections' relative misfits.
 
+When only the ends of the slip are known (back scarp and toe surveyed on the ground) with a
+bound on its depth (an inclinometer shear zone, a trial pit), the observed slip is a
+:class:`BoundedSlip`: F on it is the lowest F among the circles through the two ends whose
+depth lies within the bounds (:func:`circles_through_ends`), so the locus is the strength at
+which the most critical of those admissible surfaces has F = 1, and the depth of that surface
+is reported against the bound (:class:`BoundedSurface`).
+
 Everything here is pure: sections and points in, result dataclasses out. The observed surface
 is sliced once; trial strengths replace the strength of the slices whose base lies in the
 chosen material, so many trial strengths are solved together as one batch of surfaces.
@@ -74,7 +81,8 @@ from solver.search import (
 )
 from solver.section import DRAINED, DRY, UNDRAINED, Section, section_from_dict, section_to_dict
 from solver.slices import Slices
-from solver.slicing import slice_polyline
+from solver.slicing import slice_circles, slice_polyline
+from solver.surfaces import surface_from_entry_exit
 
 __all__ = [
     "FORMS",
@@ -84,9 +92,11 @@ __all__ = [
     "BackAnalysisSettings",
     "MatchSettings",
     "ObservedSlip",
+    "BoundedSlip",
     "StoodCondition",
     "Locus",
     "SurfaceFit",
+    "BoundedSurface",
     "LocusMatch",
     "HistoryCheck",
     "HistoryResult",
@@ -94,6 +104,8 @@ __all__ = [
     "BackAnalysisResult",
     "with_strength",
     "fos_with_strength",
+    "circles_through_ends",
+    "bounded_surfaces",
     "fos_unity_locus",
     "surface_misfit",
     "match_locus",
@@ -126,6 +138,23 @@ BACKCALC_MATCH_POINTS = 6
 BACKCALC_REFINE_POINTS = 4
 #: Limit of FoS evaluations of the non-circular optimisation of one match (when asked for).
 BACKCALC_POLYLINE_EVALUATIONS = 400
+#: How far [m] a surveyed entry or exit point may lie from the section's ground line (survey and
+#: drawing tolerance; common practice, not a published value).
+BACKCALC_GROUND_TOLERANCE = 0.25
+#: Trial circles through the entry and exit of a bounded slip, spread evenly over the
+#: admissible depths (both bounds included).
+BACKCALC_BOUNDED_CIRCLES = 25
+
+# The flattest trial circle through two ends has its centre this many chord lengths above the
+# chord (its sagitta is then chord / 400): flatter arcs add nothing a section can resolve.
+_FLATTEST_CENTRE = 50.0
+# Bisection steps that place a trial circle at a target depth (halves the offset range each).
+_DEPTH_BISECTIONS = 60
+# Points along the chord at which the depth of a trial circle below the ground is measured
+# (the ground's own vertices between the ends are added).
+_DEPTH_SAMPLES = 241
+# A circle this close to a depth bound [m] is held by it.
+_AT_BOUND = 1e-6
 
 _MAX_FRICTION = 89.0
 
@@ -297,6 +326,94 @@ class StoodCondition:
     sections: tuple[Section, ...]
 
 
+@dataclass(frozen=True, eq=False)
+class BoundedSlip:
+    """One section through the slip where only its ends and a bound on its depth are known.
+
+    The slip surface is taken as the most critical of the circles through the entry and the
+    exit whose deepest vertical depth below the ground lies between ``min_depth`` and
+    ``max_depth`` (:func:`circles_through_ends`); which circle that is depends on the trial
+    strength.
+
+    Attributes
+    ----------
+    section : Section
+        The section before the slip, its water lines those at the time of failure.
+    entry : (float, float)
+        [m] Surveyed upper end of the slip (back scarp) on the ground, section frame.
+    exit : (float, float)
+        [m] Surveyed lower end (toe or bulge) on the ground, lower than the entry.
+    max_depth : float
+        [m] > 0. Deepest vertical depth of the slip below the ground that the evidence allows
+        (e.g. the shear zone of an inclinometer, or the bottom of a trial pit that found it).
+    min_depth : float
+        [m] >= 0 and < max_depth. Depth the slip is known to reach at least.
+    name : str
+        Label in reports (default: the section id).
+    n_circles : int
+        Trial circles spread over the admissible depths.
+    ground_tolerance : float
+        [m] How far the surveyed entry and exit may lie from the ground line.
+
+    Raises
+    ------
+    ObservedSurfaceError
+        An end off the section or not on its ground line, an exit upslope of (or level with)
+        the entry, or depth bounds that are not 0 <= min_depth < max_depth.
+    """
+
+    section: Section
+    entry: tuple[float, float]
+    exit: tuple[float, float]
+    max_depth: float
+    min_depth: float = 0.0
+    name: str = ""
+    n_circles: int = BACKCALC_BOUNDED_CIRCLES
+    ground_tolerance: float = BACKCALC_GROUND_TOLERANCE
+
+    def __post_init__(self) -> None:
+        _positive_int("n_circles", self.n_circles)
+        if not (_is_number(self.max_depth) and self.max_depth > 0):
+            raise ObservedSurfaceError(f"max_depth = {self.max_depth!r} m must be a number > 0 "
+                                       "(the deepest the slip can lie below the ground)")
+        if not (_is_number(self.min_depth) and 0 <= self.min_depth < self.max_depth):
+            raise ObservedSurfaceError(f"min_depth = {self.min_depth!r} m must be a number >= 0 "
+                                       f"and below max_depth = {self.max_depth:g} m")
+        if not (_is_number(self.ground_tolerance) and self.ground_tolerance >= 0):
+            raise MethodError(f"ground_tolerance must be a number >= 0 m, got "
+                              f"{self.ground_tolerance!r}")
+        ground = self.section.ground
+        ends = {}
+        for label in ("entry", "exit"):
+            x, y = _surveyed_point(label, getattr(self, label))
+            if not ground[0, 0] <= x <= ground[-1, 0]:
+                raise ObservedSurfaceError(
+                    f"{label} [{x:g}, {y:g}] lies off section {self.section.id!r} (x = "
+                    f"{ground[0, 0]:g} to {ground[-1, 0]:g} m)"
+                )
+            level = float(np.interp(x, *ground.T))
+            if abs(y - level) > self.ground_tolerance:
+                raise ObservedSurfaceError(
+                    f"{label} [{x:g}, {y:g}] is not on the ground of section "
+                    f"{self.section.id!r}: the ground is at y = {level:.2f} m there (tolerance "
+                    f"{self.ground_tolerance:g} m); give the surveyed point where the slip "
+                    "meets the ground"
+                )
+            ends[label] = (x, y, level)
+            object.__setattr__(self, label, (x, y))
+        if ends["exit"][2] >= ends["entry"][2]:
+            raise ObservedSurfaceError(
+                f"exit [{ends['exit'][0]:g}, {ends['exit'][1]:g}] is upslope of (or level with) "
+                f"entry [{ends['entry'][0]:g}, {ends['entry'][1]:g}] (ground at "
+                f"{ends['exit'][2]:.2f} m against {ends['entry'][2]:.2f} m): the entry is the "
+                "upper end (back scarp), the exit the lower end (toe)"
+            )
+        object.__setattr__(self, "max_depth", float(self.max_depth))
+        object.__setattr__(self, "min_depth", float(self.min_depth))
+        if not self.name:
+            object.__setattr__(self, "name", self.section.id)
+
+
 # --------------------------------------------------------------------------------------------
 # Results
 
@@ -403,6 +520,47 @@ class SurfaceFit:
 
 
 @dataclass(frozen=True)
+class BoundedSurface:
+    """The critical circle through the entry and exit of a bounded slip at one locus point.
+
+    Attributes
+    ----------
+    slip : str
+        Name of the bounded slip (section).
+    friction_angle, cohesion, undrained_strength : float
+        [deg], [kPa], [kPa] The locus point's strength.
+    fos : float
+        [-] F of that circle (1 up to the root tolerance for a single section).
+    centre_x, centre_y, radius : float
+        [m] The circle, section frame.
+    depth : float
+        [m] Its deepest vertical depth below the ground.
+    min_depth, max_depth : float
+        [m] The bounds given.
+    at_bound : str
+        "max_depth" when the circle is the deepest one the bound allows (a deeper surface
+        would be more critical: the locus there rests on the bound), "min_depth" likewise for
+        the shallowest, "" when the critical circle lies strictly within the bounds.
+    points : ndarray (k, 2)
+        [m] The circle between the entry and the exit.
+    """
+
+    slip: str
+    friction_angle: float
+    cohesion: float
+    undrained_strength: float
+    fos: float
+    centre_x: float
+    centre_y: float
+    radius: float
+    depth: float
+    min_depth: float
+    max_depth: float
+    at_bound: str
+    points: np.ndarray
+
+
+@dataclass(frozen=True)
 class LocusMatch:
     """A locus point with the critical surfaces its strength gives.
 
@@ -490,6 +648,8 @@ class BackAnalysisResult:
 
     ``best`` is the best-fitting locus match (None when no surface match was run); its strength
     gives F = 1 on the observed surface(s) and a critical surface closest to the observed one.
+    ``bounded`` gives, for every solved locus point and every :class:`BoundedSlip`, the
+    critical circle through its ends with its depth against the bounds.
     ``notes`` carries warnings in plain words.
     """
 
@@ -503,6 +663,7 @@ class BackAnalysisResult:
     sensitivity: tuple[SensitivityCase, ...]
     slips: tuple[str, ...]
     notes: tuple[str, ...] = ()
+    bounded: tuple[BoundedSurface, ...] = ()
 
 
 # --------------------------------------------------------------------------------------------
@@ -573,16 +734,7 @@ class _SlipModel:
     slices replaceable by arrays of trial strengths (one trial per row)."""
 
     def __init__(self, slip: ObservedSlip, material: str, form: str, settings: BackAnalysisSettings):
-        section = slip.section
-        index = section.material_index(material)
-        target = section.materials[index]
-        if form == "undrained" and target.model == DRAINED:
-            section = with_strength(section, material, undrained_strength=0.0)
-        if form != "undrained" and target.model != DRAINED:
-            raise BackAnalysisError(
-                f"material {material!r} of section {section.id!r} is undrained; a {form} "
-                "back-analysis needs a drained material (or use the undrained form)"
-            )
+        section, index = _prepared_section(slip.section, material, form)
         self.name = slip.name
         self.material = material
         self.section = section
@@ -612,19 +764,260 @@ class _SlipModel:
 
     def fos(self, cohesion, friction_angle, undrained_strength) -> methods.SafetyResult:
         """F for trial strengths (arrays (m,), broadcast together)."""
-        c, phi, su = np.broadcast_arrays(*(np.atleast_1d(np.asarray(v, dtype=float))
-                                          for v in (cohesion, friction_angle, undrained_strength)))
+        c, phi, su = _trial_arrays(cohesion, friction_angle, undrained_strength)
         rows = self.slices.select(np.zeros(c.size, dtype=int))
-        mask = np.broadcast_to(self.mask, rows.cohesion.shape)
-        if self.form == "undrained":
-            # Su(y) = Su0 + gradient * depth below the datum: shifting Su0 shifts every base.
-            new_c = np.where(mask, rows.cohesion + (su - self.su_reference)[:, None], rows.cohesion)
-            new_tan = rows.tan_phi
-        else:
-            new_c = np.where(mask, c[:, None], rows.cohesion)
-            new_tan = np.where(mask, np.tan(np.radians(phi))[:, None], rows.tan_phi)
-        return factor_of_safety(replace(rows, cohesion=new_c, tan_phi=new_tan),
+        return factor_of_safety(_with_trials(rows, self.mask, self.form, c, phi, su,
+                                             self.su_reference),
                                 self.settings.method, **self.options)
+
+
+def _prepared_section(section: Section, material: str, form: str) -> tuple[Section, int]:
+    """The section ready for trial strengths of ``material`` in ``form``, and its index."""
+    index = section.material_index(material)
+    target = section.materials[index]
+    if form == "undrained" and target.model == DRAINED:
+        section = with_strength(section, material, undrained_strength=0.0)
+    if form != "undrained" and target.model != DRAINED:
+        raise BackAnalysisError(
+            f"material {material!r} of section {section.id!r} is undrained; a {form} "
+            "back-analysis needs a drained material (or use the undrained form)"
+        )
+    return section, index
+
+
+def _trial_arrays(cohesion, friction_angle, undrained_strength):
+    return np.broadcast_arrays(*(np.atleast_1d(np.asarray(v, dtype=float))
+                                 for v in (cohesion, friction_angle, undrained_strength)))
+
+
+def _with_trials(rows: Slices, mask, form, c, phi, su, su_reference) -> Slices:
+    """``rows`` (one trial per row) with the strength of the masked bases replaced."""
+    mask = np.broadcast_to(mask, rows.cohesion.shape)
+    if form == "undrained":
+        # Su(y) = Su0 + gradient * depth below the datum: shifting Su0 shifts every base.
+        new_c = np.where(mask, rows.cohesion + (su - su_reference)[:, None], rows.cohesion)
+        new_tan = rows.tan_phi
+    else:
+        new_c = np.where(mask, c[:, None], rows.cohesion)
+        new_tan = np.where(mask, np.tan(np.radians(phi))[:, None], rows.tan_phi)
+    return replace(rows, cohesion=new_c, tan_phi=new_tan)
+
+
+# --------------------------------------------------------------------------------------------
+# Slips known by their ends and a depth bound
+
+
+def circles_through_ends(ground, entry_x, exit_x, *, max_depth, min_depth=0.0,
+                         n_circles: int = BACKCALC_BOUNDED_CIRCLES):
+    r"""Circles through two ground points with their depth below the ground within bounds.
+
+    The circles through the ends A and B with the centre above the chord form a nested family
+    (two circles meet in at most two points, so their arcs between A and B do not cross): the
+    arc rises everywhere as the centre moves away from the chord, and its deepest vertical
+    depth below the ground, :math:`d = \max_x (y_{ground}(x) - y_{arc}(x))`, falls
+    monotonically from the semicircle (centre on the chord) to the flattest arc tried. The
+    circles returned are spread evenly in depth over
+    :math:`[\max(d_{min}, d_{flattest}), \min(d_{max}, d_{semicircle})]`, both ends
+    included, each placed at its depth by bisection of the centre's offset from the chord
+    (:func:`solver.surfaces.surface_from_entry_exit` with the radius
+    :math:`R = \sqrt{s^2 + (|AB|/2)^2}`). Arcs through A and B deeper than the semicircle
+    double back in x and are not slip surfaces.
+
+    Parameters
+    ----------
+    ground : array (n, 2) or Section
+        [m] Ground line (x strictly increasing), or a section.
+    entry_x, exit_x : float
+        [m] Offsets of the two ends on the ground (either order).
+    max_depth : float
+        [m] Largest depth allowed.
+    min_depth : float
+        [m] Smallest depth allowed.
+    n_circles : int
+        Circles returned (1 when the admissible depths reduce to one).
+
+    Returns
+    -------
+    (CircularSurface, ndarray)
+        The circles (array fields, deepest first) and their depths [m].
+
+    Raises
+    ------
+    ObservedSurfaceError
+        No circle through the ends has a depth within the bounds.
+    """
+    points = np.asarray(getattr(ground, "ground", ground), dtype=float)
+    xa, xb = sorted((float(entry_x), float(exit_x)))
+    ya, yb = np.interp([xa, xb], *points.T)
+    half = float(np.hypot(xb - xa, yb - ya)) / 2
+    inner = points[(points[:, 0] > xa) & (points[:, 0] < xb), 0]
+    x = np.union1d(np.linspace(xa, xb, _DEPTH_SAMPLES), inner)
+    top = np.interp(x, *points.T)
+
+    def family(offset):
+        circle = surface_from_entry_exit(points, xa, xb, radius=np.hypot(offset, half))
+        xc, yc, r = (np.atleast_1d(np.asarray(v, dtype=float))
+                     for v in (circle.centre_x, circle.centre_y, circle.radius))
+        arc = yc[:, None] - np.sqrt(np.maximum(r[:, None] ** 2 - (x - xc[:, None]) ** 2, 0.0))
+        return circle, (top - arc).max(axis=1)
+
+    flattest_offset = _FLATTEST_CENTRE * 2 * half
+    _, (deepest, flattest) = family(np.array([0.0, flattest_offset]))
+    low, high = max(float(min_depth), flattest), min(float(max_depth), deepest)
+    if low > high:
+        raise ObservedSurfaceError(
+            f"no circle through the ground at x = {xa:g} and {xb:g} m has a depth between "
+            f"min_depth = {min_depth:g} and max_depth = {max_depth:g} m: such circles are "
+            f"{flattest:.2f} to {deepest:.2f} m deep"
+        )
+    _positive_int("n_circles", n_circles)
+    target = np.linspace(high, low, n_circles) if high > low else np.array([high])
+    near = np.zeros(target.size)
+    far = np.full(target.size, flattest_offset)
+    for _ in range(_DEPTH_BISECTIONS):
+        middle = (near + far) / 2
+        too_deep = family(middle)[1] > target
+        near = np.where(too_deep, middle, near)
+        far = np.where(too_deep, far, middle)
+    # The far side of the bracket is never deeper than its target, so max_depth holds exactly.
+    far[target >= deepest] = 0.0
+    return family(far)
+
+
+class _LowestFos:
+    """F of the most critical admissible circle of a bounded slip, per trial strength (the
+    fields that the locus and history code read from a SafetyResult)."""
+
+    def __init__(self, fos, converged, message, critical):
+        self.fos, self.converged, self.message, self.critical = fos, converged, message, critical
+
+
+class _BoundedSlipModel:
+    """The admissible circles of a bounded slip sliced once; F of a trial strength is the
+    lowest over them."""
+
+    def __init__(self, slip: BoundedSlip, material: str, form: str, settings: BackAnalysisSettings):
+        section, index = _prepared_section(slip.section, material, form)
+        self.name, self.material, self.section, self.form = slip.name, material, section, form
+        self.settings, self.slip = settings, slip
+        circles, depth = circles_through_ends(
+            section, slip.entry[0], slip.exit[0], max_depth=slip.max_depth,
+            min_depth=slip.min_depth, n_circles=slip.n_circles)
+        batch = slice_circles(section, circles.centre_x, circles.centre_y, circles.radius,
+                              settings.n_slices)
+        where = (f"circles through entry x = {slip.entry[0]:g} m and exit x = {slip.exit[0]:g} m "
+                 f"of {slip.name!r} ({depth.min():.2f} to {depth.max():.2f} m deep)")
+        if not batch.valid.any():
+            reasons = ", ".join(f"{n} {r}" for r, n in batch.rejected().items())
+            raise ObservedSurfaceError(f"none of the {where} is admissible for section "
+                                       f"{section.id!r}: {reasons}")
+        keep = np.asarray(batch.index, dtype=int)
+        self.family_index = keep
+        self.n_family = depth.size
+        self.centre_x, self.centre_y, self.radius = (np.asarray(v, dtype=float)[keep] for v in
+                                                     (circles.centre_x, circles.centre_y,
+                                                      circles.radius))
+        self.depth = depth[keep]
+        # Which bound holds the deepest and the shallowest circle of the family (the bisection
+        # places a circle held by a bound within far less than a micrometre of it).
+        self.held = (slip.max_depth <= depth[0] + _AT_BOUND,
+                     slip.min_depth > 0 and slip.min_depth >= depth[-1] - _AT_BOUND)
+        self.slices: Slices = batch.slices
+        self.mask = (self.slices.base_material == index) & self.slices.active
+        if not self.mask.any():
+            raise ObservedSurfaceError(f"none of the {where} passes through material "
+                                       f"{material!r}; the slip says nothing about its strength")
+        self.su_reference = float(section.materials[index].undrained_strength)
+        self.options = _method_options(settings)
+
+    def fos(self, cohesion, friction_angle, undrained_strength) -> _LowestFos:
+        """Lowest F over the circles for trial strengths (arrays (m,), broadcast together)."""
+        c, phi, su = _trial_arrays(cohesion, friction_angle, undrained_strength)
+        k = self.depth.size
+        rows = self.slices.select(np.tile(np.arange(k), c.size))
+        trials = _with_trials(rows, np.tile(self.mask, (c.size, 1)), self.form,
+                              np.repeat(c, k), np.repeat(phi, k), np.repeat(su, k),
+                              self.su_reference)
+        solved = factor_of_safety(trials, self.settings.method, **self.options)
+        fos = np.asarray(solved.fos, dtype=float)
+        # As in the search (solver.search): a converged F resting on m_alpha at or below its
+        # limit is doubtful and does not compete.
+        doubtful = np.array([("m_alpha" in m) and not a
+                             for m, a in zip(solved.message, solved.admissible)], dtype=bool)
+        usable = np.asarray(solved.converged, bool) & np.isfinite(fos) & (fos > 0) & ~doubtful
+        fos = np.where(usable, fos, np.inf).reshape(c.size, k)
+        critical = np.argmin(fos, axis=1)
+        lowest = fos[np.arange(c.size), critical]
+        found = np.isfinite(lowest)
+        messages = np.asarray(solved.message, dtype=object).reshape(c.size, k)
+        message = tuple(str(messages[i, critical[i]]) if found[i] else
+                        f"no circle of the family gave a converged F ({self.settings.method})"
+                        for i in range(c.size))
+        return _LowestFos(np.where(found, lowest, np.nan), found, message,
+                          np.where(found, critical, -1))
+
+    def surface(self, row: int, strength: dict, fos: float) -> BoundedSurface:
+        xc, yc, r = self.centre_x[row], self.centre_y[row], self.radius[row]
+        x = np.linspace(*sorted((self.slip.entry[0], self.slip.exit[0])), 120)
+        y = yc - np.sqrt(np.maximum(r**2 - (x - xc) ** 2, 0.0))
+        member = self.family_index[row]
+        at_bound = ("max_depth" if member == 0 and self.held[0] else
+                    "min_depth" if member == self.n_family - 1 and self.held[1] else "")
+        return BoundedSurface(
+            slip=self.name, friction_angle=strength["friction_angle"],
+            cohesion=strength["cohesion"], undrained_strength=strength["undrained_strength"],
+            fos=float(fos), centre_x=float(xc), centre_y=float(yc), radius=float(r),
+            depth=float(self.depth[row]), min_depth=self.slip.min_depth,
+            max_depth=self.slip.max_depth, at_bound=at_bound, points=np.column_stack([x, y]),
+        )  # fmt: skip
+
+
+def bounded_surfaces(
+    slips: Sequence[ObservedSlip | BoundedSlip] | BoundedSlip,
+    locus: Locus,
+    *,
+    settings: BackAnalysisSettings | None = None,
+) -> tuple[BoundedSurface, ...]:
+    """The critical circle of every bounded slip at every solved locus point.
+
+    Parameters
+    ----------
+    slips : BoundedSlip or sequence
+        As given to :func:`fos_unity_locus`; observed (polyline) slips are skipped.
+    locus : Locus
+    settings : BackAnalysisSettings, optional
+
+    Returns
+    -------
+    tuple of BoundedSurface
+        Point by point in locus order, slip by slip within a point.
+    """
+    slips = _as_slips(slips)
+    settings = settings or BackAnalysisSettings(method=locus.method)
+    solved = np.flatnonzero(locus.found)
+    found = []
+    for slip in slips:
+        if not isinstance(slip, BoundedSlip):
+            continue
+        model = _BoundedSlipModel(slip, locus.material, locus.form, settings)
+        lowest = model.fos(np.nan_to_num(locus.cohesion[solved]),
+                           np.nan_to_num(locus.friction_angle[solved]),
+                           np.nan_to_num(locus.undrained_strength[solved]))
+        found.append({int(i): model.surface(int(lowest.critical[j]), locus.point(int(i)),
+                                            lowest.fos[j])
+                      for j, i in enumerate(solved) if lowest.critical[j] >= 0})
+    return tuple(by_point[i] for i in solved for by_point in found if i in by_point)
+
+
+def _model_of(slip, material: str, form: str, settings: BackAnalysisSettings):
+    if isinstance(slip, BoundedSlip):
+        return _BoundedSlipModel(slip, material, form, settings)
+    return _SlipModel(slip, material, form, settings)
+
+
+def _on_section(slip, section: Section):
+    """The same observed slip on another state of its section (water, unit weights)."""
+    return replace(slip, section=section)
 
 
 def fos_with_strength(
@@ -651,11 +1044,13 @@ def fos_with_strength(
     Returns
     -------
     SafetyResult
-        One row per trial strength.
+        One row per trial strength. For a :class:`BoundedSlip` only ``fos``, ``converged``
+        and ``message`` are given, of the most critical admissible circle (``critical``: its
+        row among the admissible circles).
     """
     settings = settings or BackAnalysisSettings()
     form = "undrained" if undrained_strength is not None else "cohesion_friction"
-    model = _SlipModel(slip, material, form, settings)
+    model = _model_of(slip, material, form, settings)
     su = 0.0 if undrained_strength is None else undrained_strength
     return model.fos(cohesion, friction_angle, su)
 
@@ -718,7 +1113,7 @@ def fos_unity_locus(
     slips = _as_slips(slips)
     settings = settings or BackAnalysisSettings()
     _check_form(form)
-    models = [_SlipModel(s, material, form, settings) for s in slips]
+    models = [_model_of(s, material, form, settings) for s in slips]
     fixed = _fixed_parameters(form, friction_angles, cohesion)
     locus = _solve_locus(models, form, fixed, settings, material)
     if not locus.found.any():
@@ -1045,6 +1440,13 @@ def match_locus(
         2nd ed. Wiley, ch. 11.
     """
     slips = _as_slips(slips)
+    bounded = [s.name for s in slips if isinstance(s, BoundedSlip)]
+    if bounded:
+        raise BackAnalysisError(
+            f"the surface match needs an observed surface (polyline) on every section; "
+            f"{', '.join(repr(b) for b in bounded)} give only entry, exit and a depth bound "
+            "(see bounded_surfaces for the depth of their critical surface)"
+        )
     settings = settings or BackAnalysisSettings(method=locus.method)
     match = match or MatchSettings()
     models = [_SlipModel(s, locus.material, locus.form, settings) for s in slips]
@@ -1154,7 +1556,7 @@ def history_constraints(
         surviving &= check.stood
     limits = ()
     if locus.form == "cohesion_friction" and stood:
-        failure_models = [_SlipModel(s, locus.material, locus.form, settings) for s in slips]
+        failure_models = [_model_of(s, locus.material, locus.form, settings) for s in slips]
         limits = _stood_limits(failure_models, slips, locus, stood, checks, settings)
     return HistoryResult(
         checks=tuple(checks),
@@ -1173,7 +1575,7 @@ def _stood_models(slips, condition: StoodCondition, locus: Locus, settings) -> l
             f"{len(slips)} observed slip(s); give one per slip, in the same order"
         )
     return [
-        _SlipModel(ObservedSlip(section, s.surface, s.name), locus.material, locus.form, settings)
+        _model_of(_on_section(s, section), locus.material, locus.form, settings)
         for s, section in zip(slips, condition.sections)
     ]
 
@@ -1289,8 +1691,8 @@ def sensitivity(
             variants.append((f"unit weights {change:+.2f} kN/m3", "unit weight", change,
                              lambda s, d=change: _shift_unit_weight(s, d)))
     for label, quantity, change, transform in variants:
-        changed = [ObservedSlip(transform(s.section), s.surface, s.name) for s in slips]
-        models = [_SlipModel(s, locus.material, locus.form, settings) for s in changed]
+        changed = [_on_section(s, transform(s.section)) for s in slips]
+        models = [_model_of(s, locus.material, locus.form, settings) for s in changed]
         moved = _solve_locus(models, locus.form, fixed, settings, locus.material).values()
         at_best = _solve_locus(models, locus.form, np.array([best_fixed]), settings,
                                locus.material).values()[0]
@@ -1361,8 +1763,10 @@ def back_analyse(
 
     Parameters
     ----------
-    slips : ObservedSlip or sequence
-        Sections through the slip (water at failure) with the observed surfaces.
+    slips : ObservedSlip, BoundedSlip or sequence
+        Sections through the slip (water at failure) with the observed surfaces, or their
+        ends and depth bounds. With any BoundedSlip the surface match is not run; the
+        critical circles through the ends are reported in ``bounded``.
     material : str
         Material whose strength is sought.
     form : {"cohesion_friction", "friction", "undrained"}
@@ -1391,17 +1795,39 @@ def back_analyse(
     locus = fos_unity_locus(slips, material, form, friction_angles=friction_angles,
                             cohesion=cohesion, settings=settings)
     matches, best = ((), None)
-    if match is not None:
+    has_bounds = any(isinstance(s, BoundedSlip) for s in slips)
+    if match is not None and not has_bounds:
         matches, best = match_locus(slips, locus, settings=settings, match=match,
                                     progress=progress)
+    bounded = bounded_surfaces(slips, locus, settings=settings) if has_bounds else ()
     history = history_constraints(slips, locus, stood, settings=settings) if stood else None
     cases = sensitivity(slips, locus, water_change=water_change,
                         unit_weight_change=unit_weight_change, best=best, settings=settings)
     return BackAnalysisResult(
         form=form, material=material, method=settings.method, locus=locus, matches=matches,
         best=best, history=history, sensitivity=cases, slips=tuple(s.name for s in slips),
-        notes=_notes(locus, best, history, stood, slips, settings),
+        notes=_notes(locus, best, history, stood, slips, settings)
+        + _bounded_notes(bounded, has_bounds and match is not None),
+        bounded=bounded,
     )  # fmt: skip
+
+
+def _bounded_notes(bounded, match_skipped: bool) -> tuple[str, ...]:
+    notes = []
+    if match_skipped:
+        notes.append("surface match not run: the slip is known only by its entry, exit and a "
+                     "depth bound; the critical circle through them is reported with its depth")
+    for bound in ("max_depth", "min_depth"):
+        held = [b for b in bounded if b.at_bound == bound]
+        if held:
+            phis = sorted({round(b.friction_angle, 2) for b in held})
+            notes.append(
+                f"at {len(held)} locus point(s) (phi' {phis[0]:g} to {phis[-1]:g} deg) the "
+                f"critical circle through the entry and exit lies at the {bound} bound: a "
+                f"{'deeper' if bound == 'max_depth' else 'shallower'} surface would be more "
+                "critical, so the locus there rests on the bound"
+            )
+    return tuple(notes)
 
 
 def _notes(locus, best, history, stood, slips, settings) -> tuple[str, ...]:
@@ -1450,7 +1876,7 @@ def _nearest_point(locus: Locus, best: LocusMatch) -> int | None:
 
 
 def _as_slips(slips) -> list[ObservedSlip]:
-    if isinstance(slips, ObservedSlip):
+    if isinstance(slips, (ObservedSlip, BoundedSlip)):
         return [slips]
     slips = list(slips)
     if not slips:
@@ -1475,6 +1901,21 @@ def _method_options(settings: BackAnalysisSettings) -> dict:
 def _positive_int(name: str, value) -> None:
     if isinstance(value, bool) or not isinstance(value, int) or value < 1:
         raise MethodError(f"{name} must be a positive integer, got {value!r}")
+
+
+def _is_number(value) -> bool:
+    return (isinstance(value, (int, float)) and not isinstance(value, bool)
+            and math.isfinite(value))
+
+
+def _surveyed_point(label: str, value) -> tuple[float, float]:
+    try:
+        x, y = (float(v) for v in value)
+    except (TypeError, ValueError):
+        raise ObservedSurfaceError(f"{label} must be one [x, y] point [m], got {value!r}") from None
+    if not (math.isfinite(x) and math.isfinite(y)):
+        raise ObservedSurfaceError(f"{label} = {value!r} must be finite")
+    return x, y
 
 
 def _pair(name: str, value) -> tuple[float, float]:

@@ -29,6 +29,7 @@ from solver.backcalc import (
     BACKCALC_UNDRAINED_RANGE,
     BackAnalysisResult,
     BackAnalysisSettings,
+    BoundedSlip,
     MatchSettings,
     ObservedSlip,
     StoodCondition,
@@ -74,7 +75,7 @@ WATER_SOURCES = ("readings", "design lines")
 
 _TABLES = {
     "slip": {"id", "section", "failed_at", "description", "section_file"},
-    "surface": {"points"},
+    "surface": {"points", "entry", "exit", "max_depth", "min_depth"},
     "water": {"at_failure", "line"},
     "back_analysis": {
         "material", "form", "stood", "cohesion", "friction_angles", "method", "cohesion_range",
@@ -102,7 +103,7 @@ class SlipCase:
     section_id: str
     failed_at: datetime
     description: str
-    surface: np.ndarray
+    surface: np.ndarray | None  # None when the slip is known by its ends and a depth bound
     observations: tuple[dict, ...]
     cross_sections: tuple[tuple[str, np.ndarray], ...]  # further sections: (id, surface)
     material: str
@@ -122,6 +123,9 @@ class SlipCase:
     cohesion_range: tuple[float, float] = BACKCALC_COHESION_RANGE
     friction_range: tuple[float, float] = BACKCALC_FRICTION_RANGE
     undrained_range: tuple[float, float] = BACKCALC_UNDRAINED_RANGE
+    # [surface] entry/exit/max_depth/min_depth: {"entry": (x, y), "exit": (x, y),
+    # "max_depth_m": float, "min_depth_m": float}, or None when [surface] points is given.
+    bounds: dict | None = None
 
     @property
     def form(self) -> str:
@@ -155,10 +159,10 @@ def load_case(path: Path | str) -> SlipCase:
     arrays = {k: _array(data, k, where) for k in _ARRAYS}
     slip, back, water = tables["slip"], tables["back_analysis"], tables["water"]
     for table, key in (("slip", "id"), ("slip", "section"), ("slip", "failed_at"),
-                       ("surface", "points"), ("back_analysis", "material"),
-                       ("back_analysis", "form")):
+                       ("back_analysis", "material"), ("back_analysis", "form")):
         if key not in tables[table]:
             raise ConfigError(f"{where}: [{table}] needs {key}")
+    surface, bounds = _surface(tables["surface"], f"{where}: [surface]")
     form_name = back["form"]
     if form_name not in FORMS:
         raise ConfigError(f"{where}: [back_analysis] form = {form_name!r} is not one of "
@@ -195,7 +199,8 @@ def load_case(path: Path | str) -> SlipCase:
         section_id=str(slip["section"]),
         failed_at=_utc(slip["failed_at"], f"{where}: [slip] failed_at"),
         description=str(slip.get("description", "")),
-        surface=_points(tables["surface"]["points"], f"{where}: [surface] points"),
+        surface=surface,
+        bounds=bounds,
         observations=tuple(arrays["observation"]),
         cross_sections=tuple(
             (str(_need(c, "section", f"{where}: [[cross_section]] {i + 1}")),
@@ -312,7 +317,12 @@ def run_case(
     for section_id, (section, _) in sections.items():
         at_failure, described = _water_at(store, config, case, section, case.failed_at, True)
         water[f"{section_id} at failure {utc_text(case.failed_at)}"] = described
-        slips.append(ObservedSlip(at_failure, surfaces[section_id], section_id))
+        if surfaces[section_id] is None:
+            b = case.bounds
+            slips.append(BoundedSlip(at_failure, b["entry"], b["exit"], b["max_depth_m"],
+                                     b["min_depth_m"], section_id))
+        else:
+            slips.append(ObservedSlip(at_failure, surfaces[section_id], section_id))
     stood = []
     for moment in case.stood:
         stood_sections = []
@@ -471,7 +481,20 @@ def result_to_dict(outcome: CaseResult) -> dict:
             for c in result.sensitivity
         ],  # fmt: skip
         "observed_surface_m": {sid: np.asarray(s).tolist() for sid, s in
-                               {case.section_id: case.surface, **dict(case.cross_sections)}.items()},
+                               {case.section_id: case.surface, **dict(case.cross_sections)}.items()
+                               if s is not None},
+        "observed_bounds": None if case.bounds is None else {
+            "section_id": case.section_id, "entry_m": list(case.bounds["entry"]),
+            "exit_m": list(case.bounds["exit"]), "max_depth_m": case.bounds["max_depth_m"],
+            "min_depth_m": case.bounds["min_depth_m"]},
+        "bounded_surfaces": [
+            {"section_id": b.slip, "friction_angle_deg": _num(b.friction_angle),
+             "cohesion_kpa": _num(b.cohesion), "undrained_strength_kpa": _num(b.undrained_strength),
+             "fos": _num(b.fos), "centre_m": [b.centre_x, b.centre_y], "radius_m": b.radius,
+             "depth_m": b.depth, "min_depth_m": b.min_depth, "max_depth_m": b.max_depth,
+             "at_bound": b.at_bound or None}
+            for b in result.bounded
+        ],
         "notes": list(result.notes) + list(outcome.notes),
         "back_analysis_id": outcome.back_analysis_id,
         "ran_utc": utc_text(outcome.ran_at),
@@ -570,6 +593,14 @@ def format_report(outcome: CaseResult) -> str:
             mark = " *best*" if m is result.best else ""
             lines.append(f"  {_strength(m, locus.form)}: {fits}{mark}"
                          + (" (refined)" if m.refined else ""))
+    if result.bounded:
+        lines.append("")
+        lines.append("Critical circle through the entry and exit at each locus point (depth "
+                     "below the ground against the bounds):")
+        for b in result.bounded:
+            held = f", at the {b.at_bound} bound" if b.at_bound else ""
+            lines.append(f"  {_strength(b, locus.form)}: {b.slip}: F {b.fos:.3f}, depth "
+                         f"{b.depth:.2f} m (bounds {b.min_depth:g} to {b.max_depth:g} m){held}")
     if result.best is not None:
         lines.append("")
         lines.append(f"Best fit: {_strength(result.best, locus.form)} "
@@ -673,7 +704,14 @@ def plot_back_analysis(outcome: CaseResult, path: Path | str, dpi: int = 150) ->
     top.grid(True, color="#DDDDDD", linewidth=0.5)
     top.legend(fontsize=8)
 
-    observed = np.asarray(case.surface)
+    if case.surface is not None:
+        observed = np.asarray(case.surface)
+    else:
+        # Known by its ends only: draw the critical circle through them at the middle locus
+        # point as the "observed" surface, with the ends marked.
+        own = [b for b in result.bounded if b.slip == case.section_id]
+        observed = (own[len(own) // 2].points if own else
+                    np.array([case.bounds["entry"], case.bounds["exit"]], dtype=float))
     ground = section.ground
     y_floor = min(ground[:, 1].min(), observed[:, 1].min()) - 2.0
     handles = _draw_strata(bottom, section, y_floor)
@@ -683,9 +721,15 @@ def plot_back_analysis(outcome: CaseResult, path: Path | str, dpi: int = 150) ->
                                linestyle=("--", ":", "-.")[i % 3],
                                label=f"Water line '{line.name}' at failure")
         handles.append(drawn)
-    (drawn,) = bottom.plot(*observed.T, color=_OBSERVED_COLOUR, linewidth=3.0,
-                           label="Observed slip surface")
+    label = ("Observed slip surface" if case.surface is not None else
+             "Critical circle through the observed ends (middle locus point)")
+    (drawn,) = bottom.plot(*observed.T, color=_OBSERVED_COLOUR, linewidth=3.0, label=label)
     handles.append(drawn)
+    if case.bounds is not None:
+        (drawn,) = bottom.plot(*np.array([case.bounds["entry"], case.bounds["exit"]]).T,
+                               color=_OBSERVED_COLOUR, marker="v", markersize=9,
+                               linestyle="none", label="Observed entry and exit")
+        handles.append(drawn)
     if result.best is not None:
         fit = next(f for f in result.best.fits if f.slip == case.section_id)
         (drawn,) = bottom.plot(*fit.critical_points.T, color=_BEST_COLOUR, linewidth=1.8,
@@ -740,6 +784,43 @@ def _need(item: dict, key: str, where: str):
     if key not in item:
         raise ConfigError(f"{where} needs {key}")
     return item[key]
+
+
+def _surface(table: dict, where: str) -> tuple[np.ndarray | None, dict | None]:
+    """[surface]: points, or entry + exit + max_depth (+ min_depth); never both."""
+    ends = {"entry", "exit", "max_depth", "min_depth"} & set(table)
+    if "points" in table:
+        if ends:
+            raise ConfigError(f"{where}: give either points or entry, exit and max_depth, not "
+                              f"both (found points and {', '.join(sorted(ends))})")
+        return _points(table["points"], f"{where} points"), None
+    if not ends:
+        raise ConfigError(f"{where} needs points, or entry, exit and max_depth")
+    for key in ("entry", "exit", "max_depth"):
+        if key not in table:
+            raise ConfigError(f"{where} needs {key} with {', '.join(sorted(ends))} (or give "
+                              "points instead)")
+    entry, exit_ = (_point(table[k], f"{where} {k}") for k in ("entry", "exit"))
+    max_depth = _number(table["max_depth"], f"{where} max_depth")
+    if max_depth <= 0:
+        raise ConfigError(f"{where} max_depth = {max_depth:g} m must be > 0 (the deepest the slip "
+                          "can lie below the ground)")
+    min_depth = _number(table.get("min_depth", 0.0), f"{where} min_depth", 0.0)
+    if min_depth >= max_depth:
+        raise ConfigError(f"{where} min_depth = {min_depth:g} m must be below max_depth = "
+                          f"{max_depth:g} m")
+    return None, {"entry": entry, "exit": exit_, "max_depth_m": max_depth,
+                  "min_depth_m": min_depth}
+
+
+def _point(value, where: str) -> tuple[float, float]:
+    try:
+        x, y = (float(v) for v in value)
+    except (TypeError, ValueError):
+        raise ConfigError(f"{where} must be one [x, y] pair [m], got {value!r}") from None
+    if not (np.isfinite(x) and np.isfinite(y)):
+        raise ConfigError(f"{where}: coordinates must be finite, got {value!r}")
+    return x, y
 
 
 def _points(value, where: str) -> np.ndarray:
