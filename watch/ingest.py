@@ -24,7 +24,7 @@ import hashlib
 import os
 import shutil
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
 from itertools import repeat
 from pathlib import Path
@@ -259,14 +259,14 @@ def _ingest_claimed(workspace: Workspace, store: Store, config: SiteConfig, clai
                 folder = workspace.processed
             planned = _free_name(folder, claim.name)
             summary.archived_as = _relative(workspace, planned)
-            _store_problems(store, file_id, claim.path, feed, problems)
+            _fill_line_texts(store, file_id, claim.path, feed, problems)
             store.finish_file(file_id, summary.status, summary.reason, summary.__dict__, summary.archived_as)
     except BaseException:
         # Not committed: hand the file back to the drop folder untouched, then report.
         _move_no_clobber(claim.path, workspace.incoming, claim.name)
         raise
     if summary.status == "rejected":
-        _write_reason(planned, summary.reason, problems)
+        _write_reason(planned, summary.reason, problems, summary.rejected)
     _move_to(claim.path, planned)
     _archive_marker(claim, planned.parent)
     return summary
@@ -274,6 +274,9 @@ def _ingest_claimed(workspace: Workspace, store: Store, config: SiteConfig, clai
 
 def _load(store: Store, config: SiteConfig, reader: FeedReader, file_id: int, now: datetime, progress: bool,
           summary: FileSummary, problems: list[RowProblem]) -> None:  # fmt: skip
+    """Read ``reader`` block by block into the store. Rejected rows are written to the store
+    with each block (a file of millions of bad rows must not pile up in memory); ``problems``
+    keeps the first few, for the reason file."""
     instruments = config.instruments
     bar = tqdm(
         total=reader.size, unit="B", unit_scale=True, desc=reader.path.name, leave=False,
@@ -283,35 +286,52 @@ def _load(store: Store, config: SiteConfig, reader: FeedReader, file_id: int, no
         for chunk in reader.chunks():
             bar.update(chunk.bytes_read)
             summary.missing += chunk.missing
-            problems.extend(chunk.problems)
-            rows = chunk.readings
-            if len(rows) == 0:
-                continue
-            known = rows["instrument_id"].isin(instruments.keys()).to_numpy()
-            for line, iid in rows.loc[~known, ["line", "instrument_id"]].itertuples(index=False):
-                problems.append(RowProblem(int(line), None, f"instrument {iid!r} is not in site.toml", iid))
-            rows = rows[known]
-            in_window, reasons = time_window_problems(rows["time_utc"].to_numpy(dtype="datetime64[s]"), now, config.ingest)
-            for line, iid, reason in zip(rows["line"].to_numpy()[~in_window], rows["instrument_id"].to_numpy()[~in_window],
-                                         reasons[~in_window]):  # fmt: skip
-                problems.append(RowProblem(int(line), None, reason, iid))
-            rows = rows[in_window]
-            piezometer_parts, rain_parts = [], []
-            for iid, group in rows.groupby("instrument_id", sort=False):
-                group = group.sort_values("time_utc", kind="stable")
-                first = _utc_text(group["time_utc"].to_numpy()[:1])[0]
-                instrument = instruments[iid]
-                if isinstance(instrument, Piezometer):
-                    previous = _previous(store.previous_reading(iid, first))
-                    assessed, lacking = assess_piezometer(group, instrument, config.ingest, previous)
-                    problems.extend(RowProblem(line, None, reason, iid) for line, reason in lacking)
-                    piezometer_parts.append(assessed)
-                else:
-                    rain_parts.append(assess_rain_gauge(group, instrument, store.previous_rain_total(iid, first)))
-            for table, parts in (("readings", piezometer_parts), ("rainfall", rain_parts)):
-                if parts:
-                    _insert(store, table, pd.concat(parts, ignore_index=True), file_id, summary, problems)
-    summary.rejected = len(problems)
+            pending = list(chunk.problems)
+            _load_block(store, config, chunk.readings, file_id, now, summary, pending)
+            _flush_problems(store, file_id, pending, problems, summary)
+
+
+def _load_block(store: Store, config: SiteConfig, rows: pd.DataFrame, file_id: int, now: datetime,
+                summary: FileSummary, problems: list[RowProblem]) -> None:  # fmt: skip
+    """Check and insert the readings of one block; its rejected rows go to ``problems``."""
+    instruments = config.instruments
+    if len(rows) == 0:
+        return
+    known = rows["instrument_id"].isin(instruments.keys()).to_numpy()
+    for line, iid in rows.loc[~known, ["line", "instrument_id"]].itertuples(index=False):
+        problems.append(RowProblem(int(line), None, f"instrument {iid!r} is not in site.toml", iid))
+    rows = rows[known]
+    in_window, reasons = time_window_problems(rows["time_utc"].to_numpy(dtype="datetime64[s]"), now, config.ingest)
+    for line, iid, reason in zip(rows["line"].to_numpy()[~in_window], rows["instrument_id"].to_numpy()[~in_window],
+                                 reasons[~in_window]):  # fmt: skip
+        problems.append(RowProblem(int(line), None, reason, iid))
+    rows = rows[in_window]
+    piezometer_parts, rain_parts = [], []
+    for iid, group in rows.groupby("instrument_id", sort=False):
+        group = group.sort_values("time_utc", kind="stable")
+        first = _utc_text(group["time_utc"].to_numpy()[:1])[0]
+        instrument = instruments[iid]
+        if isinstance(instrument, Piezometer):
+            previous = _previous(store.previous_reading(iid, first))
+            assessed, lacking = assess_piezometer(group, instrument, config.ingest, previous)
+            problems.extend(RowProblem(line, None, reason, iid) for line, reason in lacking)
+            piezometer_parts.append(assessed)
+        else:
+            rain_parts.append(assess_rain_gauge(group, instrument, store.previous_rain_total(iid, first)))
+    for table, parts in (("readings", piezometer_parts), ("rainfall", rain_parts)):
+        if parts:
+            _insert(store, table, pd.concat(parts, ignore_index=True), file_id, summary, problems)
+
+
+def _flush_problems(store: Store, file_id: int, pending: list[RowProblem], kept: list[RowProblem],
+                    summary: FileSummary) -> None:  # fmt: skip
+    """Store one block's rejected rows; keep the first few for the reason file."""
+    if not pending:
+        return
+    pending.sort(key=lambda p: (p.line is None, p.line or 0))
+    store.add_rejected_rows((file_id, p.line, p.instrument_id, p.raw_text, p.reason) for p in pending)
+    summary.rejected += len(pending)
+    kept.extend(pending[: max(0, _REASON_FILE_ROWS - len(kept))])
 
 
 def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary: FileSummary,
@@ -363,13 +383,33 @@ def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary:
         )
 
 
-def _store_problems(store: Store, file_id: int, path: Path, feed, problems: list[RowProblem]) -> None:
-    problems.sort(key=lambda p: (p.line is None, p.line or 0))
-    texts = _line_texts(path, feed, {p.line for p in problems if p.raw_text is None and p.line is not None})
-    store.add_rejected_rows(
-        (file_id, p.line, p.instrument_id, p.raw_text if p.raw_text is not None else texts.get(p.line), p.reason)
-        for p in problems
-    )
+def _fill_line_texts(store: Store, file_id: int, path: Path, feed, kept: list[RowProblem]) -> None:
+    """Give the stored rejected rows of a file that were rejected after parsing (quality, time,
+    conflicts) their raw line text: one streaming pass over the file, in batches of rows, so
+    memory does not grow with the number of rejected rows."""
+    encoding = feed.encoding if feed else "utf-8"
+    last_line, batch = 0, 50_000
+    with path.open("rb") as handle:
+        numbered = enumerate(handle, start=1)
+        number, raw = 0, b""
+        while True:
+            rows = store.conn.execute(
+                "SELECT id, line FROM rejected_rows WHERE file_id = ? AND raw_text IS NULL "
+                "AND line IS NOT NULL AND line > ? ORDER BY line LIMIT ?",
+                (file_id, last_line, batch),
+            ).fetchall()
+            if not rows:
+                break
+            updates = []
+            for row_id, line in rows:
+                while number < line:
+                    number, raw = next(numbered, (line, None))
+                if raw is not None and number == line:
+                    updates.append((raw.decode(encoding, errors="replace").rstrip("\r\n"), row_id))
+            store.conn.executemany("UPDATE rejected_rows SET raw_text = ? WHERE id = ?", updates)
+            last_line = rows[-1][1]
+    texts = _line_texts(path, feed, {p.line for p in kept if p.raw_text is None and p.line is not None})
+    kept[:] = [replace(p, raw_text=texts.get(p.line)) if p.raw_text is None else p for p in kept]
 
 
 def _line_texts(path: Path, feed, wanted: set[int]) -> dict[int, str]:
@@ -443,12 +483,12 @@ def _move_no_clobber(path: Path, folder: Path, name: str) -> Path:
     return destination
 
 
-def _write_reason(archived: Path, reason: str, problems: list[RowProblem]) -> None:
+def _write_reason(archived: Path, reason: str, problems: list[RowProblem], total: int) -> None:
     lines = [f"slipwatch rejected {archived.name}: {reason}"]
     for p in problems[:_REASON_FILE_ROWS]:
         lines.append(f"line {p.line}: {p.reason}")
-    if len(problems) > _REASON_FILE_ROWS:
-        lines.append(f"... and {len(problems) - _REASON_FILE_ROWS} more (see the rejected_rows table)")
+    if total > len(problems[:_REASON_FILE_ROWS]):
+        lines.append(f"... and {total - len(problems[:_REASON_FILE_ROWS])} more (see the rejected_rows table)")
     reason_file = archived.with_name(archived.name + ".reason.txt")
     reason_file.write_text("\n".join(lines) + "\n", encoding="utf-8")
     _fsync_file(reason_file)

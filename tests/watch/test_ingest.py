@@ -331,3 +331,18 @@ def test_spike_rate_counts_from_the_last_in_range_reading_across_files(workspace
     quality = [q for (q,) in query(workspace, "SELECT quality FROM readings ORDER BY time_utc")]
     # 02:00 vs 00:00: +0.02 m in 2 h; 03:00 vs 02:00: +2.5 m/h > 1.0 (hand calculation).
     assert quality == ["ok", "out_of_range", "ok", "spike"]
+
+
+def test_a_file_of_bad_rows_is_rejected_with_every_row_stored_and_a_short_reason_file(workspace):
+    # Rejected rows are written to the store block by block, not held in memory; the reason
+    # file beside the rejected file lists the first 20 and counts the rest.
+    rows = "".join(f"P9,2026-10-01 {h:02d}:{m:02d},1,1\n" for h in range(5) for m in (0, 15, 30, 45))
+    drop(workspace, "vw_bad.csv", "Id,Time,Digits,Temp\n" + rows + "P9,2026-10-01 06:00,1,1\n")
+    (summary,) = run(workspace).files
+    assert (summary.status, summary.accepted, summary.rejected) == ("rejected", 0, 21)
+    stored = query(workspace, "SELECT line, raw_text FROM rejected_rows ORDER BY line")
+    assert [line for line, _ in stored] == list(range(2, 23))
+    assert stored[-1][1] == "P9,2026-10-01 06:00,1,1"
+    reason = (workspace.rejected / "vw_bad.csv.reason.txt").read_text()
+    assert reason.count("is not in site.toml") == 20
+    assert "... and 1 more (see the rejected_rows table)" in reason
