@@ -67,7 +67,9 @@ from solver.slices import Slices
 __all__ = [
     "METHOD_NAMES",
     "SafetyResult",
+    "ScreeningResult",
     "SurfaceSafety",
+    "bishop_screening",
     "bishop_simplified",
     "factor_of_safety",
     "janbu_correction_factor",
@@ -233,6 +235,38 @@ class SafetyResult:
         )
 
 
+#: The part of a result's message that flags negative N' at a frictional base.
+NEGATIVE_NORMAL_NOTE = "negative effective normal force at a frictional slice base"
+
+
+@dataclass(frozen=True)
+class ScreeningResult:
+    """What a critical-surface search needs of Bishop's method on many trial surfaces: the
+    per-surface values and flags of :class:`SafetyResult`, without its per-slice tables and
+    messages (see :func:`bishop_screening`).
+
+    Attributes
+    ----------
+    fos, last_iterate, converged, admissible, iterations
+        As in :class:`SafetyResult`.
+    low_m_alpha : ndarray of bool (n_surfaces,)
+        m_alpha <= :data:`solver.constants.M_ALPHA_MIN` at an active slice (at the last iterate).
+    negative_normal : ndarray of bool (n_surfaces,)
+        Negative effective normal force at an active frictional slice.
+    any_active : ndarray of bool (n_surfaces,)
+        The surface has at least one active slice.
+    """
+
+    fos: np.ndarray
+    last_iterate: np.ndarray
+    converged: np.ndarray
+    admissible: np.ndarray
+    iterations: np.ndarray
+    low_m_alpha: np.ndarray
+    negative_normal: np.ndarray
+    any_active: np.ndarray
+
+
 # --------------------------------------------------------------------------------------------
 # Shared preparation
 
@@ -273,6 +307,11 @@ class _Arrays:
     @cached_property
     def vertical_load(self) -> np.ndarray:
         return self.weight + self.surcharge
+
+    @cached_property
+    def has_horizontal_load(self) -> bool:
+        """Whether any slice carries a horizontal load (kh, ponded water, crack water)."""
+        return bool(self.kh_weight.any() or self.top_water.any() or self.crack_force.any())
 
     @cached_property
     def horizontal_load(self) -> np.ndarray:
@@ -348,7 +387,9 @@ def _carry_index(active: np.ndarray) -> np.ndarray:
     return np.where(index < 0, first, index)
 
 
-def _prepare(slices: Slices) -> _Arrays:
+def _prepare(slices: Slices, carry: bool = True) -> _Arrays:
+    """The arrays of a slice table; ``carry=False`` zeroes the elevations of padding slices
+    instead of carrying them over (Bishop's screening multiplies them only by zero forces)."""
     active = np.asarray(slices.active, dtype=bool)
     any_active = active.any(axis=1)
 
@@ -367,7 +408,12 @@ def _prepare(slices: Slices) -> _Arrays:
         crack_force = np.zeros(active.shape)
     seismic_weight = zeroed("seismic_weight")
     top_water = zeroed("top_water_horizontal")
-    carry = _carry_index(active)
+    if carry:
+        index = _carry_index(active)
+        y_base = np.take_along_axis(np.asarray(slices.y_base, dtype=float), index, axis=1)
+        y_top = np.take_along_axis(np.asarray(slices.y_top, dtype=float), index, axis=1)
+    else:
+        y_base, y_top = zeroed("y_base"), zeroed("y_top")
     x_left = np.asarray(slices.x_left, dtype=float)
     x_start = np.take_along_axis(x_left, np.argmax(active, axis=1)[:, np.newaxis], axis=1)
     x_boundary = x_start + np.concatenate(
@@ -381,8 +427,8 @@ def _prepare(slices: Slices) -> _Arrays:
         sin_a=np.sin(alpha),
         cos_a=cos_a,
         x=0.5 * (x_boundary[:, :-1] + x_boundary[:, 1:]),
-        y_base=np.take_along_axis(np.asarray(slices.y_base, dtype=float), carry, axis=1),
-        y_top=np.take_along_axis(np.asarray(slices.y_top, dtype=float), carry, axis=1),
+        y_base=y_base,
+        y_top=y_top,
         # The line of action of a zero load is irrelevant (and may be NaN).
         y_weight=np.where(active & (seismic_weight != 0), slices.y_weight, 0.0),
         weight=weight,
@@ -511,8 +557,10 @@ class _Moment:
 def _moment_terms(s: _Arrays, xc: np.ndarray, yc: np.ndarray) -> _Moment:
     dx = s.x - xc
     dy = s.y_base - yc
-    load = np.sum(-dx * s.vertical_load + yc * s.horizontal_load - s.horizontal_load_moment,
-                  axis=1)
+    load = -dx * s.vertical_load
+    if s.has_horizontal_load or not np.isfinite(yc).all():
+        load = load + yc * s.horizontal_load - s.horizontal_load_moment
+    load = np.sum(load, axis=1)
     return _Moment(
         shear_arm=-dx * s.sin_a - dy * s.cos_a,
         normal_arm=dx * s.cos_a - dy * s.sin_a,
@@ -649,7 +697,7 @@ def _finish(
             f"m_alpha {min_m_alpha[i]:.3g} <= M_ALPHA_MIN={M_ALPHA_MIN} at a slice base"
             if low_m_alpha[i]
             else "",
-            "negative effective normal force at a frictional slice base" if tension[i] else "",
+            NEGATIVE_NORMAL_NOTE if tension[i] else "",
             "line of thrust outside the sliding mass" if thrust_outside[i] else "",
         )
     no_slice = ~s.any_active
@@ -761,8 +809,12 @@ def ordinary(slices: Slices, *, side_water: bool = False) -> SafetyResult:
 
 def _ordinary_forces(s: _Arrays, moment: _Moment, side_water: bool = False):
     """F, N, N' and S_r of the ordinary method (see :func:`ordinary`)."""
-    horizontal = s.effective_horizontal_load if side_water else s.horizontal_load
-    normal = np.where(s.active, s.vertical_load * s.cos_a - horizontal * s.sin_a, 0.0)
+    normal = s.vertical_load * s.cos_a
+    if side_water:
+        normal -= s.effective_horizontal_load * s.sin_a
+    elif s.has_horizontal_load:
+        normal -= s.horizontal_load * s.sin_a
+    normal = np.where(s.active, normal, 0.0)
     effective = normal - s.pore_pressure * s.length
     capacity = s.cohesion * s.length + effective * s.tan_phi
     return _moment_fos(s, moment, normal, capacity), normal, effective, capacity
@@ -897,6 +949,65 @@ def bishop_simplified(
         messages, normal=normal, effective=effective, capacity=capacity, shear_fos=fos,
         m_alpha=m_alpha, interslice_normal=_horizontal_interslice(s, normal, shear),
         interslice_shear=np.zeros_like(s.x_boundary),
+    )
+
+
+def bishop_screening(
+    slices: Slices,
+    *,
+    tolerance: float = FOS_TOLERANCE,
+    max_iterations: int = MAX_ITERATIONS,
+) -> ScreeningResult:
+    """Bishop's simplified method for screening many trial surfaces in a search.
+
+    The same iteration, convergence test and admissibility flags as
+    :func:`bishop_simplified` (and so the same factors of safety), without the per-slice
+    forces, interslice forces and messages that only the audit of a chosen surface needs.
+
+    Parameters
+    ----------
+    slices : Slices
+        Slice table (units in :mod:`solver.slices`).
+    tolerance : float
+        Convergence tolerance on the change of F between iterations [-].
+    max_iterations : int
+        Iteration limit.
+
+    Returns
+    -------
+    ScreeningResult
+
+    References
+    ----------
+    Bishop, A.W. (1955). The use of the slip circle in the stability analysis of slopes.
+    Geotechnique 5(1), 7-17. doi:10.1680/geot.1955.5.1.7
+    """
+    _validate_settings(tolerance, max_iterations)
+    s = _prepare(slices, carry=False)
+    xc, yc = _moment_centre(slices)
+    progress = _bishop_iteration(s, _moment_terms(s, xc, yc), tolerance, max_iterations)
+    fos = progress.fos
+    # N' and m_alpha at the last iterate, as in _base_forces, for the flags of _finish.
+    f = fos[:, np.newaxis]
+    m_alpha = s.cos_a + s.sin_tan_phi / f
+    with np.errstate(divide="ignore", invalid="ignore"):
+        normal = (s.vertical_load - s.cohesion_term_sin / f) / m_alpha
+    effective = normal - s.pore_pressure * s.length
+    with np.errstate(invalid="ignore"):
+        negative_normal = np.any(s.active & (effective < 0) & (s.tan_phi > 0), axis=1)
+        low_m_alpha = np.any(s.active & (m_alpha <= M_ALPHA_MIN), axis=1)
+    bad_fos = ~np.isfinite(fos) | (fos <= 0)
+    last_iterate = np.where(bad_fos | ~s.any_active, np.nan, fos)
+    converged = progress.converged & ~bad_fos & s.any_active
+    return ScreeningResult(
+        fos=np.where(converged, last_iterate, np.nan),
+        last_iterate=last_iterate,
+        converged=converged,
+        admissible=converged & ~low_m_alpha & ~negative_normal,
+        iterations=np.asarray(progress.iterations, dtype=int),
+        low_m_alpha=low_m_alpha,
+        negative_normal=negative_normal,
+        any_active=s.any_active,
     )
 
 

@@ -1108,7 +1108,7 @@ def _evaluate_circles(section, centre_x, centre_y, radius, settings, direction=N
         part = slice(start, start + settings.batch_size)
         batch = slice_circles(
             section, centre_x[part], centre_y[part], radius[part], n_slices=settings.n_slices,
-            direction=direction,
+            direction=direction, weight_centroid=section.kh != 0,
         )
         parts.append(_solve_batch(batch, settings, centre_x[part], centre_y[part],
                                   radius[part], None, direction))
@@ -1141,13 +1141,10 @@ def _solve_batch(batch, settings, centre_x, centre_y, radius, points, direction)
             n_trials=len(centre_x), n_valid=0, rejected=rejected, filtered=filtered,
         )
     slices = batch.slices
-    solved = factor_of_safety(slices, method=settings.method, **_method_options(settings))
-    fos = np.asarray(solved.fos, dtype=float)  # NaN where not converged
-    last = np.asarray(solved.last_iterate, dtype=float)
+    fos, last, converged, doubtful, doubt_reasons = _screen(slices, settings)
     has_fos = np.isfinite(last) & (last > 0)
-    converged = np.asarray(solved.converged, dtype=bool) & has_fos
-    low_m_alpha = np.array(["m_alpha" in message for message in solved.message], dtype=bool)
-    doubtful = converged & ~np.asarray(solved.admissible, dtype=bool) & low_m_alpha
+    converged = converged & has_fos
+    doubtful &= converged
     if not settings.admissible_only:
         doubtful[:] = False
     depth, area = _surface_measures(slices)
@@ -1156,8 +1153,7 @@ def _solve_batch(batch, settings, centre_x, centre_y, radius, points, direction)
     small = area < settings.min_area
     filtered[NO_FOS] += int((~has_fos).sum())
     filtered[NOT_CONVERGED] += int((has_fos & ~converged).sum())
-    for i in np.nonzero(doubtful)[0]:
-        filtered[_doubt_reason(solved.message[i])] += 1
+    filtered.update(doubt_reasons(doubtful))
     fine = converged & ~doubtful
     filtered[TOO_SHALLOW] += int((fine & shallow).sum())
     filtered[TOO_SMALL] += int((fine & ~shallow & small).sum())
@@ -1181,6 +1177,35 @@ def _solve_batch(batch, settings, centre_x, centre_y, radius, points, direction)
     )
 
 
+def _screen(slices, settings):
+    """FoS, last iterate, converged flag and "doubtful" flag (converged but m_alpha too low) of
+    every surface of a batch by the search's method, and a function that counts the reasons
+    of the doubtful ones. Bishop's method screens without building the per-slice audit
+    tables (:func:`solver.methods.bishop_screening`); the other methods give a full result.
+    """
+    if settings.method == "bishop_simplified":
+        solved = methods.bishop_screening(slices, **_method_options(settings))
+
+        def doubt_reasons(doubtful):
+            # The reasons _doubt_reason makes of the full result's message.
+            tension = solved.negative_normal[doubtful]
+            base = "not admissible: " + _LOW_M_ALPHA_REASON
+            return +Counter({base: int((~tension).sum()),
+                             base + "; " + methods.NEGATIVE_NORMAL_NOTE: int(tension.sum())})
+
+        doubtful = ~solved.admissible & solved.low_m_alpha
+        return solved.fos, solved.last_iterate, solved.converged, doubtful, doubt_reasons
+    solved = factor_of_safety(slices, method=settings.method, **_method_options(settings))
+    low_m_alpha = np.array(["m_alpha" in message for message in solved.message], dtype=bool)
+    doubtful = ~np.asarray(solved.admissible, dtype=bool) & low_m_alpha
+
+    def doubt_reasons(doubtful):
+        return Counter(_doubt_reason(solved.message[i]) for i in np.flatnonzero(doubtful))
+
+    return (np.asarray(solved.fos, dtype=float), np.asarray(solved.last_iterate, dtype=float),
+            np.asarray(solved.converged, dtype=bool), doubtful, doubt_reasons)
+
+
 def _method_options(settings) -> dict:
     """The numerical settings the chosen method takes (the ordinary method is not iterative)."""
     parameters = inspect.signature(getattr(methods, settings.method)).parameters
@@ -1199,11 +1224,14 @@ def every_method(slices, settings: SearchSettings | None = None) -> dict:
     }
 
 
+_LOW_M_ALPHA_REASON = "m_alpha <= M_ALPHA_MIN at a slice base"
+
+
 def _doubt_reason(message: str) -> str:
     """A count key for a converged but doubtful result: the method's message without the
     surface-specific numbers."""
     parts = [p for p in message.split("; ") if p]
-    reasons = ["m_alpha <= M_ALPHA_MIN at a slice base" if "m_alpha" in p else p for p in parts]
+    reasons = [_LOW_M_ALPHA_REASON if "m_alpha" in p else p for p in parts]
     return "not admissible: " + ("; ".join(reasons) or "flagged by the method")
 
 

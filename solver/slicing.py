@@ -130,7 +130,7 @@ class SliceBatch:
 
     def rejected(self) -> Counter:
         """Number of rejected trial surfaces per reason."""
-        return Counter(str(r) for r in self.reason[~self.valid])
+        return Counter(self.reason[~self.valid].tolist())
 
 
 # --------------------------------------------------------------------------------------------
@@ -147,6 +147,7 @@ def slice_circles(
     *,
     direction: int | None = None,
     min_area: float = MIN_MASS_AREA,
+    weight_centroid: bool = True,
 ) -> SliceBatch:
     """Slice many circular trial surfaces at once.
 
@@ -164,19 +165,26 @@ def slice_circles(
         higher end of the ground towards the lower end).
     min_area : float
         [m2] Smaller sliding masses are rejected as "sliding mass too small".
+    weight_centroid : bool
+        False skips the centroid of the soil weight where no method needs it (kh = 0): the
+        ``y_weight`` of the slice table is then the base elevation, a placeholder. For
+        searches, which keep only the factors of safety.
 
     Returns
     -------
     SliceBatch
     """
     _check_settings(n_slices, min_area)
-    frame = _Frame.of(section, direction)
+    frame = _frame_of(section, direction)
+    if not weight_centroid and frame.kh != 0:
+        raise MethodError(f"weight_centroid=False needs kh = 0 (the line of action of kh W); "
+                          f"section {section.id!r} has kh = {frame.kh:g}")
     xc, yc, r = (np.atleast_1d(np.asarray(v, dtype=float)).ravel() for v in
                  np.broadcast_arrays(centre_x, centre_y, radius))
     surface = _Arc(frame.sign * xc, yc, r)
     reason = np.full(xc.size, "", dtype=object)
     reason[~(np.isfinite(xc) & np.isfinite(yc) & np.isfinite(r) & (r > 0))] = NOT_A_CIRCLE
-    return _slice(frame, surface, reason, n_slices, min_area, BURIED_CIRCLE)
+    return _slice(frame, surface, reason, n_slices, min_area, BURIED_CIRCLE, weight_centroid)
 
 
 def slice_polyline(
@@ -208,7 +216,7 @@ def slice_polyline(
         module docstring).
     """
     _check_settings(n_slices, min_area)
-    frame = _Frame.of(section, direction)
+    frame = _frame_of(section, direction)
     stack = np.asarray(points, dtype=float)
     if stack.ndim == 2:
         stack = stack[np.newaxis]
@@ -410,6 +418,21 @@ class _Frame:
         )
 
 
+# The last section sliced, its direction and frame: a search slices the same section in many
+# batches, and a Section is immutable.
+_last_frame: tuple = (None, None, None)
+
+
+def _frame_of(section: Section, direction: int | None) -> _Frame:
+    global _last_frame
+    last = _last_frame  # one read: another thread may replace it meanwhile
+    if last[0] is section and last[1] == direction:
+        return last[2]
+    frame = _Frame.of(section, direction)
+    _last_frame = (section, direction, frame)
+    return frame
+
+
 def _movement_sign(section: Section, direction: int | None) -> float:
     if direction is not None:
         if direction not in (1, -1):
@@ -549,7 +572,8 @@ def _interp_rows(x, points):
     return np.interp(x, points[:, 0], points[:, 1])
 
 
-def _slice(frame: _Frame, surface, reason, n_slices, min_area, buried_reason) -> SliceBatch:
+def _slice(frame: _Frame, surface, reason, n_slices, min_area, buried_reason,
+           weight_centroid=True) -> SliceBatch:
     n = len(surface)
     entry, exit_ = _entry_exit(frame, surface, reason, buried_reason)
     crack_force = np.zeros(n)
@@ -570,7 +594,8 @@ def _slice(frame: _Frame, surface, reason, n_slices, min_area, buried_reason) ->
 
     rows = np.flatnonzero(ok)
     part = surface.take(rows)
-    table, area, unbased = _slice_table(frame, part, entry[rows], exit_[rows], n_slices)
+    table, area, unbased = _slice_table(frame, part, entry[rows], exit_[rows], n_slices,
+                                        weight_centroid)
     reason[rows[unbased]] = BELOW_STRATA
     reason[rows[~unbased & (area < min_area)]] = TOO_SMALL
     keep = (reason[rows] == "")
@@ -671,7 +696,7 @@ def _clearance(surface, segments, entry, exit_):
     return gap.reshape(len(surface), -1).min(axis=1, initial=np.inf)
 
 
-def _slice_table(frame: _Frame, surface, entry, exit_, n_slices):
+def _slice_table(frame: _Frame, surface, entry, exit_, n_slices, weight_centroid=True):
     """The per-slice arrays of valid surfaces, with the mass area (n,) and a flag for surfaces
     with an active slice whose base lies in no stratum (n,)."""
     n = len(surface)
@@ -746,7 +771,8 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices):
         w_sat = at(frame.gamma_saturated[cell_material]) * saturated
         w_moist = at(frame.gamma[cell_material]) * moist
         weight += w_sat + w_moist
-        moment += w_sat * (low + 0.5 * saturated) + w_moist * (low + saturated + 0.5 * moist)
+        if weight_centroid:
+            moment += w_sat * (low + 0.5 * saturated) + w_moist * (low + saturated + 0.5 * moist)
         present = top > bottom
         base_material = np.where(
             (base_material < 0) & present & (bottom <= y_base) & (y_base < top),
@@ -756,8 +782,11 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices):
     base_material = np.where((base_material < 0) & (y_base >= y_top), top_material, base_material)
     soil_stress = weight.copy()  # [kPa] vertical total stress of the soil column
     weight *= b
-    with np.errstate(invalid="ignore", divide="ignore"):
-        y_weight = np.where(weight > 0, moment / soil_stress, y_base)
+    if weight_centroid:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            y_weight = np.where(weight > 0, moment / soil_stress, y_base)
+    else:
+        y_weight = y_base.copy()
     seismic_weight = weight.copy()
     top_water_horizontal = np.zeros(xm.shape)
     y_top_water = y_top.copy()
