@@ -31,9 +31,13 @@ def _time_option(text: str | None, option: str) -> datetime | None:
 @click.option("--section", "sections", multiple=True, help="Section id to assess (repeatable).")
 @click.option("--all", "every", is_flag=True, help="Assess every section, with a progress bar.")
 @click.option("--at", "at", help="Time to assess, ISO 8601 (UTC unless it carries an offset); default now.")
+@click.option("--cluster", help="Calculate on Dask: a scheduler address (tcp://HOST:8786) or local:N for "
+                                "a local cluster of N workers; default the site file's [cycle] cluster.")
+@click.option("--workers", type=int, help="Calculate in a local pool of N processes.")
 @workspace_option
 @json_option
-def assess(sections: tuple[str, ...], every: bool, at: str | None, workspace: Path, as_json: bool) -> None:
+def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str | None, workers: int | None,
+           workspace: Path, as_json: bool) -> None:
     """Run one assessment cycle now: ingest the waiting files, rebuild the water lines,
     re-evaluate the factor of safety, store the assessment, evaluate the trigger levels and
     queue notifications and inspection requests.
@@ -42,16 +46,19 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, workspace: Pa
     Example:
         slipwatch assess --all -w /srv/slipwatch/quillmarsh
         slipwatch assess --section WC-040 --json
+        slipwatch assess --all --workers 2
+        slipwatch assess --all --cluster tcp://10.0.0.5:8786
     """
     from watch.clock import SystemClock
-    from watch.cycle import run_cycle
+    from watch.cycle import cycle_executor, run_cycle
     from watch.caution import CAUTION
     from watch.workspace import open_workspace
 
     if not sections and not every:
         raise UserError("say what to assess: --section ID (repeatable) or --all")
-    report = run_cycle(open_workspace(workspace), SystemClock(), sections=list(sections) or None,
-                       at=_time_option(at, "--at"), progress=every and not as_json)  # fmt: skip
+    opened = open_workspace(workspace)
+    report = run_cycle(opened, SystemClock(), sections=list(sections) or None, at=_time_option(at, "--at"),
+                       progress=every and not as_json, executor=cycle_executor(opened, cluster, workers))  # fmt: skip
     if as_json:
         echo_json(report.to_dict() | {"caution": CAUTION})
         return
@@ -69,8 +76,9 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, workspace: Pa
         if s.notifications or s.inspections:
             click.echo(f"  {s.notifications} notification(s) queued, {s.inspections} inspection request(s) opened")
     rate = len(report.sections) / report.seconds if report.seconds else 0.0
-    click.echo(f"{len(report.sections)} section(s) in {report.seconds:.1f} s ({rate:.1f}/s), "
-               f"{len(report.failed)} failed or not converged")  # fmt: skip
+    click.echo(f"{len(report.sections)} section(s) in {report.seconds:.1f} s ({rate:.1f}/s) on "
+               f"{report.executor}, {len(report.failed)} failed or not converged, "
+               f"{report.retries} calculation(s) retried")  # fmt: skip
     click.echo(CAUTION)
 
 

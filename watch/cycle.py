@@ -51,6 +51,7 @@ from watch.analysis import analyse, surface_of
 from watch.clock import Clock, ManualClock
 from watch.config import SiteConfig
 from watch.errors import UserError
+from watch.executors import InProcessExecutor, SectionExecutor, SectionFailure, executor_for
 from watch.ingest import ingest
 from watch.parameters import current_section
 from watch.rainfall import worst_exceedance
@@ -62,6 +63,10 @@ from watch.workspace import Workspace
 __all__ = [
     "SectionOutcome",
     "CycleReport",
+    "SectionTask",
+    "SectionResult",
+    "compute_section",
+    "cycle_executor",
     "run_cycle",
     "replay_season",
     "ReplayReport",
@@ -110,6 +115,8 @@ class CycleReport:
     released: list[str] = field(default_factory=list)  # alerts un-shelved (expired)
     chattering: list[str] = field(default_factory=list)
     seconds: float = 0.0
+    executor: str = "in-process"  # where the sections were calculated
+    retries: int = 0  # calculation attempts repeated after a worker died, raised or stalled
 
     @property
     def failed(self) -> list[SectionOutcome]:
@@ -128,6 +135,8 @@ class CycleReport:
             "sections": [asdict(s) for s in self.sections],
             "released": self.released,
             "chattering": self.chattering,
+            "executor": self.executor,
+            "retries": self.retries,
         }
 
 
@@ -139,6 +148,8 @@ def run_cycle(
     at: datetime | None = None,
     progress: bool = False,
     ingest_waiting: bool = True,
+    executor: SectionExecutor | None = None,
+    compute=None,
 ) -> CycleReport:
     """Run one assessment cycle.
 
@@ -156,6 +167,12 @@ def run_cycle(
         Progress bar over the sections (sections done, failed, rate).
     ingest_waiting : bool
         Ingest the files waiting in incoming/ first (default).
+    executor : SectionExecutor, optional
+        Where the sections are calculated (:mod:`watch.executors`; default in this process).
+        Only this process writes to the store, whatever the executor.
+    compute : callable, optional
+        The per-section calculation, ``SectionTask -> SectionResult`` (default
+        :func:`compute_section`); another one is for tests and instrumentation.
 
     Returns
     -------
@@ -173,17 +190,24 @@ def run_cycle(
     config = workspace.config()
     settings = alert_settings(config)
     chosen = _chosen_sections(config, sections)
+    # Without an executor given, the site file's [cycle] cluster decides (the daemon's case);
+    # an executor made here (a pool, a local Dask cluster) lives for this cycle only.
+    owned = executor is None
+    if owned:
+        executor = cycle_executor(workspace) if settings.cycle.cluster else InProcessExecutor()
+    compute = compute_section if compute is None else compute
     with workspace.open_store() as store:
         with store.atomic():
             cycle_id = store.start_cycle(utc_text(at), utc_text(now))
         report.released = release_shelved(store, config, settings, now)
-        bar = tqdm(chosen, disable=not progress, unit="section", desc="assess")
-        failed = 0
-        for section_id in bar:
-            outcome = _cycle_section(workspace, store, config, settings, section_id, at, now)
-            report.sections.append(outcome)
-            failed += outcome.status in ("failed", "not converged")
-            bar.set_postfix(failed=failed)
+        try:
+            report.sections = _assess_sections(workspace, store, config, settings, chosen, at, now,
+                                               executor, compute, progress)  # fmt: skip
+        finally:
+            if owned:
+                executor.close()
+        report.executor = executor.describe()
+        report.retries = executor.retries
         report.chattering = [c for s in report.sections for c in s.warnings if c.startswith("chattering")]
         report.seconds = time.perf_counter() - started_wall
         with store.atomic():
@@ -191,10 +215,74 @@ def run_cycle(
     return report
 
 
+def _assess_sections(workspace, store: Store, config, settings: AlertSettings, chosen: list[str],
+                     at: datetime, now: datetime, executor: SectionExecutor, compute, progress: bool,
+                     ) -> list[SectionOutcome]:  # fmt: skip
+    """Prepare every section from the store and submit the ones to calculate; write each
+    section (assessment, water lines, cached search, alerts) in its own transaction, in the
+    order of ``chosen`` whatever order the workers finish in, so row ids do not depend on
+    the executor."""
+    bar = tqdm(total=len(chosen), disable=not progress, unit="section", desc="assess")
+    prepared: dict[str, tuple[_Calculation, float]] = {}  # and the seconds it took
+    computed: dict[str, SectionResult | SectionFailure] = {}
+    outcomes: list[SectionOutcome] = []
+    failed = 0
+
+    def write_ready():
+        nonlocal failed
+        while len(outcomes) < len(chosen):
+            section_id = chosen[len(outcomes)]
+            if section_id not in prepared:
+                return
+            calc, seconds = prepared[section_id]
+            if calc.status == "pending":
+                if section_id not in computed:
+                    return
+                result = computed.pop(section_id)
+                _take_result(calc, result)
+                seconds += getattr(result, "seconds", 0.0)
+            outcome = _record_section(store, config, settings, section_id, calc, at, now, seconds)
+            outcomes.append(outcome)
+            failed += outcome.status in ("failed", "not converged")
+            bar.update(1)
+            bar.set_postfix(failed=failed)
+
+    executor.start(compute)
+    with executor:
+        for section_id in chosen:
+            started = time.perf_counter()
+            calc, task = _prepare(workspace, store, config, settings, section_id, at, now)
+            prepared[section_id] = (calc, time.perf_counter() - started)
+            if task is not None:
+                executor.submit(section_id, task)
+            for done_id, result in executor.ready():
+                computed[done_id] = result
+            write_ready()
+        for section_id, result in executor.results():
+            computed[section_id] = result
+            write_ready()
+    bar.close()
+    if len(outcomes) != len(chosen):  # an executor that lost a section is a bug, not a result
+        missing = [s for s in chosen if s not in {o.section_id for o in outcomes}]
+        raise RuntimeError(f"the {executor.name} executor returned no result for {', '.join(missing)}")
+    return outcomes
+
+
+def cycle_executor(workspace: Workspace, cluster: str | None = None, workers: int | None = None,
+                   ) -> SectionExecutor:  # fmt: skip
+    """The executor of a cycle: ``cluster`` (Dask scheduler address or ``local:N``) or
+    ``workers`` (> 1: a local process pool) as given, else the site file's ``[cycle] cluster``,
+    else this process."""
+    if cluster is None and workers is None:
+        cluster = alert_settings(workspace.config()).cycle.cluster
+    return executor_for(cluster, workers)
+
+
 def _chosen_sections(config: SiteConfig, sections: list[str] | None) -> list[str]:
     known = [s.id for s in config.sections]
     if not sections:
         return known
+    sections = list(dict.fromkeys(sections))  # a section named twice is assessed once
     unknown = [s for s in sections if s not in known]
     if unknown:
         raise UserError(f"section(s) {', '.join(unknown)} not in the site file (sections: "
@@ -219,15 +307,68 @@ class _Calculation:
     warnings: list[str] = field(default_factory=list)
     message: str = ""
     new_search: SearchResult | None = None
+    new_search_json: str | None = None
     inputs: dict = field(default_factory=dict)
     inputs_key: str = ""
     live: bool = True
 
 
-def _cycle_section(workspace, store: Store, config, settings: AlertSettings, section_id: str,
-                   at: datetime, now: datetime) -> SectionOutcome:  # fmt: skip
+@dataclass(frozen=True)
+class SectionTask:
+    """All a worker needs to calculate one section: no store, no clock, picklable.
+
+    ``section`` already carries this cycle's water lines; ``cached_search_json`` is the warm
+    state (None when a full search is due: none cached for this parameter version, or the
+    scheduled one)."""
+
+    section_id: str
+    section: object
+    cached_search_json: str | None
+    full_search_tolerance: float
+
+
+@dataclass
+class SectionResult:
+    """A worker's answer for one section (plain and picklable)."""
+
+    section_id: str
+    status: str  # ok | not converged | failed
+    fos: float | None = None
+    method: str | None = None  # the governing method
+    evaluation: str | None = None  # full search | warm re-evaluation
+    critical: RankedSurface | None = None
+    by_method: list[dict] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+    message: str = ""
+    new_search_json: str | None = None  # the kept surfaces, when a full search ran
+    seconds: float = 0.0
+
+
+def compute_section(task: SectionTask) -> SectionResult:
+    """Factor of safety of one prepared section: warm re-evaluation of the cached surfaces,
+    or a full search when none is cached or the warm result advises one. Pure: what runs on a
+    worker. A library error is a failed result, not an exception."""
     started = time.perf_counter()
-    calc = _calculate(workspace, store, config, settings, section_id, at, now)
+    calc = _Calculation("ok")
+    try:
+        cached = None if task.cached_search_json is None else search_from_json(task.cached_search_json)
+        _solve(task.section, cached, task.full_search_tolerance, calc)
+    except (UserError, SolverError) as error:
+        calc.status, calc.message = "failed", f"factor of safety could not be calculated: {error}"
+    return SectionResult(
+        task.section_id, calc.status, fos=calc.fos, method=calc.method, evaluation=calc.evaluation,
+        critical=calc.critical, by_method=calc.by_method, warnings=calc.warnings, message=calc.message,
+        new_search_json=None if calc.new_search is None else search_to_json(calc.new_search),
+        seconds=time.perf_counter() - started,
+    )  # fmt: skip
+
+
+def _record_section(store: Store, config, settings: AlertSettings, section_id: str, calc: _Calculation,
+                    at: datetime, now: datetime, seconds: float) -> SectionOutcome:  # fmt: skip
+    """The coordinator's half: the assessment, its water lines, the new cached search and the
+    alerts of one section, in one transaction. ``seconds``: the preparation and calculation
+    time so far (the time spent waiting for a worker is not the section's)."""
+    started = time.perf_counter() - seconds
     rules = settings.rules_for(config, section_id)
     context = _context(store, config, settings, section_id, calc, at)
     values = {r.rule.name: _observe(store, r, calc, context, at) for r in rules}
@@ -242,8 +383,8 @@ def _cycle_section(workspace, store: Store, config, settings: AlertSettings, sec
             if calc.lines:
                 store_water_lines(store, outcome.assessment_id, section_id, at, calc.lines,
                                   created_utc=utc_text(now))  # fmt: skip
-            if calc.new_search is not None:
-                store.save_search(section_id, calc.version_id, utc_text(at), search_to_json(calc.new_search),
+            if calc.new_search_json is not None:
+                store.save_search(section_id, calc.version_id, utc_text(at), calc.new_search_json,
                                   utc_text(now))  # fmt: skip
         context.assessment_id = outcome.assessment_id
         result = process_section_alerts(store, config, settings, section_id, rules, values, at, now, context)
@@ -255,15 +396,17 @@ def _cycle_section(workspace, store: Store, config, settings: AlertSettings, sec
     return outcome
 
 
-def _calculate(workspace, store: Store, config, settings: AlertSettings, section_id: str,
-               at: datetime, now: datetime) -> _Calculation:  # fmt: skip
-    """Water lines and factor of safety; any library error becomes a failed calculation."""
+def _prepare(workspace, store: Store, config, settings: AlertSettings, section_id: str,
+             at: datetime, now: datetime) -> tuple[_Calculation, SectionTask | None]:  # fmt: skip
+    """Water lines and inputs from the store; the task to calculate, or None when the section
+    is settled without one (inputs could not be prepared, or unchanged since its last
+    assessment). Any library error becomes a failed calculation."""
     try:
         section, version_id = current_section(workspace, store, section_id, now)
         lines = water_lines_from_store(store, section, config, at)
     except (UserError, SolverError) as error:
-        return _Calculation("failed", message=f"inputs could not be prepared: {error}")
-    calc = _Calculation("ok", section=section, version_id=version_id, lines=lines)
+        return _Calculation("failed", message=f"inputs could not be prepared: {error}"), None
+    calc = _Calculation("pending", section=section, version_id=version_id, lines=lines)
     instrumented = {p.water_line for p in config.piezometers if p.section == section_id}
     for name, line in lines.items():
         if line.fallback != "none":
@@ -276,26 +419,38 @@ def _calculate(workspace, store: Store, config, settings: AlertSettings, section
     if last is not None and last["inputs_key"] == calc.inputs_key and last["status"] != "failed":
         calc.status = "unchanged"
         calc.message = f"inputs unchanged since the assessment at {last['time_utc']}"
-        return calc
+        return calc, None
     current = section.with_water_lines({name: est.points for name, est in lines.items()})
     try:
-        _solve(store, settings, section_id, current, calc, at)
+        cached = _cached_search_json(store, section_id, version_id, at, settings.cycle.full_search_every_hours)
     except (UserError, SolverError) as error:
         calc.status, calc.message = "failed", f"factor of safety could not be calculated: {error}"
+        return calc, None
+    return calc, SectionTask(section_id, current, cached, settings.cycle.full_search_tolerance)
+
+
+def _take_result(calc: _Calculation, result: SectionResult | SectionFailure) -> None:
+    """Fold a worker's answer into the prepared calculation."""
+    if isinstance(result, SectionFailure):
+        calc.status = "failed"
+        calc.message = (f"factor of safety could not be calculated: {result.attempts} attempt(s) "
+                        f"failed, the last with {result.message}")  # fmt: skip
+        return
+    calc.status, calc.fos, calc.method, calc.evaluation = result.status, result.fos, result.method, result.evaluation
+    calc.critical, calc.by_method, calc.message = result.critical, result.by_method, result.message
+    calc.warnings += result.warnings
+    calc.new_search_json = result.new_search_json
     if calc.status == "ok" and not calc.live:
         calc.status = "no live data"
         calc.message = ("a water line with piezometers fell back to its design line: the factor of "
                         "safety does not rest on readings")
-    return calc
 
 
-def _solve(store: Store, settings: AlertSettings, section_id: str, current, calc: _Calculation,
-           at: datetime) -> None:  # fmt: skip
-    cached = _cached_search(store, section_id, calc.version_id, at, settings.cycle.full_search_every_hours)
+def _solve(current, cached: SearchResult | None, full_search_tolerance: float, calc: _Calculation) -> None:
     reasons = ["no cached search for this parameter version" if cached is None else ""]
     if cached is not None:
         try:
-            warm = warm_reevaluate(current, cached, full_search_tolerance=settings.cycle.full_search_tolerance)
+            warm = warm_reevaluate(current, cached, full_search_tolerance=full_search_tolerance)
         except SolverError as error:
             reasons = [f"warm re-evaluation impossible: {error}"]
         else:
@@ -325,13 +480,13 @@ def _check_converged(calc: _Calculation) -> None:
         calc.status, calc.message = "failed", "the factor of safety is not a number"
 
 
-def _cached_search(store: Store, section_id: str, version_id, at: datetime, every_hours: float):
+def _cached_search_json(store: Store, section_id: str, version_id, at: datetime, every_hours: float):
     row = store.cached_search(section_id)
     if row is None or row["section_version_id"] != version_id:
         return None
     if abs(at - parse_utc_text(row["time_utc"])) >= timedelta(hours=every_hours):
         return None  # scheduled full search
-    return search_from_json(row["search_json"])
+    return row["search_json"]
 
 
 def _by_method(section, critical: RankedSurface, settings: SearchSettings) -> list[dict]:

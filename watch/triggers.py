@@ -138,6 +138,7 @@ class CycleSettings:
     full_search_tolerance: float = 0.05
     chatter_window_hours: float = 24.0
     chatter_max_changes: int = 6
+    cluster: str | None = None  # Dask scheduler address (or local:N) the cycle computes on
 
 
 @dataclass(frozen=True)
@@ -412,7 +413,7 @@ def _data(r: _Reader, t: dict, config: SiteConfig) -> DataAlertSettings:
 def _cycle(r: _Reader, t: dict) -> CycleSettings:
     where = "[cycle]"
     r.keys(t, where, {"full_search_every_hours", "full_search_tolerance", "chatter_window_hours",
-                      "chatter_max_changes"})  # fmt: skip
+                      "chatter_max_changes", "cluster"})  # fmt: skip
     default = CycleSettings()
     every = r.number(t, where, "full_search_every_hours", default=default.full_search_every_hours)
     tolerance = r.number(t, where, "full_search_tolerance", default=default.full_search_tolerance)
@@ -425,7 +426,11 @@ def _cycle(r: _Reader, t: dict) -> CycleSettings:
         r.fail(where, "full_search_tolerance", f"must be a fraction in [0, 1), got {tolerance}")
     if changes < 1:
         r.fail(where, "chatter_max_changes", f"must be >= 1, got {changes}")
-    return CycleSettings(every, tolerance, window, changes)
+    cluster = r.get(t, where, "cluster", str, default=None)
+    if cluster is not None and not (cluster.startswith("local:") or "://" in cluster):
+        r.fail(where, "cluster", f"must be a scheduler address such as tcp://10.0.0.5:8786 or local:N, "
+                                 f"got {cluster!r}")  # fmt: skip
+    return CycleSettings(every, tolerance, window, changes, cluster)
 
 
 def section_gauge(config: SiteConfig, section_id: str) -> str | None:

@@ -1,0 +1,425 @@
+"""Where the per-section calculations of an assessment cycle run: in this process (default),
+in a local process pool, or on a Dask distributed cluster.
+
+The cycle's coordinator prepares each section's inputs from the store, submits them here, and
+alone writes the results back, so the single-writer SQLite store never sees a worker. An
+executor only moves a picklable task to a worker and a picklable result back, and owns the
+retries: a worker that dies, raises or stalls costs a new attempt of its sections (at most
+``max_attempts`` in all); a section that keeps failing comes back as a :class:`SectionFailure`,
+never silently dropped and never returned twice.
+
+Dask is an optional extra (``pip install slipwatch[cluster]``) and is imported only when a
+cluster is asked for.
+"""
+
+from __future__ import annotations
+
+import importlib
+from collections.abc import Callable, Iterator
+from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import dataclass
+
+from watch.errors import ConfigError, UserError
+
+__all__ = [
+    "DEFAULT_MAX_ATTEMPTS",
+    "DEFAULT_STALL_TIMEOUT_S",
+    "SectionFailure",
+    "SectionExecutor",
+    "InProcessExecutor",
+    "ProcessPoolSectionExecutor",
+    "DaskSectionExecutor",
+    "executor_for",
+]
+
+#: Attempts of one section before it is reported as failed (first try included).
+DEFAULT_MAX_ATTEMPTS = 3
+
+#: A parallel executor whose workers return nothing for this long counts the sections in
+#: flight as timed out [s]. A full search of a three-layer section takes seconds, so ten
+#: minutes only catches a hung or lost worker.
+DEFAULT_STALL_TIMEOUT_S = 600.0
+
+
+@dataclass(frozen=True)
+class SectionFailure:
+    """A section whose calculation failed on every attempt (a worker died, raised or stalled)."""
+
+    key: str
+    attempts: int
+    message: str
+
+
+def _check_limits(max_attempts: int, stall_timeout_s: float) -> None:
+    if not isinstance(max_attempts, int) or max_attempts < 1:
+        raise ConfigError(f"max_attempts must be an integer >= 1, got {max_attempts!r}")
+    if not stall_timeout_s > 0:
+        raise ConfigError(f"stall timeout must be > 0 s, got {stall_timeout_s!r}")
+
+
+class SectionExecutor:
+    """Runs ``compute(task)`` for submitted tasks and yields ``(key, result)`` as they finish,
+    ``result`` being a :class:`SectionFailure` once the attempts are spent.
+
+    Use as a context manager; ``submit`` never blocks on the calculation, so the coordinator
+    keeps preparing sections while the workers compute.
+    """
+
+    name = "abstract"
+    workers = 1
+
+    def __init__(self, max_attempts: int = DEFAULT_MAX_ATTEMPTS,
+                 stall_timeout_s: float = DEFAULT_STALL_TIMEOUT_S) -> None:  # fmt: skip
+        _check_limits(max_attempts, stall_timeout_s)
+        self.max_attempts = max_attempts
+        self.stall_timeout_s = stall_timeout_s
+        self.retries = 0  # attempts beyond the first, over the executor's life
+        self._compute: Callable | None = None
+
+    def start(self, compute: Callable) -> None:
+        self._compute = compute
+
+    def submit(self, key: str, task) -> None:
+        raise NotImplementedError
+
+    def results(self) -> Iterator[tuple[str, object]]:
+        """Every submitted section's result, blocking until the last one."""
+        raise NotImplementedError
+
+    def ready(self) -> Iterator[tuple[str, object]]:
+        """The results available now, without waiting on a worker (none by default)."""
+        return iter(())
+
+    def close(self) -> None:
+        pass
+
+    def describe(self) -> str:
+        return f"{self.name}, {self.workers} worker(s)"
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+
+class InProcessExecutor(SectionExecutor):
+    """Every section in this process, one after the other (embedded, no extra service)."""
+
+    name = "in-process"
+
+    def __init__(self, **limits) -> None:
+        super().__init__(**limits)
+        self._queue: list[tuple[str, object]] = []
+
+    def submit(self, key: str, task) -> None:
+        self._queue.append((key, task))
+
+    def ready(self):
+        # Calculating as soon as a section is submitted keeps the in-process cycle's order:
+        # prepare, calculate and write one section before preparing the next.
+        return self.results()
+
+    def results(self):
+        queue, self._queue = self._queue, []
+        for key, task in queue:
+            for attempt in range(1, self.max_attempts + 1):
+                try:
+                    result = self._compute(task)
+                except Exception as error:  # a library error is the compute step's own result
+                    self.retries += attempt < self.max_attempts
+                    if attempt == self.max_attempts:
+                        result = SectionFailure(key, attempt, f"{type(error).__name__}: {error}")
+                        break
+                else:
+                    break
+            yield key, result
+
+
+class ProcessPoolSectionExecutor(SectionExecutor):
+    """A local pool of ``workers`` processes (concurrent.futures).
+
+    A worker that dies breaks the whole pool: the pool is rebuilt, the sections that were in
+    flight are charged one attempt and re-run one at a time (so the one that kills its worker
+    is found without charging its neighbours again), and the others are resubmitted uncharged.
+    """
+
+    name = "process pool"
+
+    def __init__(self, workers: int = 2, **limits) -> None:
+        super().__init__(**limits)
+        if not isinstance(workers, int) or workers < 1:
+            raise ConfigError(f"--workers must be an integer >= 1, got {workers!r}")
+        self.workers = workers
+        self._pool: ProcessPoolExecutor | None = None
+        self._tasks: dict[str, object] = {}  # submitted, not yet yielded, in submission order
+        self._futures: dict[str, object] = {}
+        self._attempts: dict[str, int] = {}
+
+    def start(self, compute: Callable) -> None:
+        super().start(compute)
+        self._pool = ProcessPoolExecutor(self.workers)
+
+    def submit(self, key: str, task) -> None:
+        self._tasks[key] = task
+        self._attempts[key] = 0
+        self._send(key)
+
+    def ready(self):
+        # Results already in let the coordinator write while it still prepares sections;
+        # failures wait for results(), which owns the retries.
+        for key, future in list(self._futures.items()):
+            if future.done() and future.exception() is None:
+                del self._futures[key]
+                yield key, self._finish(key, future.result())
+
+    def _send(self, key: str) -> None:
+        try:
+            self._futures[key] = self._pool.submit(self._compute, self._tasks[key])
+        except BrokenProcessPool as error:  # a worker died since: results() rebuilds the pool
+            self._futures[key] = Future()
+            self._futures[key].set_exception(error)
+
+    def results(self):
+        while self._tasks:
+            by_future = {f: k for k, f in self._futures.items()}
+            done, _ = wait(by_future, timeout=self.stall_timeout_s, return_when=FIRST_COMPLETED)
+            broken = not done
+            why = f"no section finished within {self.stall_timeout_s:g} s"
+            for future in done:
+                key = by_future[future]
+                error = future.exception()
+                if isinstance(error, BrokenProcessPool):
+                    broken, why = True, "the worker process died"
+                    continue
+                del self._futures[key]
+                if error is None:
+                    yield key, self._finish(key, future.result())
+                elif (failure := self._charge(key, f"{type(error).__name__}: {error}")) is not None:
+                    yield key, failure
+                else:
+                    self._send(key)
+            if broken:
+                yield from self._recover(why)
+
+    def _finish(self, key: str, result):
+        del self._tasks[key]
+        return result
+
+    def _charge(self, key: str, message: str) -> SectionFailure | None:
+        """Count a failed attempt; the failure itself once the attempts are spent."""
+        self._attempts[key] += 1
+        if self._attempts[key] >= self.max_attempts:
+            del self._tasks[key]
+            self._futures.pop(key, None)
+            return SectionFailure(key, self._attempts[key], message)
+        self.retries += 1
+        return None
+
+    def _recover(self, why: str):
+        # The pool hands tasks to its workers in submission order, at most workers + 1 ahead
+        # (Python's ProcessPoolExecutor queues one extra call), so the sections in flight were
+        # the oldest unfinished ones.
+        unfinished = [k for k in self._tasks if k in self._futures]
+        suspects, innocent = unfinished[: self.workers + 1], unfinished[self.workers + 1:]
+        self._restart_pool()
+        for key in suspects:
+            if (failure := self._charge(key, why)) is not None:
+                yield key, failure
+        for key in suspects:
+            if key in self._tasks:
+                yield from self._isolated(key)
+        for key in innocent:
+            self._send(key)
+
+    def _isolated(self, key: str):
+        """Run one suspect alone until it succeeds or its attempts are spent."""
+        while True:
+            self._send(key)
+            future = self._futures[key]
+            done, _ = wait([future], timeout=self.stall_timeout_s)
+            if done and future.exception() is None:
+                self._futures.pop(key, None)
+                yield key, self._finish(key, future.result())
+                return
+            if not done:
+                message = f"no result within {self.stall_timeout_s:g} s"
+            elif isinstance(future.exception(), BrokenProcessPool):
+                message = "the worker process died"
+            else:
+                message = f"{type(future.exception()).__name__}: {future.exception()}"
+            if not done or isinstance(future.exception(), BrokenProcessPool):
+                self._restart_pool()
+            if (failure := self._charge(key, message)) is not None:
+                yield key, failure
+                return
+
+    def _restart_pool(self) -> None:
+        self._terminate()
+        self._pool = ProcessPoolExecutor(self.workers)
+
+    def _terminate(self) -> None:
+        if self._pool is None:
+            return
+        # concurrent.futures cannot stop a running call: a hung worker is ended by its pid.
+        for process in list((getattr(self._pool, "_processes", None) or {}).values()):
+            if process.is_alive():
+                process.terminate()
+        self._pool.shutdown(wait=True, cancel_futures=True)
+        self._pool = None
+
+    def close(self) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+            self._pool = None
+
+
+class DaskSectionExecutor(SectionExecutor):
+    """A Dask distributed cluster: a scheduler at ``address`` (``tcp://host:8786``), or
+    ``local:N`` for a local cluster of N single-threaded worker processes started for the
+    cycle and stopped after it.
+
+    The scheduler already re-runs the tasks of a worker that died (up to its
+    ``distributed.scheduler.allowed-failures``); a task that still errs is resubmitted here
+    until ``max_attempts`` are spent.
+    """
+
+    name = "dask"
+
+    def __init__(self, address: str, **limits) -> None:
+        super().__init__(**limits)
+        self.address = address
+        self._client = None
+        self._cluster = None
+        self._tasks: dict[str, object] = {}
+        self._futures: dict[str, object] = {}
+        self._attempts: dict[str, int] = {}
+        self._serial = 0
+
+    def start(self, compute: Callable) -> None:
+        super().start(compute)
+        try:
+            import dask
+            from dask.distributed import Client, LocalCluster
+        except ImportError:
+            raise UserError("a Dask cluster needs the optional extra: pip install 'slipwatch[cluster]'") from None
+        if self.address.startswith("local:"):
+            workers = _local_workers(self.address)
+            # The workers' sampling profiler takes the GIL every few milliseconds, which
+            # costs a pure-Python search a noticeable share of its time (measured in
+            # tests/benchmarks/bench_cycle.py); an existing cluster keeps its own setting.
+            with dask.config.set({"distributed.worker.profile.enabled": False}):
+                self._cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                                             dashboard_address=None)  # fmt: skip
+            self._client = Client(self._cluster)
+        else:
+            try:
+                self._client = Client(self.address, timeout=30)
+            except (OSError, TimeoutError) as error:
+                raise UserError(f"cannot reach the Dask scheduler at {self.address}: {error}") from None
+        self.workers = len(self._client.scheduler_info(n_workers=-1)["workers"]) or 1
+        # Loading the solver on every worker now checks that slipwatch is installed there and
+        # keeps the import time out of the first sections' calculation.
+        try:
+            self._client.run(importlib.import_module, "watch.cycle")
+        except ImportError as error:
+            self.close()
+            raise UserError(f"the Dask workers at {self.address} cannot load slipwatch ({error}): install "
+                            "slipwatch, at the version of this coordinator, on every worker") from None
+
+    def describe(self) -> str:
+        return f"dask at {self.address}, {self.workers} worker(s)"
+
+    def submit(self, key: str, task) -> None:
+        self._tasks[key] = task
+        self._attempts[key] = 0
+        self._send(key)
+
+    def ready(self):
+        for key, future in list(self._futures.items()):
+            if future.status == "finished":
+                del self._futures[key]
+                del self._tasks[key]
+                yield key, future.result()
+
+    def _send(self, key: str) -> None:
+        # A fresh task key per attempt: a retried section is never confused with the
+        # attempt it replaces, whatever the scheduler still holds of that one.
+        self._serial += 1
+        self._futures[key] = self._client.submit(self._compute, self._tasks[key], pure=False,
+                                                 key=f"slipwatch-{key}-{self._serial}")  # fmt: skip
+
+    def results(self):
+        from dask.distributed import wait as dask_wait
+
+        while self._tasks:
+            by_future = {f: k for k, f in self._futures.items()}
+            try:
+                done, _ = dask_wait(list(by_future), timeout=self.stall_timeout_s, return_when="FIRST_COMPLETED")
+            except TimeoutError:
+                done, stalled = [], list(by_future)
+            else:
+                stalled = []
+            for future in done:
+                key = by_future[future]
+                del self._futures[key]
+                if future.status == "finished":
+                    result = future.result()
+                    del self._tasks[key]
+                    yield key, result
+                    continue
+                error = future.exception() if future.status == "error" else future.status
+                message = f"{type(error).__name__}: {error}" if isinstance(error, BaseException) else str(error)
+                if (failure := self._charge(key, message)) is not None:
+                    yield key, failure
+                else:
+                    self._send(key)
+            for future in stalled:
+                key = by_future[future]
+                future.cancel()
+                del self._futures[key]
+                if (failure := self._charge(key, f"no section finished within {self.stall_timeout_s:g} s")):
+                    yield key, failure
+                else:
+                    self._send(key)
+
+    def _charge(self, key: str, message: str) -> SectionFailure | None:
+        self._attempts[key] += 1
+        if self._attempts[key] >= self.max_attempts:
+            del self._tasks[key]
+            return SectionFailure(key, self._attempts[key], message)
+        self.retries += 1
+        return None
+
+    def close(self) -> None:
+        if self._client is not None:
+            self._client.close()
+            self._client = None
+        if self._cluster is not None:
+            self._cluster.close()
+            self._cluster = None
+
+
+def _local_workers(address: str) -> int:
+    text = address.removeprefix("local:")
+    if not text.isdigit() or int(text) < 1:
+        raise ConfigError(f"--cluster {address!r}: give local:N with N >= 1 workers, e.g. local:2")
+    return int(text)
+
+
+def executor_for(cluster: str | None = None, workers: int | None = None, **limits) -> SectionExecutor:
+    """The executor a cycle asked for: ``cluster`` (``tcp://host:port`` or ``local:N``) runs on
+    Dask; otherwise ``workers`` > 1 a local process pool; otherwise in this process."""
+    if cluster:
+        if workers is not None:
+            raise UserError("give either --cluster or --workers, not both (a cluster has its own workers)")
+        if not (cluster.startswith("local:") or "://" in cluster):
+            raise ConfigError(f"cluster {cluster!r}: give a scheduler address such as tcp://10.0.0.5:8786 "
+                              "or local:N")  # fmt: skip
+        return DaskSectionExecutor(cluster, **limits)
+    if workers is not None and workers > 1:
+        return ProcessPoolSectionExecutor(workers, **limits)
+    if workers is not None and workers < 1:
+        raise ConfigError(f"--workers must be >= 1, got {workers}")
+    return InProcessExecutor(**limits)
