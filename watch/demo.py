@@ -188,6 +188,8 @@ def run_demo(
     echo(f"   figures: {ws.reports}")
     echo(f"   try: slipwatch status --workspace {ws.root}; slipwatch alerts --workspace "
          f"{ws.root}; slipwatch inspections --workspace {ws.root}")
+    echo(f"   (the demo season ended on {settings.end:%Y-%m-%d}: run today, `status` rightly "
+         "reports every instrument as stale)")
     echo("")
     echo(CAUTION)
     return summary
