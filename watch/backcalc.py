@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import tomllib
 from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
 from pathlib import Path
@@ -44,6 +43,7 @@ from watch.errors import ConfigError, ModelError
 from watch.parameters import current_section
 from watch.sections import load_section
 from watch.store import Store, utc_text
+from watch.tomlfiles import read_toml
 from watch.waterlines import water_lines_from_store
 from watch.workspace import Workspace
 
@@ -139,17 +139,7 @@ class SlipCase:
 def load_case(path: Path | str) -> SlipCase:
     """Read and check a case file; ConfigError naming the file and key on any fault."""
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-        data = tomllib.loads(raw.decode("utf-8"))
-    except FileNotFoundError:
-        raise ConfigError(f"{path}: case file not found") from None
-    except IsADirectoryError:
-        raise ConfigError(f"{path}: is a folder, not a case file") from None
-    except UnicodeDecodeError:
-        raise ConfigError(f"{path}: not a UTF-8 text file; save it as UTF-8") from None
-    except tomllib.TOMLDecodeError as error:
-        raise ConfigError(f"{path}: not valid TOML: {error}") from None
+    data, raw = read_toml(path, "case file")
     where = str(path)
     for key in data:
         if key not in _TABLES and key not in _ARRAYS:
@@ -663,7 +653,7 @@ _OBSERVED_COLOUR = "#CC79A7"
 def plot_back_analysis(outcome: CaseResult, path: Path | str, dpi: int = 150) -> Path:
     """Draw the locus with the history band (top) and the section with the observed and the
     best-fit critical surfaces (bottom) to the PNG ``path``."""
-    from watch.plots import WATER_COLOUR, _draw_strata, plt
+    from watch.plots import WATER_COLOUR, draw_strata, plt
 
     path = Path(path)
     result, case = outcome.result, outcome.case
@@ -714,7 +704,7 @@ def plot_back_analysis(outcome: CaseResult, path: Path | str, dpi: int = 150) ->
                     np.array([case.bounds["entry"], case.bounds["exit"]], dtype=float))
     ground = section.ground
     y_floor = min(ground[:, 1].min(), observed[:, 1].min()) - 2.0
-    handles = _draw_strata(bottom, section, y_floor)
+    handles = draw_strata(bottom, section, y_floor)
     bottom.plot(*ground.T, color="black", linewidth=1.2)
     for i, line in enumerate(outcome.at_failure[case.section_id].water_lines):
         (drawn,) = bottom.plot(*line.points.T, color=WATER_COLOUR, linewidth=1.3,

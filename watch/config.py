@@ -33,6 +33,7 @@ __all__ = [
     "IngestSettings",
     "load_site_config",
     "parse_site_config",
+    "TableReader",
 ]
 
 #: Reading types of a piezometer and the unit of its raw value.
@@ -223,7 +224,7 @@ def load_site_config(path: Path | str) -> SiteConfig:
 
 def parse_site_config(data: dict, source: str = "site.toml", path: Path | None = None) -> SiteConfig:
     """Check the parsed TOML ``data`` of a site file and build a SiteConfig."""
-    r = _Reader(source)
+    r = TableReader(source)
     site = r.table(data, "site", "[site]", required=True)
     r.keys(site, "[site]", {"id", "name", "owner", "time_zone"})
     time_zone = r.get(site, "[site]", "time_zone", str, default="UTC")
@@ -255,7 +256,7 @@ def parse_site_config(data: dict, source: str = "site.toml", path: Path | None =
 # --- tables -----------------------------------------------------------------------------------
 
 
-def _section(r: _Reader, t: dict, i: int) -> SectionRef:
+def _section(r: TableReader, t: dict, i: int) -> SectionRef:
     where = _where("section", t, i)
     r.keys(t, where, {"id", "file", "gauge", "location", "water_line"})
     sid = r.get(t, where, "id", str)
@@ -286,7 +287,7 @@ _SIDE_RULE_KEYS = {
 }
 
 
-def _water_line_settings(r: _Reader, t: dict, where: str) -> WaterLineSettings:
+def _water_line_settings(r: TableReader, t: dict, where: str) -> WaterLineSettings:
     r.keys(t, where, {"name", "left", "right", "max_age_hours"})
     name = r.get(t, where, "name", str)
     where = where.rsplit(" water_line", 1)[0] + f" water_line {name!r}"
@@ -298,7 +299,7 @@ def _water_line_settings(r: _Reader, t: dict, where: str) -> WaterLineSettings:
     return WaterLineSettings(name=name, left=left, right=right, max_age_hours=age)
 
 
-def _side_rule(r: _Reader, t: dict, where: str, side: str) -> SideRule:
+def _side_rule(r: TableReader, t: dict, where: str, side: str) -> SideRule:
     """``{rule = "...", depth/level/from = ...}``; an absent side keeps the default rule."""
     if not t:
         return DEFAULT_SIDE_RULE
@@ -322,7 +323,7 @@ def _side_rule(r: _Reader, t: dict, where: str, side: str) -> SideRule:
     return SideRule(rule)
 
 
-def _piezometer(r: _Reader, t: dict, i: int) -> Piezometer:
+def _piezometer(r: TableReader, t: dict, i: int) -> Piezometer:
     where = _where("piezometer", t, i)
     keys = {
         "id", "section", "offset", "tip_elevation", "collar_elevation", "water_line", "reading",
@@ -361,7 +362,7 @@ def _piezometer(r: _Reader, t: dict, i: int) -> Piezometer:
     )
 
 
-def _calibration(r: _Reader, t: dict, owner: str) -> VibratingWireCalibration:
+def _calibration(r: TableReader, t: dict, owner: str) -> VibratingWireCalibration:
     where = f"{owner}.calibration"
     r.keys(
         t,
@@ -397,7 +398,7 @@ def _calibration(r: _Reader, t: dict, owner: str) -> VibratingWireCalibration:
     )
 
 
-def _rain_gauge(r: _Reader, t: dict, i: int) -> RainGauge:
+def _rain_gauge(r: TableReader, t: dict, i: int) -> RainGauge:
     where = _where("rain_gauge", t, i)
     r.keys(t, where, {"id", "location", "reporting", "bucket_mm", "valid_range"})
     gid = r.get(t, where, "id", str)
@@ -414,7 +415,7 @@ def _rain_gauge(r: _Reader, t: dict, i: int) -> RainGauge:
     )
 
 
-def _feed(r: _Reader, t: dict, i: int) -> FeedSpec:
+def _feed(r: TableReader, t: dict, i: int) -> FeedSpec:
     where = _where("feed", t, i, "name")
     keys = {
         "name", "pattern", "layout", "skip_rows", "time_column", "time_format", "time_zone",
@@ -482,7 +483,7 @@ def _feed(r: _Reader, t: dict, i: int) -> FeedSpec:
     return spec
 
 
-def _ingest(r: _Reader, t: dict) -> IngestSettings:
+def _ingest(r: TableReader, t: dict) -> IngestSettings:
     where = "[ingest]"
     r.keys(
         t,
@@ -515,7 +516,7 @@ def _ingest(r: _Reader, t: dict) -> IngestSettings:
     return IngestSettings(oldest_reading=oldest, done_suffix=done, **values)
 
 
-def _cross_check(r: _Reader, config: SiteConfig) -> None:
+def _cross_check(r: TableReader, config: SiteConfig) -> None:
     seen: dict[str, str] = {}
     for kind, items in (("section", config.sections), ("piezometer", config.piezometers),
                         ("rain_gauge", config.rain_gauges), ("feed", config.feeds)):  # fmt: skip
@@ -571,14 +572,14 @@ def _is_number(value) -> bool:
     return isinstance(value, (int, float)) and not isinstance(value, bool)
 
 
-def _string_map(r: _Reader, t: dict, where: str, key: str) -> dict[str, str]:
+def _string_map(r: TableReader, t: dict, where: str, key: str) -> dict[str, str]:
     value = t.get(key, {})
     if not isinstance(value, dict) or not all(isinstance(v, str) for v in value.values()):
         r.fail(where, key, f"must be a table of raw column = \"instrument id\", got {value!r}")
     return dict(value)
 
 
-class _Reader:
+class TableReader:
     """Typed access to TOML tables with errors that name the file, table and key."""
 
     def __init__(self, source: str):

@@ -47,7 +47,7 @@ from apscheduler.schedulers.background import BackgroundScheduler
 from apscheduler.triggers.interval import IntervalTrigger
 
 from watch.clock import Clock, SystemClock
-from watch.config import SiteConfig, _Reader
+from watch.config import SiteConfig, TableReader
 from watch.errors import ConfigError, UserError, WorkspaceError
 from watch.notify import DeliveryReport, deliver_pending, missing_credentials, notify_settings
 from watch.store import utc_text
@@ -74,7 +74,7 @@ class DaemonSettings:
 
 def daemon_settings(config: SiteConfig, root: Path) -> DaemonSettings:
     """Read ``[daemon]`` of the site file; the log file is relative to the workspace ``root``."""
-    r = _Reader(str(config.path) if config.path else "site.toml")
+    r = TableReader(str(config.path) if config.path else "site.toml")
     t = r.table(config.raw, "daemon", "[daemon]")
     where = "[daemon]"
     r.keys(t, where, {"interval_minutes", "delivery_seconds", "misfire_grace_seconds",

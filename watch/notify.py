@@ -40,7 +40,7 @@ from pathlib import Path
 from zoneinfo import ZoneInfo
 
 from watch.clock import Clock
-from watch.config import SiteConfig, _Reader
+from watch.config import SiteConfig, TableReader
 from watch.store import Store, parse_utc_text, utc_text
 from watch.workspace import Workspace
 
@@ -154,7 +154,7 @@ class NotifySettings:
 
 def notify_settings(config: SiteConfig, root: Path) -> NotifySettings:
     """Read ``[notify]`` of the site file; the log file is relative to the workspace ``root``."""
-    r = _Reader(str(config.path) if config.path else "site.toml")
+    r = TableReader(str(config.path) if config.path else "site.toml")
     t = r.table(config.raw, "notify", "[notify]")
     where = "[notify]"
     r.keys(t, where, {"log_file", "group_window_minutes", "timeout_seconds", "retry_first_minutes",
@@ -195,7 +195,7 @@ def notify_settings(config: SiteConfig, root: Path) -> NotifySettings:
     )
 
 
-def _email(r: _Reader, t: dict) -> EmailSettings:
+def _email(r: TableReader, t: dict) -> EmailSettings:
     where = "[notify.email]"
     r.keys(t, where, {"host", "port", "sender", "security", "user_env", "password_env", "recipients"})
     security = r.choice(t, where, "security", _SMTP_SECURITY) if "security" in t else "starttls"
@@ -222,7 +222,7 @@ def _email(r: _Reader, t: dict) -> EmailSettings:
     )  # fmt: skip
 
 
-def _webhook(r: _Reader, t: dict, i: int) -> WebhookSettings:
+def _webhook(r: TableReader, t: dict, i: int) -> WebhookSettings:
     name = t.get("name")
     where = f"[[notify.webhook]] {name!r}" if isinstance(name, str) else f"[[notify.webhook]] #{i + 1}"
     r.keys(t, where, {"name", "url", "levels", "secret_env"})
@@ -237,7 +237,7 @@ def _webhook(r: _Reader, t: dict, i: int) -> WebhookSettings:
                            secret_env=_env_name(r, t, where, "secret_env"))  # fmt: skip
 
 
-def _env_name(r: _Reader, t: dict, where: str, key: str) -> str | None:
+def _env_name(r: TableReader, t: dict, where: str, key: str) -> str | None:
     name = r.get(t, where, key, str, default=None)
     if name is not None and not name.replace("_", "").isalnum():
         # A value that is not a variable name is most likely the secret itself: refuse it

@@ -93,7 +93,7 @@ def plot_section(
     aspect = (y_ceiling - y_floor) / max(x_hi - x_lo, 1e-9)
     axes_height = float(np.clip(_AXES_WIDTH_IN * aspect, 1.8, 7.0))
     fig, ax = plt.subplots(figsize=(10, axes_height + 1.5), layout="constrained")
-    handles = _draw_strata(ax, section, y_floor)
+    handles = draw_strata(ax, section, y_floor)
     ax.plot(ground[:, 0], ground[:, 1], color="black", linewidth=1.2)
     if section.base is not None:
         ax.plot(*section.base.T, color="#555555", linewidth=2.0, linestyle="-.")
@@ -159,7 +159,7 @@ def _lighten(colour: str) -> tuple:
     return tuple(rgb + (1 - rgb) * _LIGHTEN)
 
 
-def _draw_strata(ax, section, y_floor) -> list:
+def draw_strata(ax, section, y_floor) -> list:
     """Fill every stratum cell with its material's colour; legend handles of the materials."""
     columns = section.columns
     x = columns.x

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 from datetime import timedelta
 
 from watch.alerts import Direction, TriggerRule
-from watch.config import SiteConfig, _Reader
+from watch.config import SiteConfig, TableReader
 from watch.errors import ConfigError
 from watch.rainfall import CAINE_1980, GUZZETTI_2008_GLOBAL, IntensityDurationThreshold, gauge_for_section
 
@@ -232,7 +232,7 @@ def alert_settings(config: SiteConfig) -> AlertSettings:
     Raises ConfigError naming the file, the table and the key.
     """
     source = str(config.path) if config.path else "site.toml"
-    r = _Reader(source)
+    r = TableReader(source)
     raw = config.raw
     levels: dict[str, Level] = {}
     for i, t in enumerate(r.array(raw, "level")):
@@ -264,7 +264,7 @@ def alert_settings(config: SiteConfig) -> AlertSettings:
 # --- parsing ----------------------------------------------------------------------------------
 
 
-def _level(r: _Reader, t: dict, i: int) -> Level:
+def _level(r: TableReader, t: dict, i: int) -> Level:
     where = f"[[level]] {t['name']!r}" if isinstance(t.get("name"), str) else f"[[level]] #{i + 1}"
     r.keys(t, where, {"name", "rank", "expectation", "inspection_due_hours", "checklist"})
     rank = r.get(t, where, "rank", int)
@@ -287,7 +287,7 @@ def _level(r: _Reader, t: dict, i: int) -> Level:
     )
 
 
-def _trigger(r: _Reader, t: dict, i: int, levels: dict, sections: set, config: SiteConfig) -> TriggerSpec:
+def _trigger(r: TableReader, t: dict, i: int, levels: dict, sections: set, config: SiteConfig) -> TriggerSpec:
     name = t.get("name")
     where = f"[[trigger]] {name!r}" if isinstance(name, str) else f"[[trigger]] #{i + 1}"
     r.keys(t, where, {"name", "section", "enabled", "quantity", "level", "trigger", "clear",
@@ -385,7 +385,7 @@ def _section_rule(spec: TriggerSpec, level: Level, instrument: str | None, sourc
     )
 
 
-def _data(r: _Reader, t: dict, config: SiteConfig) -> DataAlertSettings:
+def _data(r: TableReader, t: dict, config: SiteConfig) -> DataAlertSettings:
     where = "[data_alerts]"
     r.keys(t, where, {"stale_hours", "stale_clear_hours", "flat_line", "suspect", "assessment",
                       "on_delay_hours", "off_delay_hours"})  # fmt: skip
@@ -410,7 +410,7 @@ def _data(r: _Reader, t: dict, config: SiteConfig) -> DataAlertSettings:
     )  # fmt: skip
 
 
-def _cycle(r: _Reader, t: dict) -> CycleSettings:
+def _cycle(r: TableReader, t: dict) -> CycleSettings:
     where = "[cycle]"
     r.keys(t, where, {"full_search_every_hours", "full_search_tolerance", "chatter_window_hours",
                       "chatter_max_changes", "cluster"})  # fmt: skip

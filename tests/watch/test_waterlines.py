@@ -17,7 +17,6 @@ import pytest
 from solver.methods import bishop_simplified
 from solver.slicing import slice_surface
 from watch.analysis import analyse, surface_of
-from watch.assessment import water_lines_at
 from watch.config import parse_site_config
 from watch.errors import ConfigError
 from watch.forecast import calibrate_response_models
@@ -35,6 +34,7 @@ from watch.waterlines import (
     stored_water_lines,
     water_lines_for,
     water_lines_from_store,
+    water_lines_through,
 )
 from tests.watch.groundwater_site import SECTION, SITE, hour, make_site
 
@@ -155,12 +155,13 @@ def test_per_line_max_age_is_the_default_for_its_instruments(stopped):
     assert water_lines_for(section, config, frame, hour(649))["main"].excluded == {"P1": STALE}
 
 
-def test_water_lines_at_keeps_working_without_settings(site):
+def test_without_configured_rules_lines_run_parallel_to_the_design_line(site):
     config = site.workspace.config()
     section = load_section(site.workspace.sections / "s1.toml")
     with site.workspace.open_store(read_only=True) as store:
         frame = load_readings(store, ["P1"])
-    lines = water_lines_at(section, config.piezometers, frame, hour(500), timedelta(hours=6))
+    lines = water_lines_through(section, config.piezometers, frame, hour(500),
+                                default_max_age=timedelta(hours=6))
     head = site.true_head(hour(500))
     # Default: parallel to the design line on both sides (design line [0, 14] [30, 9.8]).
     design = np.array([[0.0, 14.0], [30.0, 9.8], [50.0, 9.8]])
