@@ -292,12 +292,10 @@ class _Frame:
     crack_depth: float
     crack_water: float
     cells: np.ndarray
-    top_left: np.ndarray
-    top_right: np.ndarray
-    bottom_left: np.ndarray
-    bottom_right: np.ndarray
     layer_material: np.ndarray
-    bounded_below: bool
+    layers_uniform: bool
+    edge_x: np.ndarray
+    boundary_y: np.ndarray
     lines: tuple
     line_correction: np.ndarray
     line_suction: np.ndarray
@@ -387,12 +385,17 @@ class _Frame:
             crack_depth=0.0 if crack is None else float(crack.depth),
             crack_water=0.0 if crack is None else float(crack.water_depth),
             cells=cells,
-            top_left=tl,
-            top_right=tr,
-            bottom_left=bl,
-            bottom_right=br,
             layer_material=layer_material,
-            bounded_below=columns.bounded_below,
+            layers_uniform=bool(np.all(layer_material == layer_material[:1])),
+            # The layer boundaries as polylines over the cells, every inner cell edge doubled
+            # (left-hand cell's value, then the right-hand cell's), so that np.interp gives
+            # each cell's own straight boundary strictly inside it, where slices have their
+            # mid-points (cell edges are slice boundaries).
+            edge_x=np.repeat(cells, 2)[1:-1],
+            boundary_y=np.vstack([
+                np.column_stack([tl[:, 0], tr[:, 0]]).ravel(),
+                *(np.column_stack([bl[:, k], br[:, k]]).ravel() for k in range(bl.shape[1])),
+            ]),
             lines=lines,
             line_correction=np.array([w.inclination_correction for w in section.water_lines]
                                      + [False]),
@@ -702,6 +705,7 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices, weight_centroid
     n = len(surface)
     lo, hi = entry[:, None], exit_[:, None]
     equal = lo + (hi - lo) * np.linspace(0.0, 1.0, n_slices + 1)[None, :]
+    equal[:, -1] = exit_  # exactly: lo + (hi - lo) may round
     extra = [
         np.broadcast_to(frame.fixed_breaks, (n, frame.fixed_breaks.size)),
         surface.vertices(),
@@ -712,87 +716,109 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices, weight_centroid
     extra = np.concatenate(extra, axis=1)
     extra = np.where(np.isfinite(extra), np.clip(extra, lo, hi), lo)
     bounds = np.sort(np.concatenate([equal, extra], axis=1), axis=1)
-    real = np.diff(bounds, axis=1) > _MIN_WIDTH
-    # Real slices first, still in order of x, then padding, trimmed to the longest surface:
-    # boolean masks read and write row by row, and every row has as many real slices in
-    # ``real`` as leading True values in ``active``.
-    per_row = real.sum(axis=1)
+    # The distinct boundaries of each row, in order, then padding at the row's last boundary
+    # (zero-width slices): boolean masks read and write row by row, and every row has as many
+    # new boundaries in ``new`` as leading True values in ``active``. Slices share their
+    # boundaries, so the surface is evaluated once per boundary.
+    new = np.diff(bounds, axis=1) > _MIN_WIDTH
+    per_row = new.sum(axis=1)
     active = np.arange(per_row.max(initial=0)) < per_row[:, None]
-    x_left = np.zeros(active.shape)
-    x_right = np.zeros(active.shape)
-    x_left[active] = bounds[:, :-1][real]
-    x_right[active] = bounds[:, 1:][real]
+    edges = np.empty((n, active.shape[1] + 1))
+    edges[:, 0] = entry
+    edges[:, 1:][active] = bounds[:, 1:][new]
+    np.copyto(edges[:, 1:], edges[np.arange(n), per_row][:, None], where=~active)
+    x_left, x_right = edges[:, :-1], edges[:, 1:]
     b = x_right - x_left
     xm = 0.5 * (x_left + x_right)
-
-    y_left = surface.y(x_left)
-    y_right = surface.y(x_right)
+    y_edges = surface.y(edges)
+    y_left, y_right = y_edges[:, :-1], y_edges[:, 1:]
     y_base = 0.5 * (y_left + y_right)
     alpha = np.arctan2(y_left - y_right, b)
     y_top = _interp_rows(xm, frame.ground)
-
-    cells = frame.cells
-    j = np.clip(np.searchsorted(cells, xm, side="right") - 1, 0, cells.size - 2)
-    t = (xm - cells[j]) / (cells[j + 1] - cells[j])
     levels = [_interp_rows(xm, p) for p in frame.lines]
 
-    def level(line_index):
-        return _level(levels, line_index, xm.shape)
+    # Layer boundaries at each slice, top down: the top of the first layer, then the bottom of
+    # every layer (the floor of an unbounded last layer lies far below any surface).
+    boundary = [np.interp(xm, frame.edge_x, line) for line in frame.boundary_y]
+    n_layers = len(boundary) - 1
+    cell = None
+    if not frame.layers_uniform:
+        cells = frame.cells
+        cell = np.clip(np.searchsorted(cells, xm, side="right") - 1, 0, cells.size - 2)
 
-    def at(column):
-        # Per-cell value at each slice; a plain number when it is the same in every cell (the
-        # materials and unit weights of layered strata always are), which saves a gather.
-        return column[0] if column.min() == column.max() else np.take(column, j)
+    def per_layer(values, k):
+        # Per-material values of layer k at each slice; a plain number when layer k is the
+        # same material in every cell (layered strata always are), which saves a gather.
+        if cell is None:
+            return values[frame.layer_material[0, k]]
+        return values[frame.layer_material[cell, k]]
 
-    elevations = {}
+    def water_level(k):
+        return _level(levels, per_layer(frame.water_index, k), xm.shape)
 
-    def elevation(left, right):
-        # A stratum boundary at each slice; the bottom of one stratum is usually the top of
-        # the next, so each boundary is interpolated once.
-        key = (left.tobytes(), right.tobytes())
-        if key not in elevations:
-            elevations[key] = at(left) + at(right - left) * t
-        return elevations[key]
-
-    weight = np.zeros(xm.shape)
-    moment = np.zeros(xm.shape)
-    base_material = np.full(xm.shape, -1)
-    top_material = np.full(xm.shape, -1)
-    for k in range(frame.layer_material.shape[1]):
-        cell_material = frame.layer_material[:, k]
-        material = at(cell_material)
-        top = elevation(frame.top_left[:, k], frame.top_right[:, k])
-        bottom = elevation(frame.bottom_left[:, k], frame.bottom_right[:, k])
-        low = np.maximum(bottom, y_base)
-        thickness = np.maximum(top - low, 0.0)
-        water = level(at(frame.water_index[cell_material]))
-        saturated = np.maximum(np.minimum(water, top) - low, 0.0)
-        moist = thickness - saturated
-        w_sat = at(frame.gamma_saturated[cell_material]) * saturated
-        w_moist = at(frame.gamma[cell_material]) * moist
-        weight += w_sat + w_moist
+    # Each layer's soil lies between max(bottom, y_base) and max(top, y_base); its saturated
+    # part between the same limits with each boundary first capped at the layer's water level.
+    above = [np.maximum(e, y_base) for e in boundary]
+    shared_water = frame.layers_uniform and np.unique(frame.water_index[
+        frame.layer_material[0]]).size == 1
+    if shared_water:
+        level = water_level(0)
+        wet = [np.maximum(np.minimum(e, level), y_base) for e in boundary]
+    stress = np.zeros(xm.shape)  # [kPa] vertical total stress of the soil column
+    moment = np.zeros(xm.shape) if weight_centroid else None
+    for k in range(n_layers):
+        thickness = above[k] - above[k + 1]
+        if shared_water:
+            saturated = wet[k] - wet[k + 1]
+        else:
+            level = water_level(k)
+            saturated = (np.maximum(np.minimum(boundary[k], level), y_base)
+                         - np.maximum(np.minimum(boundary[k + 1], level), y_base))
+        gamma = per_layer(frame.gamma, k)
+        gamma_saturated = per_layer(frame.gamma_saturated, k)
+        stress += gamma * thickness
+        stress += (gamma_saturated - gamma) * saturated
         if weight_centroid:
-            moment += w_sat * (low + 0.5 * saturated) + w_moist * (low + saturated + 0.5 * moist)
-        present = top > bottom
-        base_material = np.where(
-            (base_material < 0) & present & (bottom <= y_base) & (y_base < top),
-            material, base_material)
-        top_material = np.where((top_material < 0) & present, material, top_material)
-    # A chord may rise above a convex ground corner: its base is in the top stratum.
-    base_material = np.where((base_material < 0) & (y_base >= y_top), top_material, base_material)
-    soil_stress = weight.copy()  # [kPa] vertical total stress of the soil column
-    weight *= b
+            # The saturated part is at the bottom of the layer's soil.
+            low = above[k + 1]
+            moist = thickness - saturated
+            moment += gamma_saturated * saturated * (low + 0.5 * saturated) + gamma * moist * (
+                low + saturated + 0.5 * moist)
+
+    # The layer at the base: as many layers lie wholly above it as bottoms lie above it; a
+    # chord may rise above a convex ground corner, and its base is then in the top layer that
+    # is present there (layers pinched out at the ground have their bottom at the top).
+    layer = np.zeros(xm.shape, dtype=np.intp)
+    for e in boundary[1:]:
+        layer += e > y_base
+    over = y_base >= boundary[0]
+    if over.any():
+        at_top = np.zeros(xm.shape, dtype=np.intp)
+        for e in boundary[1:]:
+            at_top += e >= boundary[0]
+        layer = np.where(over, at_top, layer)
+    in_strata = layer < n_layers
+    layer = np.minimum(layer, n_layers - 1)
+    materials = frame.layer_material
+    base_material = np.where(
+        in_strata, materials[0][layer] if cell is None else materials[cell, layer], -1)
+    weight = stress * b
     if weight_centroid:
         with np.errstate(invalid="ignore", divide="ignore"):
-            y_weight = np.where(weight > 0, moment / soil_stress, y_base)
+            y_weight = np.where(stress > 0, moment / stress, y_base)
     else:
         y_weight = y_base.copy()
     seismic_weight = weight.copy()
     top_water_horizontal = np.zeros(xm.shape)
     y_top_water = y_top.copy()
     if frame.pond:
-        line = frame.water_index[np.maximum(top_material, 0)]
-        ponds = (top_material >= 0) & (line >= 0) & ~frame.line_confined[line]
+        top_layer = np.zeros(xm.shape, dtype=np.intp)
+        for e in boundary[1:]:
+            top_layer += e >= boundary[0]
+        top_material = materials[0][np.minimum(top_layer, n_layers - 1)] if cell is None \
+            else materials[cell, np.minimum(top_layer, n_layers - 1)]
+        line = frame.water_index[top_material]
+        ponds = (line >= 0) & ~frame.line_confined[line]
         if ponds.any():
             weight, top_water_horizontal, y_top_water = _ponded_water(
                 frame, line, ponds, x_left, x_right, y_top, weight)
@@ -800,7 +826,7 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices, weight_centroid
     material = np.maximum(base_material, 0)
     cohesion = frame.cohesion[material]
     tan_phi = frame.tan_phi[material]
-    pore = _pore_pressure(frame, xm, y_base, y_top, material, levels, soil_stress)
+    pore = _pore_pressure(frame, xm, y_base, y_top, material, levels, stress)
     if frame.undrained.any():
         undrained = frame.undrained[material]
         su = frame.su_0[material] + frame.su_gradient[material] * np.maximum(
@@ -814,7 +840,7 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices, weight_centroid
         overlap = np.minimum(x_right, x_to) - np.maximum(x_left, x_from)
         surcharge += pressure * np.maximum(overlap, 0.0)
 
-    unbased = (active & (base_material < 0)).any(axis=1)
+    unbased = (active & ~in_strata).any(axis=1)
     area = (np.maximum(y_top - y_base, 0.0) * b).sum(axis=1)
 
     padding = ~active
@@ -898,7 +924,10 @@ def _pore_pressure(frame: _Frame, xm, y_base, y_top, material, levels, soil_stre
         # A line above the ground carries no excess head unless water may pond there or the
         # line is the head of a confined aquifer.
         keeps_head = frame.line_confined[line] | frame.pond
-        head = np.where(keeps_head, head, np.minimum(head, y_top))
+        if np.ndim(keeps_head):
+            head = np.where(keeps_head, head, np.minimum(head, y_top))
+        elif not keeps_head:
+            head = np.minimum(head, y_top)
     with np.errstate(invalid="ignore"):
         u = GAMMA_W * (head - y_base)
     if frame.line_correction.any():
