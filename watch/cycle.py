@@ -273,9 +273,10 @@ def cycle_executor(workspace: Workspace, cluster: str | None = None, workers: in
     """The executor of a cycle: ``cluster`` (Dask scheduler address or ``local:N``) or
     ``workers`` (> 1: a local process pool) as given, else the site file's ``[cycle] cluster``,
     else this process."""
+    cycle = alert_settings(workspace.config()).cycle
     if cluster is None and workers is None:
-        cluster = alert_settings(workspace.config()).cycle.cluster
-    return executor_for(cluster, workers)
+        cluster = cycle.cluster
+    return executor_for(cluster, workers, sections_per_task=cycle.sections_per_task)
 
 
 def _chosen_sections(config: SiteConfig, sections: list[str] | None) -> list[str]:

@@ -25,6 +25,7 @@ from watch.errors import ConfigError, UserError
 __all__ = [
     "DEFAULT_MAX_ATTEMPTS",
     "DEFAULT_STALL_TIMEOUT_S",
+    "DEFAULT_SECTIONS_PER_TASK",
     "SectionFailure",
     "SectionExecutor",
     "InProcessExecutor",
@@ -40,6 +41,12 @@ DEFAULT_MAX_ATTEMPTS = 3
 #: flight as timed out [s]. A full search of a three-layer section takes seconds, so ten
 #: minutes only catches a hung or lost worker.
 DEFAULT_STALL_TIMEOUT_S = 600.0
+
+#: Sections per Dask task: enough to spread the scheduler's cost per task (a few
+#: milliseconds) over warm re-evaluations of tens of milliseconds each, few enough that the
+#: last tasks of a cycle of full searches (about half a second per section) do not leave
+#: workers idle for long. From tests/benchmarks/bench_cycle.py on a 2-core machine.
+DEFAULT_SECTIONS_PER_TASK = 16
 
 
 @dataclass(frozen=True)
@@ -280,20 +287,30 @@ class DaskSectionExecutor(SectionExecutor):
     ``local:N`` for a local cluster of N single-threaded worker processes started for the
     cycle and stopped after it.
 
-    The scheduler already re-runs the tasks of a worker that died (up to its
-    ``distributed.scheduler.allowed-failures``); a task that still errs is resubmitted here
-    until ``max_attempts`` are spent.
+    Sections travel in batches of ``sections_per_task`` per Dask task: a warm re-evaluation
+    takes tens of milliseconds, about what the scheduler spends on a task, so one section per
+    task would leave the workers waiting on it (measured in tests/benchmarks/bench_cycle.py).
+    A section that raises on its worker is resent alone; a batch whose worker died (after the
+    scheduler's own re-runs, ``distributed.scheduler.allowed-failures``) or stalled costs each
+    of its sections one attempt, and they are resent one per task, so that a section that
+    kills its worker is found without charging its neighbours again. ``max_attempts`` bounds
+    the attempts of every section.
     """
 
     name = "dask"
 
-    def __init__(self, address: str, **limits) -> None:
+    def __init__(self, address: str, sections_per_task: int = DEFAULT_SECTIONS_PER_TASK,
+                 **limits) -> None:  # fmt: skip
         super().__init__(**limits)
+        if not isinstance(sections_per_task, int) or sections_per_task < 1:
+            raise ConfigError(f"sections per task must be an integer >= 1, got {sections_per_task!r}")
         self.address = address
+        self.sections_per_task = sections_per_task
         self._client = None
         self._cluster = None
-        self._tasks: dict[str, object] = {}
-        self._futures: dict[str, object] = {}
+        self._tasks: dict[str, object] = {}  # submitted, not yet yielded
+        self._waiting: list[str] = []  # submitted, not yet sent (the next batch)
+        self._batches: dict[object, list[str]] = {}  # future -> its sections
         self._attempts: dict[str, int] = {}
         self._serial = 0
 
@@ -329,68 +346,72 @@ class DaskSectionExecutor(SectionExecutor):
                             "slipwatch, at the version of this coordinator, on every worker") from None
 
     def describe(self) -> str:
-        return f"dask at {self.address}, {self.workers} worker(s)"
+        return f"dask at {self.address}, {self.workers} worker(s), {self.sections_per_task} section(s) per task"
 
     def submit(self, key: str, task) -> None:
         self._tasks[key] = task
         self._attempts[key] = 0
-        self._send(key)
+        self._waiting.append(key)
+        if len(self._waiting) >= self.sections_per_task:
+            self._flush()
 
-    def ready(self):
-        for key, future in list(self._futures.items()):
-            if future.status == "finished":
-                del self._futures[key]
-                del self._tasks[key]
-                yield key, future.result()
+    def _flush(self) -> None:
+        if self._waiting:
+            self._send(self._waiting)
+            self._waiting = []
 
-    def _send(self, key: str) -> None:
+    def _send(self, keys: list[str]) -> None:
         # A fresh task key per attempt: a retried section is never confused with the
         # attempt it replaces, whatever the scheduler still holds of that one.
         self._serial += 1
-        self._futures[key] = self._client.submit(self._compute, self._tasks[key], pure=False,
-                                                 key=f"slipwatch-{key}-{self._serial}")  # fmt: skip
+        future = self._client.submit(_compute_batch, self._compute, [(k, self._tasks[k]) for k in keys],
+                                     pure=False, key=f"slipwatch-{keys[0]}-{self._serial}")  # fmt: skip
+        self._batches[future] = list(keys)
+
+    def ready(self):
+        for future in [f for f in self._batches if f.status == "finished"]:
+            yield from self._settle(future)
 
     def results(self):
         from dask.distributed import wait as dask_wait
 
+        self._flush()
         while self._tasks:
-            by_future = {f: k for k, f in self._futures.items()}
             try:
-                done, _ = dask_wait(list(by_future), timeout=self.stall_timeout_s, return_when="FIRST_COMPLETED")
+                done, _ = dask_wait(list(self._batches), timeout=self.stall_timeout_s, return_when="FIRST_COMPLETED")
             except TimeoutError:
-                done, stalled = [], list(by_future)
-            else:
-                stalled = []
+                for future in list(self._batches):
+                    future.cancel()
+                    yield from self._retry_alone(self._batches.pop(future),
+                                                 f"no section finished within {self.stall_timeout_s:g} s")
+                continue
             for future in done:
-                key = by_future[future]
-                del self._futures[key]
-                if future.status == "finished":
-                    result = future.result()
-                    del self._tasks[key]
-                    yield key, result
-                    continue
-                error = future.exception() if future.status == "error" else future.status
-                message = f"{type(error).__name__}: {error}" if isinstance(error, BaseException) else str(error)
-                if (failure := self._charge(key, message)) is not None:
-                    yield key, failure
-                else:
-                    self._send(key)
-            for future in stalled:
-                key = by_future[future]
-                future.cancel()
-                del self._futures[key]
-                if (failure := self._charge(key, f"no section finished within {self.stall_timeout_s:g} s")):
-                    yield key, failure
-                else:
-                    self._send(key)
+                yield from self._settle(future)
 
-    def _charge(self, key: str, message: str) -> SectionFailure | None:
-        self._attempts[key] += 1
-        if self._attempts[key] >= self.max_attempts:
-            del self._tasks[key]
-            return SectionFailure(key, self._attempts[key], message)
-        self.retries += 1
-        return None
+    def _settle(self, future):
+        """The results of a finished batch; its failed sections charged and resent alone."""
+        keys = self._batches.pop(future)
+        if future.status != "finished":
+            error = future.exception() if future.status == "error" else future.status
+            message = f"{type(error).__name__}: {error}" if isinstance(error, BaseException) else str(error)
+            yield from self._retry_alone(keys, message)
+            return
+        for key, succeeded, value in future.result():
+            if succeeded:
+                del self._tasks[key]
+                yield key, value
+            else:
+                yield from self._retry_alone([key], value)
+
+    def _retry_alone(self, keys: list[str], message: str):
+        for key in keys:
+            self._attempts[key] += 1
+            if self._attempts[key] >= self.max_attempts:
+                del self._tasks[key]
+                yield key, SectionFailure(key, self._attempts[key], message)
+            else:
+                self.retries += 1
+                self._send([key])
 
     def close(self) -> None:
         if self._client is not None:
@@ -401,6 +422,18 @@ class DaskSectionExecutor(SectionExecutor):
             self._cluster = None
 
 
+def _compute_batch(compute: Callable, tasks: list[tuple[str, object]]) -> list[tuple[str, bool, object]]:
+    """A Dask worker's part: ``(key, True, result)`` per section, or ``(key, False, message)``
+    for a section that raised (its neighbours in the batch are not lost with it)."""
+    out = []
+    for key, task in tasks:
+        try:
+            out.append((key, True, compute(task)))
+        except Exception as error:  # reported per section; the executor owns the retries
+            out.append((key, False, f"{type(error).__name__}: {error}"))
+    return out
+
+
 def _local_workers(address: str) -> int:
     text = address.removeprefix("local:")
     if not text.isdigit() or int(text) < 1:
@@ -408,15 +441,19 @@ def _local_workers(address: str) -> int:
     return int(text)
 
 
-def executor_for(cluster: str | None = None, workers: int | None = None, **limits) -> SectionExecutor:
+def executor_for(cluster: str | None = None, workers: int | None = None, *,
+                 sections_per_task: int | None = None, **limits) -> SectionExecutor:  # fmt: skip
     """The executor a cycle asked for: ``cluster`` (``tcp://host:port`` or ``local:N``) runs on
-    Dask; otherwise ``workers`` > 1 a local process pool; otherwise in this process."""
+    Dask, ``sections_per_task`` at a time; otherwise ``workers`` > 1 a local process pool;
+    otherwise in this process."""
     if cluster:
         if workers is not None:
             raise UserError("give either --cluster or --workers, not both (a cluster has its own workers)")
         if not (cluster.startswith("local:") or "://" in cluster):
             raise ConfigError(f"cluster {cluster!r}: give a scheduler address such as tcp://10.0.0.5:8786 "
                               "or local:N")  # fmt: skip
+        if sections_per_task is not None:
+            limits["sections_per_task"] = sections_per_task
         return DaskSectionExecutor(cluster, **limits)
     if workers is not None and workers > 1:
         return ProcessPoolSectionExecutor(workers, **limits)

@@ -139,6 +139,7 @@ class CycleSettings:
     chatter_window_hours: float = 24.0
     chatter_max_changes: int = 6
     cluster: str | None = None  # Dask scheduler address (or local:N) the cycle computes on
+    sections_per_task: int | None = None  # sections per Dask task (None: the executor's default)
 
 
 @dataclass(frozen=True)
@@ -413,7 +414,7 @@ def _data(r: TableReader, t: dict, config: SiteConfig) -> DataAlertSettings:
 def _cycle(r: TableReader, t: dict) -> CycleSettings:
     where = "[cycle]"
     r.keys(t, where, {"full_search_every_hours", "full_search_tolerance", "chatter_window_hours",
-                      "chatter_max_changes", "cluster"})  # fmt: skip
+                      "chatter_max_changes", "cluster", "sections_per_task"})  # fmt: skip
     default = CycleSettings()
     every = r.number(t, where, "full_search_every_hours", default=default.full_search_every_hours)
     tolerance = r.number(t, where, "full_search_tolerance", default=default.full_search_tolerance)
@@ -430,7 +431,10 @@ def _cycle(r: TableReader, t: dict) -> CycleSettings:
     if cluster is not None and not (cluster.startswith("local:") or "://" in cluster):
         r.fail(where, "cluster", f"must be a scheduler address such as tcp://10.0.0.5:8786 or local:N, "
                                  f"got {cluster!r}")  # fmt: skip
-    return CycleSettings(every, tolerance, window, changes, cluster)
+    per_task = r.get(t, where, "sections_per_task", int, default=None)
+    if per_task is not None and per_task < 1:
+        r.fail(where, "sections_per_task", f"must be >= 1, got {per_task}")
+    return CycleSettings(every, tolerance, window, changes, cluster, per_task)
 
 
 def section_gauge(config: SiteConfig, section_id: str) -> str | None:

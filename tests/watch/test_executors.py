@@ -140,6 +140,31 @@ def test_a_dask_worker_killed_mid_cycle_costs_a_retry_not_a_result(base, in_proc
     _assert_killed_once_then_recovered(workspace, reports, in_process, marker)
 
 
+def raises_for(section_id: str, task):
+    if task.section_id == section_id:
+        raise RuntimeError(f"cannot calculate {section_id}")
+    return compute_section(task)
+
+
+def test_a_section_that_raises_in_a_dask_batch_is_retried_alone(base, tmp_path):
+    """Four sections in one task; the one that raises is resent on its own until its attempts
+    are spent, and its neighbours in the batch are neither charged nor lost."""
+    pytest.importorskip("dask.distributed")
+    workspace = _copy(base, tmp_path / "ws")
+    executor = executor_for("local:1", sections_per_task=4, max_attempts=2)
+    report = run_cycle(workspace, ManualClock(NOW), at=FIRST, executor=executor,
+                       compute=partial(raises_for, "FE-210"))  # fmt: skip
+    by_id = {s.section_id: s for s in report.sections}
+    assert len(by_id) == 4 and report.executor.endswith("4 section(s) per task")
+    assert by_id["FE-210"].status == "failed"
+    assert "2 attempt(s) failed" in by_id["FE-210"].message and "cannot calculate FE-210" in by_id["FE-210"].message
+    assert all(s.status != "failed" for k, s in by_id.items() if k != "FE-210")
+    assert report.retries == 1
+    with workspace.open_store(read_only=True) as store:
+        rows = store.conn.execute("SELECT section_id FROM assessments").fetchall()
+    assert sorted(r for (r,) in rows) == sorted(by_id)
+
+
 def always_dies(section_id: str, task):
     if task.section_id == section_id:
         os._exit(1)
@@ -188,6 +213,8 @@ def test_executor_options_are_checked():
         InProcessExecutor(max_attempts=0)
     with pytest.raises(ConfigError, match="--workers must be >= 1, got 0"):
         executor_for(workers=0)
+    with pytest.raises(ConfigError, match="sections per task must be an integer >= 1, got 0"):
+        executor_for("local:2", sections_per_task=0)
     assert isinstance(executor_for(), InProcessExecutor)
     assert isinstance(executor_for(workers=2), ProcessPoolSectionExecutor)
 
@@ -223,6 +250,11 @@ def test_the_site_file_names_the_cluster(tmp_path):
     assert isinstance(chosen, DaskSectionExecutor) and chosen.address == "tcp://10.0.0.5:8786"
     # The command line wins over the site file.
     assert isinstance(cycle_executor(workspace, workers=2), ProcessPoolSectionExecutor)
+    batched = _with_cluster(make_workspace(tmp_path / "batched"), '"local:2"\nsections_per_task = 3')
+    assert cycle_executor(batched).sections_per_task == 3
+    zero = _with_cluster(make_workspace(tmp_path / "zero"), '"local:2"\nsections_per_task = 0')
+    with pytest.raises(ConfigError, match="sections_per_task.*must be >= 1, got 0"):
+        cycle_executor(zero)
     broken = _with_cluster(make_workspace(tmp_path / "bad"), '"10.0.0.5"')
     with pytest.raises(ConfigError, match="cluster.*'10.0.0.5'"):
         cycle_executor(broken)
