@@ -323,10 +323,7 @@ class DaskSectionExecutor(SectionExecutor):
             raise UserError("a Dask cluster needs the optional extra: pip install 'slipwatch[cluster]'") from None
         if self.address.startswith("local:"):
             workers = _local_workers(self.address)
-            # The workers' sampling profiler takes the GIL every few milliseconds, which
-            # costs a pure-Python search a noticeable share of its time (measured in
-            # tests/benchmarks/bench_cycle.py); an existing cluster keeps its own setting.
-            with dask.config.set({"distributed.worker.profile.enabled": False}):
+            with dask.config.set(_LOCAL_WORKER_CONFIG):
                 self._cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                                              dashboard_address=None)  # fmt: skip
             self._client = Client(self._cluster)
@@ -432,6 +429,23 @@ def _compute_batch(compute: Callable, tasks: list[tuple[str, object]]) -> list[t
         except Exception as error:  # reported per section; the executor owns the retries
             out.append((key, False, f"{type(error).__name__}: {error}"))
     return out
+
+
+#: Settings of the workers of a local cluster (an existing cluster keeps its own), both
+#: measured in tests/benchmarks/bench_cycle.py. The workers' sampling profiler takes the GIL
+#: every few milliseconds, which costs a search's Python code a noticeable share of its time.
+#: Dask's default MALLOC_TRIM_THRESHOLD_ of 64 kB hands freed memory back to the system at
+#: once, so that every large temporary array of the solver is page-faulted in afresh: a full
+#: search ran 1.5 times slower on a Dask worker than in-process. The workers keep the C
+#: library's own default instead (the other variables are Dask's defaults).
+_LOCAL_WORKER_CONFIG = {
+    "distributed.worker.profile.enabled": False,
+    "distributed.nanny.pre-spawn-environ": {
+        "OMP_NUM_THREADS": 1,
+        "MKL_NUM_THREADS": 1,
+        "OPENBLAS_NUM_THREADS": 1,
+    },
+}
 
 
 def _local_workers(address: str) -> int:
