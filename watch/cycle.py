@@ -78,6 +78,11 @@ __all__ = [
 #: Age given to an instrument that has never reported [h]: older than any stale limit.
 NEVER_REPORTED_AGE_H = 1.0e6
 
+#: Sections the coordinator writes per transaction: one commit (and its disk flush) per group
+#: instead of per section; a crash loses at most the group being written, whose sections are
+#: calculated again by the next cycle (their inputs were not recorded as assessed).
+WRITE_BATCH = 32
+
 #: How far back a "suspect readings since the last cycle" check looks at most.
 _SUSPECT_LOOKBACK = timedelta(days=7)
 
@@ -218,33 +223,45 @@ def run_cycle(
 def _assess_sections(workspace, store: Store, config, settings: AlertSettings, chosen: list[str],
                      at: datetime, now: datetime, executor: SectionExecutor, compute, progress: bool,
                      ) -> list[SectionOutcome]:  # fmt: skip
-    """Prepare every section from the store and submit the ones to calculate; write each
-    section (assessment, water lines, cached search, alerts) in its own transaction, in the
-    order of ``chosen`` whatever order the workers finish in, so row ids do not depend on
-    the executor."""
+    """Prepare every section from the store and submit the ones to calculate; write the
+    sections (assessment, water lines, cached search, alerts) in transactions of
+    :data:`WRITE_BATCH`, in the order of ``chosen`` whatever order the workers finish in, so
+    row ids do not depend on the executor. A section is in the store with all its rows or not
+    at all."""
     bar = tqdm(total=len(chosen), disable=not progress, unit="section", desc="assess")
     prepared: dict[str, tuple[_Calculation, float]] = {}  # and the seconds it took
     computed: dict[str, SectionResult | SectionFailure] = {}
     outcomes: list[SectionOutcome] = []
     failed = 0
 
-    def write_ready():
+    def write_ready(at_least: int = WRITE_BATCH):
+        """Write the sections ready in ``chosen`` order, ``at_least`` of them at a time (fewer
+        only at the end), each group in one transaction."""
         nonlocal failed
-        while len(outcomes) < len(chosen):
-            section_id = chosen[len(outcomes)]
-            if section_id not in prepared:
+        while True:
+            ready = []
+            for section_id in chosen[len(outcomes):len(outcomes) + WRITE_BATCH]:
+                if section_id not in prepared or (prepared[section_id][0].status == "pending"
+                                                  and section_id not in computed):  # fmt: skip
+                    break
+                ready.append(section_id)
+            if not ready or len(ready) < min(at_least, len(chosen) - len(outcomes)):
                 return
-            calc, seconds = prepared[section_id]
-            if calc.status == "pending":
-                if section_id not in computed:
-                    return
-                result = computed.pop(section_id)
-                _take_result(calc, result)
-                seconds += getattr(result, "seconds", 0.0)
-            outcome = _record_section(store, config, settings, section_id, calc, at, now, seconds)
-            outcomes.append(outcome)
-            failed += outcome.status in ("failed", "not converged")
-            bar.update(1)
+            with store.atomic():
+                written = []
+                for section_id in ready:
+                    calc, seconds = prepared[section_id]
+                    if calc.status == "pending":
+                        result = computed[section_id]
+                        _take_result(calc, result)
+                        seconds += getattr(result, "seconds", 0.0)
+                    written.append(_record_section(store, config, settings, section_id, calc, at, now, seconds))
+            for section_id, outcome in zip(ready, written):
+                computed.pop(section_id, None)
+                del prepared[section_id]
+                outcomes.append(outcome)
+                failed += outcome.status in ("failed", "not converged")
+                bar.update(1)
             bar.set_postfix(failed=failed)
 
     executor.start(compute)
@@ -261,6 +278,7 @@ def _assess_sections(workspace, store: Store, config, settings: AlertSettings, c
         for section_id, result in executor.results():
             computed[section_id] = result
             write_ready()
+        write_ready(at_least=1)
     bar.close()
     if len(outcomes) != len(chosen):  # an executor that lost a section is a bug, not a result
         missing = [s for s in chosen if s not in {o.section_id for o in outcomes}]
@@ -367,8 +385,8 @@ def compute_section(task: SectionTask) -> SectionResult:
 def _record_section(store: Store, config, settings: AlertSettings, section_id: str, calc: _Calculation,
                     at: datetime, now: datetime, seconds: float) -> SectionOutcome:  # fmt: skip
     """The coordinator's half: the assessment, its water lines, the new cached search and the
-    alerts of one section, in one transaction. ``seconds``: the preparation and calculation
-    time so far (the time spent waiting for a worker is not the section's)."""
+    alerts of one section, inside the caller's transaction. ``seconds``: the preparation and
+    calculation time so far (the time spent waiting for a worker is not the section's)."""
     started = time.perf_counter() - seconds
     rules = settings.rules_for(config, section_id)
     context = _context(store, config, settings, section_id, calc, at)
@@ -377,18 +395,17 @@ def _record_section(store: Store, config, settings: AlertSettings, section_id: s
         section_id, calc.status, fos=calc.fos, method=calc.method, evaluation=calc.evaluation,
         live=calc.live, warnings=list(calc.warnings), message=calc.message,
     )  # fmt: skip
-    with store.atomic():
-        if calc.status != "unchanged":
-            outcome.assessment_id = store.insert_assessment(_assessment_row(calc, section_id, at, now,
-                                                                            time.perf_counter() - started))
-            if calc.lines:
-                store_water_lines(store, outcome.assessment_id, section_id, at, calc.lines,
-                                  created_utc=utc_text(now))  # fmt: skip
-            if calc.new_search_json is not None:
-                store.save_search(section_id, calc.version_id, utc_text(at), calc.new_search_json,
-                                  utc_text(now))  # fmt: skip
-        context.assessment_id = outcome.assessment_id
-        result = process_section_alerts(store, config, settings, section_id, rules, values, at, now, context)
+    if calc.status != "unchanged":
+        outcome.assessment_id = store.insert_assessment(_assessment_row(calc, section_id, at, now,
+                                                                        time.perf_counter() - started))
+        if calc.lines:
+            store_water_lines(store, outcome.assessment_id, section_id, at, calc.lines,
+                              created_utc=utc_text(now))  # fmt: skip
+        if calc.new_search_json is not None:
+            store.save_search(section_id, calc.version_id, utc_text(at), calc.new_search_json,
+                              utc_text(now))  # fmt: skip
+    context.assessment_id = outcome.assessment_id
+    result = process_section_alerts(store, config, settings, section_id, rules, values, at, now, context)
     outcome.changes = result.changes
     outcome.notifications = result.notifications
     outcome.inspections = result.inspections

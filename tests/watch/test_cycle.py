@@ -182,3 +182,35 @@ def test_cached_search_round_trips_through_json():
     assert [s.fos for s in back.surfaces] == pytest.approx([s.fos for s in search.surfaces], rel=1e-12)
     assert back.critical.radius == pytest.approx(search.critical.radius, rel=1e-12)
     assert json.loads(search_to_json(back)) == json.loads(search_to_json(search))
+
+
+def test_a_failure_while_writing_leaves_no_section_half_written(tmp_path, monkeypatch):
+    """Sections are written in groups, one transaction each: a fault while writing the third
+    section rolls back the whole group (no assessment without its alerts, none twice), and the
+    next cycle writes every section exactly once."""
+    import watch.cycle as cycle
+
+    workspace = make_workspace(tmp_path / "ws")
+    clock = ManualClock(START)
+    record = cycle._record_section
+    seen = []
+
+    def faulty(store, config, settings, section_id, *args):
+        seen.append(section_id)
+        if len(seen) == 3:
+            raise RuntimeError("disk pulled")
+        return record(store, config, settings, section_id, *args)
+
+    monkeypatch.setattr(cycle, "_record_section", faulty)
+    with pytest.raises(RuntimeError, match="disk pulled"):
+        run_cycle(workspace, clock, at=START)
+    with workspace.open_store(read_only=True) as store:
+        assert store.conn.execute("SELECT COUNT(*) FROM assessments").fetchone()[0] == 0
+        assert store.conn.execute("SELECT COUNT(*) FROM water_lines").fetchone()[0] == 0
+        assert store.conn.execute("SELECT COUNT(*) FROM alert_events").fetchone()[0] == 0
+    monkeypatch.setattr(cycle, "_record_section", record)
+    report = run_cycle(workspace, clock, at=START)
+    assert len(report.sections) == 4 and all(s.status != "unchanged" for s in report.sections)
+    with workspace.open_store(read_only=True) as store:
+        rows = store.conn.execute("SELECT section_id FROM assessments").fetchall()
+    assert sorted(r for (r,) in rows) == sorted(s.section_id for s in report.sections)
