@@ -153,43 +153,37 @@ def latest_heads(
             f"readings lack the column(s) {missing_columns}; expected {list(_READING_COLUMNS)}"
         )
     at = _as_utc(at)
-    frame = readings.copy()
-    frame["reading_index"] = frame.index
-    frame["time_utc"] = pd.to_datetime(frame["time_utc"], utc=True)
-    frame["instrument_id"] = frame["instrument_id"].astype(str)
-    expected = (
-        sorted(set(frame["instrument_id"]))
-        if instruments is None
-        else [str(i) for i in instruments]
-    )
-    frame = frame[frame["instrument_id"].isin(expected) & (frame["time_utc"] <= at)]
-
+    # Plain arrays and a loop over the (few) instruments: the assessment cycle calls this for
+    # every section, and a chain of pandas operations on frames of a few hundred rows cost
+    # about ten times as much.
+    ids = readings["instrument_id"].astype(str).to_numpy()
+    times = pd.DatetimeIndex(pd.to_datetime(readings["time_utc"], utc=True))
+    stamps = times.tz_convert(None).to_numpy()  # UTC, naive: plain comparisons
+    heads = readings["head_m"].astype(float).to_numpy()
+    good = readings["quality"].isin(list(good_quality)).to_numpy() & np.isfinite(heads)
+    expected = sorted(set(ids)) if instruments is None else [str(i) for i in instruments]
     ages = _max_ages(max_age, expected)
-    frame["age"] = at - frame["time_utc"]
-    frame["within_age"] = frame["age"] <= frame["instrument_id"].map(ages)
-    frame["good"] = frame["quality"].isin(list(good_quality)) & np.isfinite(
-        frame["head_m"].astype(float)
-    )
+    now = at.tz_convert(None).to_datetime64()
 
-    usable = frame[frame["within_age"] & frame["good"]].sort_values("time_utc", kind="stable")
-    chosen = usable.groupby("instrument_id").tail(1).set_index("instrument_id").sort_index()
-    chosen = chosen.drop(columns=["within_age", "good"])
-    chosen["age_hours"] = chosen.pop("age") / pd.Timedelta(hours=1)
-    chosen["head_m"] = chosen["head_m"].astype(float)
-
-    last_any = frame.groupby("instrument_id")["time_utc"].max()
-    any_recent = frame[frame["within_age"]].groupby("instrument_id").size()
+    chosen_rows: list[int] = []
     excluded = {}
-    for instrument in expected:
-        if instrument in chosen.index:
+    for instrument in sorted(expected):
+        mine = np.flatnonzero((ids == instrument) & (stamps <= now))
+        within = (now - stamps[mine]) <= ages[instrument].to_timedelta64()
+        usable = mine[within & good[mine]]
+        if usable.size:
+            # The latest; of readings at the same time, the last one given.
+            latest = stamps[usable].max()
+            chosen_rows.append(int(usable[np.flatnonzero(stamps[usable] == latest)[-1]]))
             continue
-        last = last_any.get(instrument)
         limit_h = ages[instrument] / pd.Timedelta(hours=1)
-        if last is None:
+        if mine.size == 0:
             excluded[instrument] = Exclusion(
                 instrument, MISSING, f"{instrument}: no reading at or before {at.isoformat()}"
             )
-        elif any_recent.get(instrument, 0) > 0:
+            continue
+        last = pd.Timestamp(stamps[mine].max()).tz_localize("UTC")
+        if within.any():
             excluded[instrument] = Exclusion(
                 instrument,
                 FLAGGED,
@@ -205,6 +199,15 @@ def latest_heads(
                 f"{limit_h:g} h",
                 last,
             )
+    excluded = {i: excluded[i] for i in expected if i in excluded}
+
+    columns = {name: readings[name].array[chosen_rows] for name in readings.columns
+               if name != "instrument_id"}  # fmt: skip
+    columns["time_utc"] = times[chosen_rows]
+    columns["head_m"] = heads[chosen_rows]
+    columns["reading_index"] = readings.index[chosen_rows]
+    columns["age_hours"] = (now - stamps[chosen_rows]) / np.timedelta64(1, "h")
+    chosen = pd.DataFrame(columns, index=pd.Index(ids[chosen_rows], name="instrument_id"))
     return HeadSnapshot(at=at, heads=chosen, excluded=excluded)
 
 

@@ -286,15 +286,12 @@ def load_readings(store: Store, instrument_ids: Sequence[str], start=None, end=N
 
 
 def _frame(rows: list[dict]) -> pd.DataFrame:
-    if not rows:
-        frame = pd.DataFrame({c: pd.Series(dtype=object) for c in READING_COLUMNS})
-        frame["time_utc"] = pd.to_datetime(frame["time_utc"], utc=True)
-        frame["head_m"] = frame["head_m"].astype(float)
-        return frame
-    frame = pd.DataFrame(rows)
-    frame["time_utc"] = pd.to_datetime(frame["time_utc"], utc=True)
-    frame["head_m"] = pd.to_numeric(frame["head_m"], errors="coerce").astype(float)
-    return frame[list(READING_COLUMNS)].reset_index(drop=True)
+    # Column by column: much cheaper than a frame of dicts for the few rows of a section.
+    columns = {c: [r.get(c) for r in rows] for c in READING_COLUMNS}
+    columns["time_utc"] = pd.to_datetime(columns["time_utc"], format=TIME_FORMAT, utc=True)
+    columns["head_m"] = pd.to_numeric(pd.Series(columns["head_m"], dtype=object),
+                                      errors="coerce").to_numpy(dtype=float)
+    return pd.DataFrame(columns)
 
 
 def _utc(time) -> pd.Timestamp:
