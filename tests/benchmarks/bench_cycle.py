@@ -276,7 +276,7 @@ def _summary(results, sections: int) -> None:
     print(f"\nsizing, {NETWORK_SECTIONS} sections on hourly feeds: {warm_s * 1000:.0f} ms warm + "
           f"{FULL_SEARCH_SHARE:.3f} x {full_s:.2f} s full search per section per hour on one worker"
           f" = {per_hour / 3600:.1f} worker-hours per hour; at {UTILISATION:.0%} utilisation:"
-          f" about {workers} single-threaded workers")  # fmt: skip
+          f" about {workers} single-threaded worker(s)")  # fmt: skip
     seconds, count, *_, calculating = results["in-process"]["warm"]
     coordinator = (seconds - calculating) / count
     print(f"coordinator (store reads, water lines, writes, alerts; one process whatever the workers): "
