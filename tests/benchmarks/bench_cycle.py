@@ -16,10 +16,16 @@ Targets (issue 9, on the 2-core machine): a warm cycle of 2,000 sections within 
 in-process; 2 workers at least 1.7 times as fast as 1. Figures are printed beside their
 targets; nothing is asserted. The section count is the first argument (default 2,000); with
 fewer sections the 2,000-section time is projected from the measured rate and says so. A full
-search costs about half a second per section on one core, so 2,000 sections take about an
-hour for the four executors together.
+search costs 0.2 to 0.4 s per section on one core, so 2,000 sections take about 40 minutes for
+the four executors together.
 
-    python tests/benchmarks/bench_cycle.py [SECTIONS]
+The sections are split into ROUNDS networks (second argument, default 4), and each round runs
+the four executors one after the other, starting with a different one each round: a shared
+machine whose speed drifts over minutes then slows every executor alike instead of whichever
+ran during a slow spell. Rates are summed over the rounds; the speed-ups are also given per
+round, with their median.
+
+    python tests/benchmarks/bench_cycle.py [SECTIONS [ROUNDS]]
 """
 
 from __future__ import annotations
@@ -32,6 +38,7 @@ for _name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
 
 import math  # noqa: E402
 import shutil  # noqa: E402
+import statistics  # noqa: E402
 import sys  # noqa: E402
 import tempfile  # noqa: E402
 import time  # noqa: E402
@@ -155,8 +162,8 @@ slices = 30
 """
 
 
-def build_network(folder: Path, sections: int) -> Path:
-    rng = np.random.default_rng(9)
+def build_network(folder: Path, sections: int, seed: int = 9) -> Path:
+    rng = np.random.default_rng(seed)
     folder.mkdir(parents=True)
     (folder / "sections").mkdir()
     site = [SITE]
@@ -226,29 +233,48 @@ class _Started:
         self._executor.close()
 
 
+RUNS = {
+    "in-process": {},
+    "process pool, 2 workers": {"workers": 2},
+    "dask local, 1 worker": {"cluster": "local:1"},
+    "dask local, 2 workers": {"cluster": "local:2"},
+}
+
+
 def main() -> None:
     sections = int(sys.argv[1]) if len(sys.argv) > 1 else TARGET_SECTIONS
+    rounds = int(sys.argv[2]) if len(sys.argv) > 2 else 4
     scratch = Path(tempfile.mkdtemp(prefix="bench_cycle_"))
     try:
-        started = time.perf_counter()
-        base = build_network(scratch / "network", sections)
-        print(f"synthetic network: {sections} sections, built in {time.perf_counter() - started:.1f} s")
-        runs = {
-            "in-process": {},
-            "process pool, 2 workers": {"workers": 2},
-            "dask local, 1 worker": {"cluster": "local:1"},
-            "dask local, 2 workers": {"cluster": "local:2"},
-        }
-        results = {}
-        for label, args in runs.items():
-            results[label] = timed_cycles(base, scratch, label, args)
+        labels = list(RUNS)
+        per_round = []
+        for r in range(rounds):
+            count = sections // rounds + (r < sections % rounds)
+            base = build_network(scratch / f"network_{r}", count, seed=9 + r)
+            order = labels[r % len(labels):] + labels[:r % len(labels)]
+            figures = {label: timed_cycles(base, scratch, f"{label} {r}", RUNS[label]) for label in order}
+            per_round.append(figures)
+            print(f"round {r + 1}/{rounds}: {count} sections, order: {', '.join(order)}", flush=True)
+        results = {label: _pooled([f[label] for f in per_round]) for label in labels}
+        for label in labels:
             full, warm = results[label]["full"], results[label]["warm"]
             print(f"{label:<26} full search: {full[1]:>5} sections in {full[0]:8.1f} s = {full[1] / full[0]:7.2f}/s;"
                   f"  warm: {warm[1]:>5} in {warm[0]:7.1f} s = {warm[1] / warm[0]:7.1f}/s;"
                   f"  start-up {full[2]:.1f} s; failed {full[3]}+{warm[3]}; {sorted(map(str, full[4] | warm[4]))}")
-        _summary(results, sections)
+        _summary(results, sections, per_round)
     finally:
         shutil.rmtree(scratch, ignore_errors=True)
+
+
+def _pooled(figures: list[dict]) -> dict:
+    """One executor's figures summed over the rounds (start-up: the mean)."""
+    out = {}
+    for kind in ("full", "warm"):
+        rows = [f[kind] for f in figures]
+        calculating = None if rows[0][5] is None else sum(r[5] for r in rows)
+        out[kind] = (sum(r[0] for r in rows), sum(r[1] for r in rows), statistics.mean(r[2] for r in rows),
+                     sum(r[3] for r in rows), set().union(*(r[4] for r in rows)), calculating)  # fmt: skip
+    return out
 
 
 def _rate(results, label, kind):
@@ -256,7 +282,7 @@ def _rate(results, label, kind):
     return count / seconds
 
 
-def _summary(results, sections: int) -> None:
+def _summary(results, sections: int, per_round: list[dict]) -> None:
     warm_in = _rate(results, "in-process", "warm")
     projected = TARGET_SECTIONS / warm_in
     note = "" if sections >= TARGET_SECTIONS else f" (projected from {sections} sections)"
@@ -264,8 +290,11 @@ def _summary(results, sections: int) -> None:
     for kind in ("full", "warm"):
         pool = _rate(results, "process pool, 2 workers", kind) / _rate(results, "in-process", kind)
         dask = _rate(results, "dask local, 2 workers", kind) / _rate(results, "dask local, 1 worker", kind)
+        rounds = [_rate(f, "dask local, 2 workers", kind) / _rate(f, "dask local, 1 worker", kind)
+                  for f in per_round]  # fmt: skip
         print(f"{kind:>4} cycle speed-up: process pool 2 / in-process {pool:.2f}x;"
-              f" dask 2 / dask 1 {dask:.2f}x   target >= 1.7x")
+              f" dask 2 / dask 1 {dask:.2f}x (per round {', '.join(f'{x:.2f}' for x in rounds)};"
+              f" median {statistics.median(rounds):.2f}x)   target >= 1.7x")
     # Sizing: per section and hour, one warm re-evaluation plus 1/24 of a full search, on
     # workers as fast as the measured single Dask worker, run at UTILISATION; the single
     # coordinator (store reads and writes) sets a limit no number of workers lifts.
