@@ -140,6 +140,16 @@ def test_a_dask_worker_killed_mid_cycle_costs_a_retry_not_a_result(base, in_proc
     _assert_killed_once_then_recovered(workspace, reports, in_process, marker)
 
 
+def _only_failure(report, section_id: str, *words: str) -> dict:
+    """The report's outcomes by section, after checking that ``section_id`` alone failed and
+    that its message says each of ``words``."""
+    by_id = {s.section_id: s for s in report.sections}
+    assert by_id[section_id].status == "failed"
+    assert all(word in by_id[section_id].message for word in words), by_id[section_id].message
+    assert all(s.status != "failed" for k, s in by_id.items() if k != section_id)
+    return by_id
+
+
 def raises_for(section_id: str, task):
     if task.section_id == section_id:
         raise RuntimeError(f"cannot calculate {section_id}")
@@ -154,11 +164,8 @@ def test_a_section_that_raises_in_a_dask_batch_is_retried_alone(base, tmp_path):
     executor = executor_for("local:1", sections_per_task=4, max_attempts=2)
     report = run_cycle(workspace, ManualClock(NOW), at=FIRST, executor=executor,
                        compute=partial(raises_for, "FE-210"))  # fmt: skip
-    by_id = {s.section_id: s for s in report.sections}
+    by_id = _only_failure(report, "FE-210", "2 attempt(s) failed", "cannot calculate FE-210")
     assert len(by_id) == 4 and report.executor.endswith("4 section(s) per task")
-    assert by_id["FE-210"].status == "failed"
-    assert "2 attempt(s) failed" in by_id["FE-210"].message and "cannot calculate FE-210" in by_id["FE-210"].message
-    assert all(s.status != "failed" for k, s in by_id.items() if k != "FE-210")
     assert report.retries == 1
     with workspace.open_store(read_only=True) as store:
         rows = store.conn.execute("SELECT section_id FROM assessments").fetchall()
@@ -175,10 +182,7 @@ def test_a_section_that_keeps_killing_its_worker_is_reported_failed(base, tmp_pa
     workspace = _copy(base, tmp_path / "ws")
     report = run_cycle(workspace, ManualClock(NOW), at=FIRST, executor=ProcessPoolSectionExecutor(2, max_attempts=2),
                        compute=partial(always_dies, "FE-210"))  # fmt: skip
-    by_id = {s.section_id: s for s in report.sections}
-    assert by_id["FE-210"].status == "failed"
-    assert "2 attempt(s) failed" in by_id["FE-210"].message and "died" in by_id["FE-210"].message
-    assert all(s.status != "failed" for k, s in by_id.items() if k != "FE-210")
+    by_id = _only_failure(report, "FE-210", "2 attempt(s) failed", "died")
     with workspace.open_store(read_only=True) as store:
         rows = store.conn.execute("SELECT section_id, status FROM assessments").fetchall()
         states = store.conn.execute("SELECT state FROM alerts WHERE section_id = ? AND rule = ?",
@@ -272,6 +276,4 @@ def test_a_hung_pool_worker_is_ended_and_its_section_reported_failed(base, tmp_p
     workspace = _copy(base, tmp_path / "ws")
     executor = ProcessPoolSectionExecutor(2, max_attempts=2, stall_timeout_s=12.0)
     report = run_cycle(workspace, ManualClock(NOW), at=FIRST, executor=executor, compute=partial(hangs, "WC-060"))
-    by_id = {s.section_id: s for s in report.sections}
-    assert by_id["WC-060"].status == "failed" and "within 12 s" in by_id["WC-060"].message
-    assert all(s.status != "failed" for k, s in by_id.items() if k != "WC-060")
+    by_id = _only_failure(report, "WC-060", "within 12 s")
