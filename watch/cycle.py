@@ -345,6 +345,12 @@ class SectionTask:
     cached_search_json: str | None
     full_search_tolerance: float
 
+    @property
+    def full_search(self) -> bool:
+        """Whether the worker will run a full search (nothing warm to start from); a warm
+        re-evaluation may still end in one when it advises it."""
+        return self.cached_search_json is None
+
 
 @dataclass
 class SectionResult:

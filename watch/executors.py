@@ -290,6 +290,9 @@ class DaskSectionExecutor(SectionExecutor):
     Sections travel in batches of ``sections_per_task`` per Dask task: a warm re-evaluation
     takes tens of milliseconds, about what the scheduler spends on a task, so one section per
     task would leave the workers waiting on it (measured in tests/benchmarks/bench_cycle.py).
+    A task whose ``full_search`` attribute is true travels alone: a search takes a few tenths
+    of a second, hundreds of times the cost of a task, and a batch of them would leave one
+    worker calculating for seconds at the end of a cycle while the others wait.
     A section that raises on its worker is resent alone; a batch whose worker died (after the
     scheduler's own re-runs, ``distributed.scheduler.allowed-failures``) or stalled costs each
     of its sections one attempt, and they are resent one per task, so that a section that
@@ -348,6 +351,9 @@ class DaskSectionExecutor(SectionExecutor):
     def submit(self, key: str, task) -> None:
         self._tasks[key] = task
         self._attempts[key] = 0
+        if getattr(task, "full_search", False):
+            self._send([key])
+            return
         self._waiting.append(key)
         if len(self._waiting) >= self.sections_per_task:
             self._flush()

@@ -5,6 +5,7 @@ published reference applies: the reference here is the in-process cycle itself).
 
 import os
 import shutil
+from dataclasses import dataclass
 from datetime import datetime, timedelta, timezone
 from functools import partial
 from pathlib import Path
@@ -20,6 +21,7 @@ from watch.executors import (
     SectionFailure,
     executor_for,
 )
+from watch.store import utc_text
 from watch.workspace import open_workspace
 from tests.watch.cycle_helpers import make_workspace
 
@@ -156,20 +158,52 @@ def raises_for(section_id: str, task):
     return compute_section(task)
 
 
-def test_a_section_that_raises_in_a_dask_batch_is_retried_alone(base, tmp_path):
-    """Four sections in one task; the one that raises is resent on its own until its attempts
-    are spent, and its neighbours in the batch are neither charged nor lost."""
+def test_a_section_that_raises_in_a_dask_batch_is_retried_alone(base, in_process, tmp_path):
+    """Warm re-evaluations travel in one task; the one that raises is resent on its own until
+    its attempts are spent, and its neighbours in the batch are neither charged nor lost."""
     pytest.importorskip("dask.distributed")
+    warm = [s.section_id for s in in_process[1][1].sections if s.evaluation == "warm re-evaluation"]
+    assert len(warm) >= 2  # a batch with neighbours
     workspace = _copy(base, tmp_path / "ws")
+    run_cycle(workspace, ManualClock(NOW), at=FIRST)  # full searches, to cache
     executor = executor_for("local:1", sections_per_task=4, max_attempts=2)
-    report = run_cycle(workspace, ManualClock(NOW), at=FIRST, executor=executor,
-                       compute=partial(raises_for, "FE-210"))  # fmt: skip
-    by_id = _only_failure(report, "FE-210", "2 attempt(s) failed", "cannot calculate FE-210")
-    assert len(by_id) == 4 and report.executor.endswith("4 section(s) per task")
+    report = run_cycle(workspace, ManualClock(NOW), at=SECOND, executor=executor,
+                       compute=partial(raises_for, warm[0]))  # fmt: skip
+    by_id = _only_failure(report, warm[0], "2 attempt(s) failed", f"cannot calculate {warm[0]}")
+    assert report.executor.endswith("4 section(s) per task")
+    assert [s.section_id for s in report.sections if s.evaluation == "warm re-evaluation"] == warm[1:]
     assert report.retries == 1
     with workspace.open_store(read_only=True) as store:
-        rows = store.conn.execute("SELECT section_id FROM assessments").fetchall()
-    assert sorted(r for (r,) in rows) == sorted(by_id)
+        rows = store.conn.execute("SELECT section_id FROM assessments WHERE time_utc = ?",
+                                  (utc_text(SECOND),)).fetchall()
+    assert sorted(r for (r,) in rows) == sorted(k for k, s in by_id.items() if s.status != "unchanged")
+
+
+@dataclass(frozen=True)
+class _Job:
+    full_search: bool
+
+
+def dask_task_key(job: _Job) -> str:
+    from dask.distributed import get_worker
+
+    return get_worker().get_current_task()
+
+
+def test_dask_sends_warm_sections_in_batches_and_full_searches_alone():
+    """Sections sharing a Dask task key travelled in one task."""
+    pytest.importorskip("dask.distributed")
+    executor = executor_for("local:1", sections_per_task=3)
+    executor.start(dask_task_key)
+    with executor:
+        for i, full_search in enumerate([False, True, False, False, True, False]):
+            executor.submit(f"S{i}", _Job(full_search))
+        task_of = dict(executor.results())
+    together = {}
+    for section, key in task_of.items():
+        together.setdefault(key, []).append(section)
+    # Three warm ones fill a batch; the last one goes when the results are asked for.
+    assert sorted(together.values()) == [["S0", "S2", "S3"], ["S1"], ["S4"], ["S5"]]
 
 
 def always_dies(section_id: str, task):
