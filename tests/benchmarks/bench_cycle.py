@@ -23,7 +23,11 @@ The sections are split into ROUNDS networks (second argument, default 4), and ea
 the four executors one after the other, starting with a different one each round: a shared
 machine whose speed drifts over minutes then slows every executor alike instead of whichever
 ran during a slow spell. Rates are summed over the rounds; the speed-ups are also given per
-round, with their median.
+round, with their median. A table of CPU time per section (this process, which holds the
+local Dask scheduler, and the worker processes), of the workers' busy share and of the
+hypervisor's steal shows why a speed-up falls short of the worker count: idle workers, or
+sections that cost more CPU while both cores are busy. Start-up and shut-down of an executor
+are outside the timed cycles.
 
     python tests/benchmarks/bench_cycle.py [SECTIONS [ROUNDS]]
 """
@@ -37,11 +41,13 @@ for _name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_name, "1")
 
 import math  # noqa: E402
+import resource  # noqa: E402
 import shutil  # noqa: E402
 import statistics  # noqa: E402
 import sys  # noqa: E402
 import tempfile  # noqa: E402
 import time  # noqa: E402
+from dataclasses import dataclass  # noqa: E402
 from datetime import datetime, timedelta, timezone  # noqa: E402
 from functools import partial  # noqa: E402
 from pathlib import Path  # noqa: E402
@@ -176,10 +182,64 @@ def build_network(folder: Path, sections: int, seed: int = 9) -> Path:
     return workspace.root
 
 
-def timed_cycles(base: Path, scratch: Path, label: str, executor_args: dict):
-    """Per cycle (full, warm): seconds, sections, executor start-up seconds, failed sections,
-    evaluations seen, seconds spent calculating (in-process only, else None), on a fresh copy
-    of the workspace; the executor's start-up (e.g. a local Dask cluster) is timed apart."""
+@dataclass
+class Cycle:
+    """Figures of one cycle (or of the same cycle summed over the rounds)."""
+
+    seconds: float  # from the first section submitted to the last one written
+    sections: int
+    startup: float  # executor start-up (e.g. a local Dask cluster), timed apart
+    failed: int
+    evaluations: set
+    calculating: float | None  # seconds inside compute_section (in-process only)
+    coordinator_cpu: float  # CPU seconds of this process (with the Dask scheduler, if local)
+    worker_cpu: float  # CPU seconds of the worker processes (pool or Dask)
+    steal: float  # CPU ticks the hypervisor took ...
+    ticks: float  # ... of all ticks of the machine meanwhile (/proc/stat; 0 where unknown)
+
+    def __add__(self, other: "Cycle") -> "Cycle":
+        return Cycle(self.seconds + other.seconds, self.sections + other.sections,
+                     self.startup + other.startup, self.failed + other.failed,
+                     self.evaluations | other.evaluations,
+                     None if self.calculating is None else self.calculating + other.calculating,
+                     self.coordinator_cpu + other.coordinator_cpu, self.worker_cpu + other.worker_cpu,
+                     self.steal + other.steal, self.ticks + other.ticks)  # fmt: skip
+
+
+def _own_cpu() -> float:
+    usage = resource.getrusage(resource.RUSAGE_SELF)
+    return usage.ru_utime + usage.ru_stime
+
+
+def _children_cpu() -> dict[int, float]:
+    """CPU seconds so far of every live child process (the workers), by process id."""
+    import psutil  # installed with Dask (the cluster extra)
+
+    out = {}
+    for child in psutil.Process().children(recursive=True):
+        try:
+            times = child.cpu_times()
+        except psutil.Error:  # ended meanwhile
+            continue
+        out[child.pid] = times.user + times.system
+    return out
+
+
+def _machine_ticks() -> tuple[float, float]:
+    """(steal, all) CPU ticks of the machine so far, from /proc/stat (Linux); (0, 0) elsewhere.
+    Steal is time the hypervisor gave this VM's CPUs to someone else: a measure of how much
+    the machine itself slowed down during a run."""
+    try:
+        with open("/proc/stat", encoding="ascii") as stat:
+            fields = [float(v) for v in stat.readline().split()[1:]]
+    except OSError:
+        return 0.0, 0.0
+    return (fields[7] if len(fields) > 7 else 0.0), sum(fields[:8])
+
+
+def timed_cycles(base: Path, scratch: Path, label: str, executor_args: dict) -> dict[str, Cycle]:
+    """The full and the warm cycle of one executor on a fresh copy of the workspace. The
+    executor's start-up and shut-down are outside the timed interval and the CPU figures."""
     folder = scratch / label.replace(" ", "_").replace(",", "")
     shutil.copytree(base, folder)
     workspace = open_workspace(folder)
@@ -195,14 +255,20 @@ def timed_cycles(base: Path, scratch: Path, label: str, executor_args: dict):
         started = time.perf_counter()
         executor.start(compute_section if calculating is None else partial(_timed, calculating))
         startup = time.perf_counter() - started
+        steal, ticks = _machine_ticks()
+        coordinator, workers = _own_cpu(), _children_cpu()
         started = time.perf_counter()
-        report = run_cycle(workspace, clock, at=at, executor=_Started(executor),
-                           ingest_waiting=False)  # fmt: skip
-        seconds = time.perf_counter() - started
-        evaluations = {s.evaluation for s in report.sections}
-        failed = len(report.failed)
-        figures[name] = (seconds, len(report.sections), startup, failed, evaluations,
-                         None if calculating is None else sum(calculating))
+        wrapped = _Started(executor)
+        report = run_cycle(workspace, clock, at=at, executor=wrapped, ingest_waiting=False)
+        end = wrapped.at_close
+        figures[name] = Cycle(
+            seconds=end["time"] - started, sections=len(report.sections), startup=startup,
+            failed=len(report.failed), evaluations={s.evaluation for s in report.sections},
+            calculating=None if calculating is None else sum(calculating),
+            coordinator_cpu=end["own cpu"] - coordinator,
+            worker_cpu=sum(cpu - workers.get(pid, 0.0) for pid, cpu in end["children cpu"].items()),
+            steal=end["steal"] - steal, ticks=end["ticks"] - ticks,
+        )
     shutil.rmtree(folder)
     return figures
 
@@ -214,11 +280,14 @@ def _timed(seconds: list, task):
 
 
 class _Started:
-    """An executor already started (so that its start-up is not counted in the cycle)."""
+    """An executor already started (so that its start-up is not counted in the cycle); it
+    notes the time and CPU figures when the cycle closes it, so that its shut-down is not
+    counted either."""
 
     def __init__(self, executor):
         self._executor = executor
         self.name = executor.name
+        self.at_close = None
 
     def __getattr__(self, name):
         return getattr(self._executor, name)
@@ -230,6 +299,9 @@ class _Started:
         return self
 
     def __exit__(self, *exc):
+        steal, ticks = _machine_ticks()
+        self.at_close = {"time": time.perf_counter(), "own cpu": _own_cpu(),
+                         "children cpu": _children_cpu(), "steal": steal, "ticks": ticks}
         self._executor.close()
 
 
@@ -258,28 +330,42 @@ def main() -> None:
         results = {label: _pooled([f[label] for f in per_round]) for label in labels}
         for label in labels:
             full, warm = results[label]["full"], results[label]["warm"]
-            print(f"{label:<26} full search: {full[1]:>5} sections in {full[0]:8.1f} s = {full[1] / full[0]:7.2f}/s;"
-                  f"  warm: {warm[1]:>5} in {warm[0]:7.1f} s = {warm[1] / warm[0]:7.1f}/s;"
-                  f"  start-up {full[2]:.1f} s; failed {full[3]}+{warm[3]}; {sorted(map(str, full[4] | warm[4]))}")
+            print(f"{label:<26} full search: {full.sections:>5} sections in {full.seconds:8.1f} s = "
+                  f"{full.sections / full.seconds:7.2f}/s;  warm: {warm.sections:>5} in {warm.seconds:7.1f} s = "
+                  f"{warm.sections / warm.seconds:7.1f}/s;  start-up {full.startup / rounds:.1f} s; "
+                  f"failed {full.failed}+{warm.failed}; {sorted(map(str, full.evaluations | warm.evaluations))}")
+        _cpu_table(results)
         _summary(results, sections, per_round)
     finally:
         shutil.rmtree(scratch, ignore_errors=True)
 
 
 def _pooled(figures: list[dict]) -> dict:
-    """One executor's figures summed over the rounds (start-up: the mean)."""
-    out = {}
-    for kind in ("full", "warm"):
-        rows = [f[kind] for f in figures]
-        calculating = None if rows[0][5] is None else sum(r[5] for r in rows)
-        out[kind] = (sum(r[0] for r in rows), sum(r[1] for r in rows), statistics.mean(r[2] for r in rows),
-                     sum(r[3] for r in rows), set().union(*(r[4] for r in rows)), calculating)  # fmt: skip
-    return out
+    """One executor's figures summed over the rounds."""
+    return {kind: sum((f[kind] for f in figures[1:]), figures[0][kind]) for kind in ("full", "warm")}
+
+
+def _cpu_table(results) -> None:
+    """Where the CPU time went, per section: a speed-up below the worker count shows up either
+    as workers idle (busy share below 100%) or as each section costing more CPU with more
+    workers busy (cores slowed by each other or by the hypervisor: steal)."""
+    print("\nCPU per section [ms] (coordinator: this process, with the local Dask scheduler; workers: "
+          "the worker processes), workers' busy share, hypervisor steal:")
+    for label, runs in results.items():
+        workers = RUNS[label].get("workers") or int(RUNS[label].get("cluster", "local:0")[6:])
+        parts = []
+        for kind in ("full", "warm"):
+            c = runs[kind]
+            busy = f"{c.worker_cpu / (workers * c.seconds):4.0%}" if workers else "   -"
+            steal = f"{c.steal / c.ticks:4.1%}" if c.ticks else "   ?"
+            parts.append(f"{kind} {1000 * c.coordinator_cpu / c.sections:7.1f} + {1000 * c.worker_cpu / c.sections:7.1f}"
+                         f" busy {busy} steal {steal}")  # fmt: skip
+        print(f"  {label:<26} " + ";  ".join(parts))
 
 
 def _rate(results, label, kind):
-    seconds, count = results[label][kind][:2]
-    return count / seconds
+    cycle = results[label][kind]
+    return cycle.sections / cycle.seconds
 
 
 def _summary(results, sections: int, per_round: list[dict]) -> None:
@@ -306,8 +392,8 @@ def _summary(results, sections: int, per_round: list[dict]) -> None:
           f"{FULL_SEARCH_SHARE:.3f} x {full_s:.2f} s full search per section per hour on one worker"
           f" = {per_hour / 3600:.1f} worker-hours per hour; at {UTILISATION:.0%} utilisation:"
           f" about {workers} single-threaded worker(s)")  # fmt: skip
-    seconds, count, *_, calculating = results["in-process"]["warm"]
-    coordinator = (seconds - calculating) / count
+    warm = results["in-process"]["warm"]
+    coordinator = (warm.seconds - warm.calculating) / warm.sections
     print(f"coordinator (store reads, water lines, writes, alerts; one process whatever the workers): "
           f"{coordinator * 1000:.1f} ms per section in the warm cycle = {NETWORK_SECTIONS * coordinator / 60:.1f} "
           f"min per hourly cycle of {NETWORK_SECTIONS} sections (must stay well under 60 min)")
