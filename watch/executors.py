@@ -15,6 +15,7 @@ cluster is asked for.
 from __future__ import annotations
 
 import importlib
+import queue
 from collections.abc import Callable, Iterator
 from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
 from concurrent.futures.process import BrokenProcessPool
@@ -315,6 +316,7 @@ class DaskSectionExecutor(SectionExecutor):
         self._waiting: list[str] = []  # submitted, not yet sent (the next batch)
         self._batches: dict[object, list[str]] = {}  # future -> its sections
         self._attempts: dict[str, int] = {}
+        self._ended: queue.SimpleQueue = queue.SimpleQueue()  # batches whose task has ended
         self._serial = 0
 
     def start(self, compute: Callable) -> None:
@@ -326,7 +328,7 @@ class DaskSectionExecutor(SectionExecutor):
             raise UserError("a Dask cluster needs the optional extra: pip install 'slipwatch[cluster]'") from None
         if self.address.startswith("local:"):
             workers = _local_workers(self.address)
-            with dask.config.set(_LOCAL_WORKER_CONFIG):
+            with dask.config.set(_LOCAL_CLUSTER_CONFIG):
                 self._cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                                              dashboard_address=None)  # fmt: skip
             self._client = Client(self._cluster)
@@ -370,30 +372,39 @@ class DaskSectionExecutor(SectionExecutor):
         future = self._client.submit(_compute_batch, self._compute, [(k, self._tasks[k]) for k in keys],
                                      pure=False, key=f"slipwatch-{keys[0]}-{self._serial}")  # fmt: skip
         self._batches[future] = list(keys)
+        # Dask calls this from its own thread when the task ends (finished, failed or
+        # cancelled). Waiting on a queue costs the same however many tasks are out; waiting
+        # on all outstanding futures at every step cost this process tens of milliseconds of
+        # CPU per section when hundreds of searches were out at once.
+        future.add_done_callback(self._ended.put)
 
     def ready(self):
-        for future in [f for f in self._batches if f.status == "finished"]:
+        while True:
+            try:
+                future = self._ended.get_nowait()
+            except queue.Empty:
+                return
             yield from self._settle(future)
 
     def results(self):
-        from dask.distributed import wait as dask_wait
-
         self._flush()
         while self._tasks:
             try:
-                done, _ = dask_wait(list(self._batches), timeout=self.stall_timeout_s, return_when="FIRST_COMPLETED")
-            except TimeoutError:
+                future = self._ended.get(timeout=self.stall_timeout_s)
+            except queue.Empty:
                 for future in list(self._batches):
                     future.cancel()
                     yield from self._retry_alone(self._batches.pop(future),
                                                  f"no section finished within {self.stall_timeout_s:g} s")
                 continue
-            for future in done:
-                yield from self._settle(future)
+            yield from self._settle(future)
 
     def _settle(self, future):
-        """The results of a finished batch; its failed sections charged and resent alone."""
-        keys = self._batches.pop(future)
+        """The results of a finished batch; its failed sections charged and resent alone. A
+        batch already given up on (cancelled after a stall) is ignored."""
+        keys = self._batches.pop(future, None)
+        if keys is None:
+            return
         if future.status != "finished":
             error = future.exception() if future.status == "error" else future.status
             message = f"{type(error).__name__}: {error}" if isinstance(error, BaseException) else str(error)
@@ -437,20 +448,32 @@ def _compute_batch(compute: Callable, tasks: list[tuple[str, object]]) -> list[t
     return out
 
 
-#: Settings of the workers of a local cluster (an existing cluster keeps its own), both
-#: measured in tests/benchmarks/bench_cycle.py. The workers' sampling profiler takes the GIL
-#: every few milliseconds, which costs a search's Python code a noticeable share of its time.
-#: Dask's default MALLOC_TRIM_THRESHOLD_ of 64 kB hands freed memory back to the system at
-#: once, so that every large temporary array of the solver is page-faulted in afresh: a full
-#: search ran 1.5 times slower on a Dask worker than in-process. The workers keep the C
-#: library's own default instead (the other variables are Dask's defaults).
-_LOCAL_WORKER_CONFIG = {
+#: Settings of a local cluster (an existing cluster keeps its own), measured in
+#: tests/benchmarks/bench_cycle.py and by timing an idle local cluster.
+#:
+#: - The workers' sampling profiler takes the GIL every few milliseconds, which costs a
+#:   search's Python code a noticeable share of its time.
+#: - Dask's default MALLOC_TRIM_THRESHOLD_ of 64 kB hands freed memory back to the system at
+#:   once, so that every large temporary array of the solver is page-faulted in afresh: a full
+#:   search ran 1.5 times slower on a Dask worker than in-process. The workers keep the C
+#:   library's own default instead (the other variables are Dask's defaults).
+#: - Dask's housekeeping runs every 20 to 500 ms (event-loop tick, work stealing, system and
+#:   memory monitors): an idle local cluster of 2 workers took 6.8% of a core in this process
+#:   (scheduler, nannies and client share its event loop) and 2.5% in each worker, 0.9% and
+#:   0.3% at the intervals below. On a 2-core machine that is CPU taken from the workers. The
+#:   tasks here last from a fifth of a second (a batch of warm re-evaluations) to seconds, so
+#:   once a second is often enough to rebalance them and to watch the workers' memory.
+_LOCAL_CLUSTER_CONFIG = {
     "distributed.worker.profile.enabled": False,
     "distributed.nanny.pre-spawn-environ": {
         "OMP_NUM_THREADS": 1,
         "MKL_NUM_THREADS": 1,
         "OPENBLAS_NUM_THREADS": 1,
     },
+    "distributed.admin.tick.interval": "1s",
+    "distributed.scheduler.work-stealing-interval": "1s",
+    "distributed.admin.system-monitor.interval": "5s",
+    "distributed.worker.memory.monitor-interval": "1s",
 }
 
 
