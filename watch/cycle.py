@@ -426,12 +426,12 @@ def _prepare(workspace, store: Store, config, settings: AlertSettings, section_i
     is settled without one (inputs could not be prepared, or unchanged since its last
     assessment). Any library error becomes a failed calculation."""
     try:
-        section, version_id = current_section(workspace, store, section_id, now)
+        section, version_id = current_section(workspace, store, section_id, now, config=config)
         lines = water_lines_from_store(store, section, config, at)
     except (UserError, SolverError) as error:
         return _Calculation("failed", message=f"inputs could not be prepared: {error}"), None
     calc = _Calculation("pending", section=section, version_id=version_id, lines=lines)
-    instrumented = {p.water_line for p in config.piezometers if p.section == section_id}
+    instrumented = {p.water_line for p in config.piezometers_of(section_id)}
     for name, line in lines.items():
         if line.fallback != "none":
             calc.warnings.append(f"water line {name}: {line.fallback} ({line.fallback_reason})")
@@ -580,7 +580,7 @@ def _context(store: Store, config: SiteConfig, settings: AlertSettings, section_
         if last is not None:
             fos, method = last["fos"], last["method"]
     earlier = store.last_assessment(section_id, utc_text(at - timedelta(hours=24)), with_fos=True)
-    instruments = [p.id for p in config.piezometers if p.section == section_id]
+    instruments = [p.id for p in config.piezometers_of(section_id)]
     gauge = section_gauge(config, section_id)
     ages = {}
     for iid in instruments + ([gauge] if gauge else []):

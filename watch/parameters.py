@@ -20,6 +20,7 @@ from datetime import datetime
 from solver.errors import SectionError
 from solver.backcalc import with_strength
 from solver.section import Section, section_from_dict, section_to_dict
+from watch.config import SiteConfig
 from watch.errors import ConfigError, StoreError
 from watch.sections import load_section
 from watch.store import Store, utc_text
@@ -60,7 +61,8 @@ class SectionVersion:
 
 
 def current_section(
-    workspace: Workspace, store: Store, section_id: str, now: datetime | None = None
+    workspace: Workspace, store: Store, section_id: str, now: datetime | None = None, *,
+    config: SiteConfig | None = None,
 ) -> tuple[Section, int | None]:
     """The section with its parameter version in force, and that version's row id.
 
@@ -69,6 +71,9 @@ def current_section(
     "section file <path>" (at ``now``, default the time of writing). Works inside or outside
     an open transaction of ``store``. A read-only store cannot record the first version: the
     section file is returned with version id None, and the caller must not claim a version.
+    ``config`` is site.toml as already loaded by a caller that handles many sections (a
+    cycle reads it once: reading it again for every new section made the first cycle of a
+    large network quadratic in its size); None reads it here.
 
     Raises ConfigError when site.toml does not list the section, its file is invalid, or the
     file's [section] id differs from ``section_id``; StoreError for a stored version that no
@@ -77,8 +82,9 @@ def current_section(
     row = store.latest_section_version(section_id)
     if row is not None:
         return _section_of(row), row["id"]
-    config = workspace.config()
-    ref = next((s for s in config.sections if s.id == section_id), None)
+    if config is None:
+        config = workspace.config()
+    ref = config.section_ref(section_id)
     if ref is None:
         known = ", ".join(s.id for s in config.sections) or "none"
         raise ConfigError(

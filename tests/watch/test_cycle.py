@@ -214,3 +214,24 @@ def test_a_failure_while_writing_leaves_no_section_half_written(tmp_path, monkey
     with workspace.open_store(read_only=True) as store:
         rows = store.conn.execute("SELECT section_id FROM assessments").fetchall()
     assert sorted(r for (r,) in rows) == sorted(s.section_id for s in report.sections)
+
+
+def test_a_cycle_reads_the_site_file_once_however_many_sections_are_new(tmp_path, monkeypatch):
+    """The first cycle of a network records version 1 of every section; reading site.toml
+    again for each of them made that cycle quadratic in the number of sections."""
+    import watch.workspace
+
+    workspace = make_workspace(tmp_path / "ws")
+    load = watch.workspace.load_site_config
+    reads = []
+
+    def counted(path):
+        reads.append(path)
+        return load(path)
+
+    monkeypatch.setattr(watch.workspace, "load_site_config", counted)
+    report = run_cycle(workspace, ManualClock(START), at=START, ingest_waiting=False)
+    assert len(report.sections) == 4 and all(s.status != "failed" for s in report.sections)
+    with workspace.open_store(read_only=True) as store:
+        assert store.conn.execute("SELECT COUNT(*) FROM section_versions").fetchone()[0] == 4
+    assert len(reads) == 1
