@@ -404,7 +404,7 @@ def _stored_context(store: Store, config: SiteConfig, section_id: str, now: date
     if last is not None:
         earlier = store.last_assessment(
             section_id, utc_text(parse_utc_text(last["time_utc"]) - timedelta(hours=24)), with_fos=True)
-    ref = next((s for s in config.sections if s.id == section_id), None)
+    ref = config.section_ref(section_id)
     return SectionContext(
         site_id=config.id, site_name=config.name, section_id=section_id, section_name="",
         at=now, fos=last["fos"] if last else None, method=last["method"] if last else None,

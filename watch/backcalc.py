@@ -377,7 +377,7 @@ def _water_at(store: Store, config, case: SlipCase, section: Section, at: dateti
         # Stood times always come from readings: a line given for the failure says nothing
         # about another time.
         estimates = _lines_from_readings(store, config, section, at)
-        informed = {p.water_line for p in config.piezometers if p.section == section.id}
+        informed = {p.water_line for p in config.piezometers_of(section.id)}
         for name, estimate in estimates.items():
             if name in points:
                 continue

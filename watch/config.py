@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import cached_property
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
@@ -192,9 +193,30 @@ class SiteConfig:
     path: Path | None = None
     raw: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
 
-    @property
+    # Lookups by id, built once per loaded configuration: a cycle asks them for every section,
+    # and scanning the lists each time made a cycle quadratic in the size of the network.
+    @cached_property
     def instruments(self) -> dict[str, Piezometer | RainGauge]:
         return {i.id: i for i in (*self.piezometers, *self.rain_gauges)}
+
+    @cached_property
+    def _sections_by_id(self) -> dict[str, SectionRef]:
+        return {s.id: s for s in self.sections}
+
+    @cached_property
+    def _piezometers_by_section(self) -> dict[str, tuple[Piezometer, ...]]:
+        by_section: dict[str, list[Piezometer]] = {}
+        for piezometer in self.piezometers:
+            by_section.setdefault(piezometer.section, []).append(piezometer)
+        return {section_id: tuple(found) for section_id, found in by_section.items()}
+
+    def section_ref(self, section_id: str) -> SectionRef | None:
+        """The ``[[section]]`` entry of ``section_id``, or None when the file has none."""
+        return self._sections_by_id.get(section_id)
+
+    def piezometers_of(self, section_id: str) -> tuple[Piezometer, ...]:
+        """The piezometers of ``section_id``, in the order of the file."""
+        return self._piezometers_by_section.get(section_id, ())
 
     def instrument(self, instrument_id: str) -> Piezometer | RainGauge:
         try:

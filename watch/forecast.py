@@ -431,7 +431,7 @@ class Calibration:
 
 def gauge_of(config: SiteConfig, piezometer: Piezometer) -> str:
     """The rain gauge serving a piezometer: its section's named gauge, else the nearest."""
-    ref = next(s for s in config.sections if s.id == piezometer.section)
+    ref = config.section_ref(piezometer.section)
     if ref.gauge is not None:
         return ref.gauge
     located = {g.id: g.location for g in config.rain_gauges if g.location is not None}
@@ -847,7 +847,7 @@ class _Prepared:
     notes: list[str] = field(default_factory=list)
 
     def lines(self, heads: Mapping[str, float]) -> dict[str, WaterLineEstimate]:
-        ref = next(s for s in self.config.sections if s.id == self.section.id)
+        ref = self.config.section_ref(self.section.id)
         return water_lines_through(
             self.section, self.piezometers, self.readings, self.at,
             default_max_age=pd.Timedelta(hours=self.config.ingest.stale_hours).to_pytimedelta(),
@@ -875,8 +875,7 @@ def _prepare(workspace: Workspace, store: Store, config: SiteConfig, section_id:
     at = _utc(at)
     section, version_id = current_section(workspace, store, section_id)
     on_lines = {line.name for line in section.water_lines}
-    piezometers = [p for p in config.piezometers
-                   if p.section == section_id and p.water_line in on_lines]  # fmt: skip
+    piezometers = [p for p in config.piezometers_of(section_id) if p.water_line in on_lines]
     if not piezometers:
         raise ModelError(f"section {section_id} has no piezometer on its water lines; there "
                          "are no heads to forecast")

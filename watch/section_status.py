@@ -38,7 +38,7 @@ def sections_status(workspace: Workspace, now: datetime) -> list[dict]:
             if newest is not None and newest["status"] in ("failed", "not converged", "no live data"):
                 data.append(f"last assessment {newest['status']}: {newest['message']}")
             gauge = section_gauge(config, ref.id)
-            instruments = [p.id for p in config.piezometers if p.section == ref.id] + ([gauge] if gauge else [])
+            instruments = [p.id for p in config.piezometers_of(ref.id)] + ([gauge] if gauge else [])
             times = [r["time_utc"] for i in instruments if (r := store.newest_reading(i, utc_text(now)))]
             newest_reading = max(times) if times else None
             inspections = store.inspection_rows(open_only=True, section_id=ref.id)

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 from datetime import timedelta
 
 from watch.alerts import Direction, TriggerRule
-from watch.config import SiteConfig, TableReader
+from watch.config import Piezometer, SiteConfig, TableReader
 from watch.errors import ConfigError
 from watch.rainfall import CAINE_1980, GUZZETTI_2008_GLOBAL, IntensityDurationThreshold, gauge_for_section
 
@@ -175,8 +175,8 @@ class AlertSettings:
             need = QUANTITIES[spec.quantity][2]
             instrument = spec.instrument
             if need == "instrument":
-                piezometer = next((p for p in config.piezometers if p.id == instrument), None)
-                if piezometer is None or piezometer.section != section_id:
+                piezometer = config.instruments.get(instrument)
+                if not isinstance(piezometer, Piezometer) or piezometer.section != section_id:
                     continue  # a head rule belongs to its instrument's section only
             elif need == "gauge":
                 instrument = instrument or gauge
@@ -191,7 +191,7 @@ class AlertSettings:
         common = dict(level=DATA_LEVEL, rank=0, direction=Direction.ABOVE,
                       on_delay=data.on_delay, off_delay=data.off_delay)  # fmt: skip
         rules = []
-        instruments = [p.id for p in config.piezometers if p.section == section_id]
+        instruments = [p.id for p in config.piezometers_of(section_id)]
         watched = instruments + ([gauge] if gauge else [])
         if watched:
             # One stale-feed alert per section (its oldest instrument), not one per instrument:
@@ -439,7 +439,9 @@ def _cycle(r: TableReader, t: dict) -> CycleSettings:
 
 def section_gauge(config: SiteConfig, section_id: str) -> str | None:
     """The gauge the site file names for the section, else the nearest one, else None."""
-    ref = next(s for s in config.sections if s.id == section_id)
+    ref = config.section_ref(section_id)
+    if ref is None:
+        raise ConfigError(f"section {section_id!r} is not a [[section]] of the site file")
     if ref.gauge is not None:
         return ref.gauge  # checked against the [[rain_gauge]] ids when the site file was read
     located = {g.id: g.location for g in config.rain_gauges if g.location is not None}

@@ -128,7 +128,7 @@ def water_lines_for(
     ref = _section_ref(config, section.id)
     return water_lines_through(
         section,
-        [p for p in config.piezometers if p.section == section.id],
+        config.piezometers_of(section.id),
         readings,
         at,
         default_max_age=timedelta(hours=config.ingest.stale_hours),
@@ -250,7 +250,7 @@ def _with_record(
 
 
 def _section_ref(config: SiteConfig, section_id: str) -> SectionRef:
-    ref = next((s for s in config.sections if s.id == section_id), None)
+    ref = config.section_ref(section_id)
     if ref is None:
         known = ", ".join(s.id for s in config.sections) or "none"
         raise ConfigError(f"section {section_id!r} is not a [[section]] of the site file "
@@ -313,7 +313,7 @@ def water_lines_from_store(
     missing), and the stored rainfall-response models as the second fallback."""
     at = _utc(at)
     ref = _section_ref(config, section.id)
-    ours = [p for p in config.piezometers if p.section == section.id]
+    ours = config.piezometers_of(section.id)
     line_age = {w.name: w.max_age_hours for w in ref.water_lines}
     hours = [p.max_age_hours or line_age.get(p.water_line) or config.ingest.stale_hours
              for p in ours]  # fmt: skip
