@@ -373,8 +373,8 @@ def release_shelved(store: Store, config: SiteConfig, settings: AlertSettings, n
         if not row["shelved_until_utc"] or parse_utc_text(row["shelved_until_utc"]) > now:
             continue
         section_id = row["section_id"]
-        rules = {r.rule.name: r for r in settings.rules_for(config, section_id)} if section_id in {
-            s.id for s in config.sections} else {}  # fmt: skip
+        rules = ({r.rule.name: r for r in settings.rules_for(config, section_id)}
+                 if config.section_ref(section_id) is not None else {})
         with store.atomic():
             store.update_alert(row["id"], {"shelved_until_utc": None, "shelved_by": None,
                                            "shelved_reason": None, "shelved_utc": None})  # fmt: skip

@@ -214,6 +214,15 @@ class SiteConfig:
         """The ``[[section]]`` entry of ``section_id``, or None when the file has none."""
         return self._sections_by_id.get(section_id)
 
+    def section(self, section_id: str) -> SectionRef:
+        """The ``[[section]]`` entry of ``section_id``; ConfigError naming the known ones when
+        the file has none."""
+        ref = self._sections_by_id.get(section_id)
+        if ref is None:
+            known = ", ".join(self._sections_by_id) or "none"
+            raise ConfigError(f"section {section_id!r} is not listed in {self._file_name()} (known: {known})")
+        return ref
+
     def piezometers_of(self, section_id: str) -> tuple[Piezometer, ...]:
         """The piezometers of ``section_id``, in the order of the file."""
         return self._piezometers_by_section.get(section_id, ())

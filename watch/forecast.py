@@ -431,7 +431,7 @@ class Calibration:
 
 def gauge_of(config: SiteConfig, piezometer: Piezometer) -> str:
     """The rain gauge serving a piezometer: its section's named gauge, else the nearest."""
-    ref = config.section_ref(piezometer.section)
+    ref = config.section(piezometer.section)
     if ref.gauge is not None:
         return ref.gauge
     located = {g.id: g.location for g in config.rain_gauges if g.location is not None}
@@ -847,7 +847,7 @@ class _Prepared:
     notes: list[str] = field(default_factory=list)
 
     def lines(self, heads: Mapping[str, float]) -> dict[str, WaterLineEstimate]:
-        ref = self.config.section_ref(self.section.id)
+        ref = self.config.section(self.section.id)
         return water_lines_through(
             self.section, self.piezometers, self.readings, self.at,
             default_max_age=pd.Timedelta(hours=self.config.ingest.stale_hours).to_pytimedelta(),
@@ -873,7 +873,7 @@ def _prepare(workspace: Workspace, store: Store, config: SiteConfig, section_id:
     from watch.parameters import current_section  # the back-analysis issue's module
 
     at = _utc(at)
-    section, version_id = current_section(workspace, store, section_id)
+    section, version_id = current_section(workspace, store, section_id, config=config)
     on_lines = {line.name for line in section.water_lines}
     piezometers = [p for p in config.piezometers_of(section_id) if p.water_line in on_lines]
     if not piezometers:
@@ -1224,7 +1224,7 @@ def _section_ids(config: SiteConfig, sections: Sequence[str] | None) -> list[str
     known = [s.id for s in config.sections]
     if not sections:
         return known
-    unknown = [s for s in sections if s not in known]
+    unknown = [s for s in sections if config.section_ref(s) is None]
     if unknown:
         raise ConfigError(f"{unknown} are not [[section]] ids of the site file "
                           f"(sections: {', '.join(known)})")

@@ -84,12 +84,7 @@ def current_section(
         return _section_of(row), row["id"]
     if config is None:
         config = workspace.config()
-    ref = config.section_ref(section_id)
-    if ref is None:
-        known = ", ".join(s.id for s in config.sections) or "none"
-        raise ConfigError(
-            f"section {section_id!r} is not listed in {workspace.site_file} (known: {known})"
-        )
+    ref = config.section(section_id)
     section = load_section(workspace.root / ref.file)
     if section.id != section_id:
         raise ConfigError(

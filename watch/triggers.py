@@ -17,6 +17,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import timedelta
+from functools import cached_property
 
 from watch.alerts import Direction, TriggerRule
 from watch.config import Piezometer, SiteConfig, TableReader
@@ -156,17 +157,24 @@ class AlertSettings:
                          "arrive again the factor of safety is not being watched.")
         return self.levels[name]
 
+    @cached_property
+    def _triggers_by_section(self) -> dict[str | None, tuple[TriggerSpec, ...]]:
+        # Site defaults under None; a cycle asks for every section's rules, and a network
+        # with an override per section would otherwise be scanned whole for each one.
+        by_section: dict[str | None, list[TriggerSpec]] = {}
+        for spec in self.triggers:
+            by_section.setdefault(spec.section, []).append(spec)
+        return {section: tuple(specs) for section, specs in by_section.items()}
+
     def rules_for(self, config: SiteConfig, section_id: str) -> list[SectionRule]:
         """Every rule that applies to ``section_id``: site defaults with the section's
         overrides, then the data-quality rules of its instruments and its assessment."""
         chosen: dict[str, TriggerSpec] = {}
-        for spec in self.triggers:
-            if spec.section is None:
-                chosen[spec.name] = _merged(None, spec, self.source)
-        for spec in self.triggers:
-            if spec.section == section_id:
-                base = chosen.get(spec.name)
-                chosen[spec.name] = _merged(base, spec, self.source)
+        for spec in self._triggers_by_section.get(None, ()):
+            chosen[spec.name] = _merged(None, spec, self.source)
+        for spec in self._triggers_by_section.get(section_id, ()):
+            base = chosen.get(spec.name)
+            chosen[spec.name] = _merged(base, spec, self.source)
         rules = []
         gauge = section_gauge(config, section_id)
         for spec in chosen.values():
@@ -439,9 +447,7 @@ def _cycle(r: TableReader, t: dict) -> CycleSettings:
 
 def section_gauge(config: SiteConfig, section_id: str) -> str | None:
     """The gauge the site file names for the section, else the nearest one, else None."""
-    ref = config.section_ref(section_id)
-    if ref is None:
-        raise ConfigError(f"section {section_id!r} is not a [[section]] of the site file")
+    ref = config.section(section_id)
     if ref.gauge is not None:
         return ref.gauge  # checked against the [[rain_gauge]] ids when the site file was read
     located = {g.id: g.location for g in config.rain_gauges if g.location is not None}

@@ -23,7 +23,7 @@ import numpy as np
 import pandas as pd
 
 from solver.section import Section
-from watch.config import Piezometer, SectionRef, SiteConfig, WaterLineSettings
+from watch.config import Piezometer, SiteConfig, WaterLineSettings
 from watch.errors import ConfigError
 from watch.groundwater import (
     DEFAULT_SIDE_RULE,
@@ -125,7 +125,7 @@ def water_lines_for(
         The site file does not list the section, configures a water line the section file
         does not have, or a piezometer names a water line the section does not have.
     """
-    ref = _section_ref(config, section.id)
+    ref = config.section(section.id)
     return water_lines_through(
         section,
         config.piezometers_of(section.id),
@@ -249,15 +249,6 @@ def _with_record(
     return replace(estimate, readings=tuple(record))
 
 
-def _section_ref(config: SiteConfig, section_id: str) -> SectionRef:
-    ref = config.section_ref(section_id)
-    if ref is None:
-        known = ", ".join(s.id for s in config.sections) or "none"
-        raise ConfigError(f"section {section_id!r} is not a [[section]] of the site file "
-                          f"(sections: {known})")
-    return ref
-
-
 # --------------------------------------------------------------------------------------------
 # Readings in, lines out
 # --------------------------------------------------------------------------------------------
@@ -312,7 +303,7 @@ def water_lines_from_store(
     that (so an instrument that fell silent is reported stale with its last time, not
     missing), and the stored rainfall-response models as the second fallback."""
     at = _utc(at)
-    ref = _section_ref(config, section.id)
+    ref = config.section(section.id)
     ours = config.piezometers_of(section.id)
     line_age = {w.name: w.max_age_hours for w in ref.water_lines}
     hours = [p.max_age_hours or line_age.get(p.water_line) or config.ingest.stale_hours

@@ -105,3 +105,17 @@ def test_the_example_of_docs_formats_loads():
     config = parse_site_config(tomllib.loads(block))
     assert config.piezometers[0].calibration.zero_reading == 8750.0
     assert config.feeds[0].columns == {"P1 (kPa)": "P1", "Rain N (mm)": "RG-N"}
+
+
+def test_sections_and_piezometers_are_looked_up_by_id():
+    config = parse_site_config(_example())
+    first = config.sections[0]
+    assert config.section(first.id) is first and config.section_ref(first.id) is first
+    assert config.section_ref("XX-1") is None
+    for ref in config.sections:
+        # The index keeps the file's order and agrees with a scan of the list.
+        assert list(config.piezometers_of(ref.id)) == [p for p in config.piezometers if p.section == ref.id]
+    assert config.piezometers_of("XX-1") == ()
+    known = ", ".join(s.id for s in config.sections)
+    with pytest.raises(ConfigError, match=rf"section 'XX-1' is not listed in site.toml \(known: {known}\)"):
+        config.section("XX-1")
