@@ -255,7 +255,8 @@ def _assess_sections(workspace, store: Store, config, settings: AlertSettings, c
                         result = computed[section_id]
                         _take_result(calc, result)
                         seconds += getattr(result, "seconds", 0.0)
-                    written.append(_record_section(store, config, settings, section_id, calc, at, now, seconds))
+                    written.append(_record_section(store, config, settings, section_id, calc, at, now, seconds,
+                                                   gauges))  # fmt: skip
             for section_id, outcome in zip(ready, written):
                 computed.pop(section_id, None)
                 del prepared[section_id]
@@ -264,6 +265,7 @@ def _assess_sections(workspace, store: Store, config, settings: AlertSettings, c
                 bar.update(1)
             bar.set_postfix(failed=failed)
 
+    gauges = _GaugeRecords(store, at)
     executor.start(compute)
     with executor:
         for section_id in chosen:
@@ -302,7 +304,7 @@ def _chosen_sections(config: SiteConfig, sections: list[str] | None) -> list[str
     if not sections:
         return known
     sections = list(dict.fromkeys(sections))  # a section named twice is assessed once
-    unknown = [s for s in sections if s not in known]
+    unknown = [s for s in sections if config.section_ref(s) is None]
     if unknown:
         raise UserError(f"section(s) {', '.join(unknown)} not in the site file (sections: "
                         f"{', '.join(known) or 'none'})")  # fmt: skip
@@ -389,14 +391,14 @@ def compute_section(task: SectionTask) -> SectionResult:
 
 
 def _record_section(store: Store, config, settings: AlertSettings, section_id: str, calc: _Calculation,
-                    at: datetime, now: datetime, seconds: float) -> SectionOutcome:  # fmt: skip
+                    at: datetime, now: datetime, seconds: float, gauges: "_GaugeRecords") -> SectionOutcome:  # fmt: skip
     """The coordinator's half: the assessment, its water lines, the new cached search and the
     alerts of one section, inside the caller's transaction. ``seconds``: the preparation and
     calculation time so far (the time spent waiting for a worker is not the section's)."""
     started = time.perf_counter() - seconds
     rules = settings.rules_for(config, section_id)
-    context = _context(store, config, settings, section_id, calc, at)
-    values = {r.rule.name: _observe(store, r, calc, context, at) for r in rules}
+    context = _context(store, config, settings, section_id, calc, at, gauges)
+    values = {r.rule.name: _observe(store, r, calc, context, at, gauges) for r in rules}
     outcome = SectionOutcome(
         section_id, calc.status, fos=calc.fos, method=calc.method, evaluation=calc.evaluation,
         live=calc.live, warnings=list(calc.warnings), message=calc.message,
@@ -569,7 +571,7 @@ def _assessment_row(calc: _Calculation, section_id: str, at: datetime, now: date
 
 
 def _context(store: Store, config: SiteConfig, settings: AlertSettings, section_id: str, calc: _Calculation,
-             at: datetime) -> SectionContext:
+             at: datetime, gauges: "_GaugeRecords") -> SectionContext:
     """The facts every message of the section repeats: factor of safety and trend, water, rain
     and data age."""
     at_text = utc_text(at)
@@ -586,7 +588,7 @@ def _context(store: Store, config: SiteConfig, settings: AlertSettings, section_
     for iid in instruments + ([gauge] if gauge else []):
         newest = store.newest_reading(iid, at_text)
         ages[iid] = None if newest is None else (at - parse_utc_text(newest["time_utc"])).total_seconds() / 3600
-    rain = _rain_series(store, gauge, at, _RAIN_RECORD_H) if gauge else None
+    rain = gauges.series(gauge) if gauge else None
     water = {}
     for name, line in (calc.lines or {}).items():
         water[name] = {"source": line.source, "heads_m": dict(line.heads_used)}
@@ -601,7 +603,8 @@ def _context(store: Store, config: SiteConfig, settings: AlertSettings, section_
     )  # fmt: skip
 
 
-def _observe(store: Store, rule: SectionRule, calc: _Calculation, context: SectionContext, at: datetime):
+def _observe(store: Store, rule: SectionRule, calc: _Calculation, context: SectionContext, at: datetime,
+             gauges: "_GaugeRecords"):
     """The value a rule watches at ``at``; None when there is no trustworthy value (the alert
     then keeps its state)."""
     quantity = rule.rule.quantity
@@ -626,13 +629,11 @@ def _observe(store: Store, rule: SectionRule, calc: _Calculation, context: Secti
     if quantity in ("head_m", "rise_m_per_h"):
         return _head_value(store, rule, at, context.stale_hours)
     if quantity == "rain_mm":
-        return _total(_fresh(context, rule.instrument, store, at), at, rule.window_hours)
+        return _total(_fresh(context, rule.instrument, gauges), at, rule.window_hours)
     if quantity == "rain_id_ratio":
-        rain = _fresh(context, rule.instrument, store, at)
-        if rain is None or rain.empty:
+        if _fresh(context, rule.instrument, gauges) is None:
             return None
-        ratio = worst_exceedance(rain, at, rule.curve).ratio
-        return ratio if math.isfinite(ratio) else None
+        return gauges.id_ratio(rule.instrument, rule.curve)
     raise UserError(f"rule {rule.rule.name!r}: no way to observe quantity {quantity!r}")
 
 
@@ -660,13 +661,40 @@ def _rain_series(store: Store, gauge: str, at: datetime, hours: float) -> pd.Ser
     return pd.Series([float(r["rain_mm"]) for r in rows], index=index, name="rain_mm")
 
 
-def _fresh(context: SectionContext, gauge: str, store: Store, at: datetime) -> pd.Series | None:
+def _fresh(context: SectionContext, gauge: str, gauges: "_GaugeRecords") -> pd.Series | None:
     """The rain record of a gauge, or None when the gauge is stale: a gauge that stopped
     reporting must not read as a dry spell."""
     age = context.ages_h.get(gauge)
     if age is None or age > context.stale_hours:
         return None
-    return context.rain if gauge == context.gauge else _rain_series(store, gauge, at, _RAIN_RECORD_H)
+    return gauges.series(gauge)
+
+
+class _GaugeRecords:
+    """The rain record of each gauge up to the cycle's time, and its worst ratio to each
+    intensity-duration curve, each worked out once per cycle: many sections share a gauge, and
+    the ratio was the largest part of the coordinator's time per section. Within a cycle the
+    readings do not change (the ingest runs before it, and this process is the only writer)."""
+
+    def __init__(self, store: Store, at: datetime) -> None:
+        self._store, self._at = store, at
+        self._series: dict[str, pd.Series | None] = {}
+        self._ratios: dict[tuple, float | None] = {}
+
+    def series(self, gauge: str) -> pd.Series | None:
+        if gauge not in self._series:
+            self._series[gauge] = _rain_series(self._store, gauge, self._at, _RAIN_RECORD_H)
+        return self._series[gauge]
+
+    def id_ratio(self, gauge: str, curve) -> float | None:
+        """Worst ratio of the gauge's rain to the curve over the curve's durations; None
+        without rain records or a finite ratio."""
+        key = (gauge, curve)
+        if key not in self._ratios:
+            rain = self.series(gauge)
+            ratio = None if rain is None or rain.empty else worst_exceedance(rain, self._at, curve).ratio
+            self._ratios[key] = ratio if ratio is not None and math.isfinite(ratio) else None
+        return self._ratios[key]
 
 
 def _total(rain: pd.Series | None, at: datetime, hours: float | None) -> float | None:
