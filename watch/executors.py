@@ -43,10 +43,9 @@ DEFAULT_MAX_ATTEMPTS = 3
 #: minutes only catches a hung or lost worker.
 DEFAULT_STALL_TIMEOUT_S = 600.0
 
-#: Sections per Dask task: enough to spread the scheduler's cost per task (a few
-#: milliseconds) over warm re-evaluations of tens of milliseconds each, few enough that the
-#: last tasks of a cycle of full searches (about half a second per section) do not leave
-#: workers idle for long. From tests/benchmarks/bench_cycle.py on a 2-core machine.
+#: Warm re-evaluations per Dask task: enough to spread the scheduler's cost per task (a few
+#: milliseconds) over re-evaluations of tens of milliseconds each (full searches travel
+#: alone). From tests/benchmarks/bench_cycle.py on a 2-core machine.
 DEFAULT_SECTIONS_PER_TASK = 16
 
 

@@ -186,7 +186,7 @@ def build_network(folder: Path, sections: int, seed: int = 9) -> Path:
 class Cycle:
     """Figures of one cycle (or of the same cycle summed over the rounds)."""
 
-    seconds: float  # from the first section submitted to the last one written
+    seconds: float  # run_cycle, from its start to the executor's shut-down (not included)
     sections: int
     startup: float  # executor start-up (e.g. a local Dask cluster), timed apart
     failed: int
