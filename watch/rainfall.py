@@ -348,6 +348,11 @@ def worst_exceedance(
         pd.Series(rain.index).diff().median() / pd.Timedelta(hours=1) if len(rain) > 1 else 0.0
     )
     start = _record_start(rain)
+    # Window totals from positions in the (increasing) times: the same sums over (end - D,
+    # end] as _window_total, without a boolean mask and a record-start check per duration.
+    times = rain.index.as_unit("ns").asi8  # Timestamp.value is in ns whatever the unit
+    depths = rain.to_numpy()
+    last = np.searchsorted(times, end.value, side="right")
     tested, ratios, intensities, skipped = [], [], [], []
     for d in sorted(float(d) for d in durations_h):
         if not threshold.in_range(d):
@@ -358,7 +363,8 @@ def worst_exceedance(
         elif end - pd.Timedelta(hours=d) < start:
             skipped.append(f"{d:g} h: longer than the rain record before {end}")
         else:
-            intensity = _window_total(rain, end, d) / d
+            first = np.searchsorted(times, (end - pd.Timedelta(hours=d)).value, side="right")
+            intensity = float(depths[first:last].sum()) / d
             tested.append(d)
             intensities.append(intensity)
             ratios.append(intensity / threshold.intensity(d))

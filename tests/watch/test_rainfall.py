@@ -192,3 +192,20 @@ def test_gauge_for_section_named_or_nearest():
     assert gauge_for_section((1290.0, 720.0), gauges, named="RG-N") == "RG-N"
     with pytest.raises(ConfigError, match="names rain gauge 'RG-X'"):
         gauge_for_section(None, gauges, named="RG-X")
+
+
+@pytest.mark.parametrize("unit", ["s", "us", "ns"])
+def test_worst_exceedance_uses_the_same_window_totals_as_rain_total(unit):
+    """The ratio per duration is rain_total(end, D) / D over the curve's intensity (Caine 1980
+    and Guzzetti et al. 2008 curves), whatever the time resolution of the series' index."""
+    rng = np.random.default_rng(7)
+    for _ in range(20):
+        n = int(rng.integers(2, 1500))
+        index = pd.date_range("2026-01-01", periods=n, freq="15min", tz="UTC").as_unit(unit)
+        depths = np.where(rng.random(n) < 0.7, 0.0, rng.gamma(0.5, 2.0, n)).round(1)
+        rain = pd.Series(depths, index=index)
+        end = index[int(rng.integers(0, n))] + pd.Timedelta(minutes=int(rng.integers(0, 30)))
+        for curve in (CAINE_1980, GUZZETTI_2008_GLOBAL):
+            found = worst_exceedance(rain, end, curve)
+            expected = [rain_total(rain, end, d) / d / curve.intensity(d) for d in found.durations_h]
+            np.testing.assert_allclose(found.ratios, expected, rtol=1e-12, atol=0)
