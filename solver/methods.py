@@ -86,6 +86,11 @@ INTERSLICE_FUNCTIONS = {
     "half_sine": lambda s: np.sin(np.pi * s),
 }
 
+#: The interslice normal force that Spencer's and Morgenstern-Price's interslice function applies
+#: to: "total" E, the published definition (Spencer 1967; Morgenstern and Price 1965), the
+#: default; or "effective" E' = E - U (see :func:`morgenstern_price`).
+INTERSLICE_FORCES = ("total", "effective")
+
 #: Coefficient b1 of Janbu's correction factor f0 (Janbu 1973), by the strength at the base.
 JANBU_B1 = {"cohesion_only": 0.69, "friction_only": 0.31, "cohesion_and_friction": 0.50}
 
@@ -1182,10 +1187,9 @@ def _phi_terms(s: _Arrays, fos, lam, f_boundary):
     return phi(lf[:, :-1]), phi(lf[:, 1:])
 
 
-def _driving_resisting(s: _Arrays) -> tuple[np.ndarray, np.ndarray]:
-    """T_i (loads along the base) and R_i (strength with the loads' normal component), the
-    water forces on the slice sides included (effective interslice forces)."""
-    horizontal = s.effective_horizontal_load
+def _driving_resisting(s: _Arrays, horizontal: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """T_i (loads along the base) and R_i (strength with the loads' normal component) of
+    the vertical loads W + Q and the horizontal loads ``horizontal`` of every slice [kN/m]."""
     driving = s.vertical_load * s.sin_a + horizontal * s.cos_a
     resisting = s.cohesion_term + (
         s.vertical_load * s.cos_a - horizontal * s.sin_a
@@ -1226,7 +1230,7 @@ def _gle_interslice_normal(psi, right_phi, driving, resisting, fos) -> np.ndarra
     return np.concatenate([np.zeros((e.shape[0], 1)), e], axis=1)
 
 
-def _gle_moment_sums(s: _Arrays, e, f_boundary) -> tuple[np.ndarray, np.ndarray]:
+def _gle_moment_sums(s: _Arrays, e, f_boundary, horizontal) -> tuple[np.ndarray, np.ndarray]:
     r"""The two sums of the moment equation of the whole mass, taken as the sum of the slice
     moments about their base mid-points (Zhu et al. 2005, Eq. 17, in this frame)::
 
@@ -1239,7 +1243,7 @@ def _gle_moment_sums(s: _Arrays, e, f_boundary) -> tuple[np.ndarray, np.ndarray]
     interior = np.where(s.active[:, :-1] & s.active[:, 1:], e[:, 1:-1], 0.0)
     numerator = (
         np.sum(interior * (s.y_base[:, :-1] - s.y_base[:, 1:]), axis=1)
-        + np.sum(s.horizontal_load_moment - s.effective_horizontal_load * s.y_base, axis=1)
+        + np.sum(s.horizontal_load_moment - horizontal * s.y_base, axis=1)
     )
     denominator = np.sum(
         f_boundary[:, 1:-1] * interior * 0.5 * (s.width[:, :-1] + s.width[:, 1:]), axis=1
@@ -1311,17 +1315,26 @@ class _GleState:
 
 
 class _Gle:
-    """Spencer / Morgenstern-Price equations of one batch of surfaces."""
+    """Spencer / Morgenstern-Price equations of one batch of surfaces, on total interslice
+    forces (``effective=False``) or on effective ones, E' = E - U (``effective=True``)."""
 
-    def __init__(self, s: _Arrays, f_boundary: np.ndarray):
+    def __init__(self, s: _Arrays, f_boundary: np.ndarray, effective: bool):
         self.s = s
         self.f_boundary = f_boundary
-        self.driving, self.resisting = _driving_resisting(s)
+        self.effective = effective
+        # The horizontal loads of each slice in the recursion: with effective interslice
+        # forces the water forces U on the slice sides join them (H + U_i - U_{i+1}).
+        self.horizontal = s.effective_horizontal_load if effective else s.horizontal_load
+        self.driving, self.resisting = _driving_resisting(s, self.horizontal)
         span = s.x_boundary[:, -1] - s.x_boundary[:, 0]
         self.scale = np.sum(s.vertical_load, axis=1) * span
 
     def take(self, index: np.ndarray) -> "_Gle":
-        return _Gle(self.s.take(index), self.f_boundary[index])
+        return _Gle(self.s.take(index), self.f_boundary[index], self.effective)
+
+    def total_interslice_normal(self, e: np.ndarray) -> np.ndarray:
+        """Total E at the boundaries from the E of the recursion (E' + U when effective)."""
+        return e + self.s.side_water if self.effective else e
 
     def interslice_normal(self, fos, lam) -> np.ndarray:
         left_phi, right_phi = _phi_terms(self.s, fos, lam, self.f_boundary)
@@ -1333,7 +1346,7 @@ class _Gle:
         psi = _transfer(left_phi, right_phi)
         force_fos = _gle_force_fos(psi, self.driving, self.resisting)
         e = _gle_interslice_normal(psi, right_phi, self.driving, self.resisting, fos)
-        numerator, denominator = _gle_moment_sums(self.s, e, self.f_boundary)
+        numerator, denominator = _gle_moment_sums(self.s, e, self.f_boundary, self.horizontal)
         with np.errstate(divide="ignore", invalid="ignore"):
             phi = np.minimum(left_phi, right_phi) / fos[:, np.newaxis]
             moment = (numerator - lam * denominator) / self.scale
@@ -1428,43 +1441,290 @@ def _gle_solve(gle: _Gle, start: np.ndarray, tolerance: float, max_iterations: i
     return progress, lam
 
 
+#: Range [-] and step of lambda over which the force-equilibrium curve F_f(lambda) is traced
+#: when the Newton iteration fails (|lambda| up to tan 63 deg; numerical settings).
+TRACE_LAMBDA_MAX = 2.0
+TRACE_LAMBDA_STEP = 0.05
+
+#: Bisection halvings of the root of the force balance in F and of the crossing in lambda.
+_BISECTIONS = 60
+
+
+def _force_balance(gle: _Gle, fos: np.ndarray, lam: np.ndarray) -> np.ndarray:
+    r"""The force equilibrium E_n = 0 without the poles of the recursion, normalised [-].
+
+    Multiplying the recursion E_{i+1} b_i = E_i a_i + F T_i - R_i (a_i = Phi_i(f_i),
+    b_i = Phi_i(f_{i+1}); :func:`morgenstern_price`) through by the products of the Phi gives
+
+        E_n prod_k b_k = sum_i (F T_i - R_i) w_i,    w_i = prod_{k<i} b_k prod_{k>i} a_k,
+
+    a polynomial in F and lambda, continuous where the recursion has a pole (some b_k = 0).
+    Returned divided by sum_i (|F T_i| + |R_i|) |w_i| (the w_i are scaled in logarithms, so
+    that long products neither overflow nor underflow). Its roots in F are the force-
+    equilibrium factors of safety F_f(lambda); its sign is not that of E_n.
+    """
+    s = gle.s
+    left, right = _phi_terms(s, fos, lam, gle.f_boundary)
+    n = fos.shape[0]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_a, log_b = np.log(np.abs(left)), np.log(np.abs(right))
+        # prod_{k<i} b_k and prod_{k>i} a_k, as logarithms and signs.
+        zero = np.zeros((n, 1))
+        before = np.concatenate([zero, np.cumsum(log_b, axis=1)[:, :-1]], axis=1)
+        after = np.concatenate([np.cumsum(log_a[:, ::-1], axis=1)[:, ::-1][:, 1:], zero], axis=1)
+        one = np.ones((n, 1))
+        sign = (np.concatenate([one, np.cumprod(np.sign(right), axis=1)[:, :-1]], axis=1)
+                * np.concatenate([np.cumprod(np.sign(left[:, ::-1]), axis=1)[:, ::-1][:, 1:],
+                                  one], axis=1))
+        log_w = before + after
+        log_w = np.where(s.active, log_w, -np.inf)
+        w = sign * np.exp(log_w - np.max(log_w, axis=1, keepdims=True))
+        f = fos[:, np.newaxis]
+        balance = np.sum((f * gle.driving - gle.resisting) * w, axis=1)
+        size = np.sum((np.abs(f * gle.driving) + np.abs(gle.resisting)) * np.abs(w), axis=1)
+        return balance / size
+
+
+def _regular_interval(gle: _Gle, lam: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The interval (F_low, F_high) of F in which every Phi_i(f) > 0 at lambda [-].
+
+    Phi = p + q F with p = (sin a - lambda f cos a) tan(phi'), q = cos a + lambda f sin a, at
+    both sides of every active slice: F > -p / q where q > 0 and F < -p / q where q < 0. At
+    lambda = 0, Phi = F m_alpha and F_low is the m_alpha floor F*. Empty when F_low >= F_high.
+    """
+    s = gle.s
+    lf = lam[:, np.newaxis] * gle.f_boundary
+    low = np.zeros(lam.shape[0])
+    high = np.full(lam.shape[0], np.inf)
+    for side in (lf[:, :-1], lf[:, 1:]):
+        p = (s.sin_a - side * s.cos_a) * s.tan_phi
+        q = s.cos_a + side * s.sin_a
+        with np.errstate(divide="ignore", invalid="ignore"):
+            bound = -p / q
+        low = np.maximum(low, np.max(np.where(s.active & (q > 0), bound, 0.0), axis=1))
+        high = np.minimum(high, np.min(np.where(s.active & (q < 0), bound, np.inf), axis=1))
+        # q = 0 with p <= 0: Phi <= 0 whatever F.
+        high = np.where(np.any(s.active & (q == 0) & (p <= 0), axis=1), 0.0, high)
+    return low, high
+
+
+def _force_root(gle: _Gle, lam, low, high, guess, points: int = 41) -> np.ndarray:
+    """F_f(lambda): the root of :func:`_force_balance` nearest to ``guess`` (in log F) in
+    [low, high] and where every Phi_i > 0 (:func:`_regular_interval`), bracketed on a
+    logarithmic grid of ``points`` values and refined by bisection; NaN where the balance does
+    not change sign there."""
+    n = lam.shape[0]
+    regular_low, regular_high = _regular_interval(gle, lam)
+    low = np.maximum(low, regular_low * (1 + 1e-9) + 1e-12)
+    high = np.minimum(high, regular_high * (1 - 1e-9))
+    low, high = np.where(low < high, low, np.nan), np.where(low < high, high, np.nan)
+    grid = np.exp(np.linspace(np.log(low), np.log(high), points, axis=1))  # (n, points)
+    rows = np.repeat(np.arange(n), points)
+    with np.errstate(all="ignore"):
+        values = _force_balance(gle.take(rows), grid.ravel(), lam[rows]).reshape(n, points)
+    change = np.sign(values[:, :-1]) * np.sign(values[:, 1:]) < 0
+    middle = np.sqrt(grid[:, :-1] * grid[:, 1:])
+    distance = np.where(change, np.abs(np.log(middle / guess[:, np.newaxis])), np.inf)
+    cell = np.argmin(distance, axis=1)
+    found = np.isfinite(distance[np.arange(n), cell])
+    a = grid[np.arange(n), cell]
+    b = grid[np.arange(n), cell + 1]
+    value_a = values[np.arange(n), cell]
+    for _ in range(_BISECTIONS):
+        mid = 0.5 * (a + b)
+        with np.errstate(all="ignore"):
+            value = _force_balance(gle, mid, lam)
+        same = np.sign(value) == np.sign(value_a)
+        a, value_a = np.where(same, mid, a), np.where(same, value, value_a)
+        b = np.where(same, b, mid)
+    return np.where(found, 0.5 * (a + b), np.nan)
+
+
+def _moment_balance(gle: _Gle, fos: np.ndarray, lam: np.ndarray) -> np.ndarray:
+    """The moment residual of :class:`_GleState` at (F, lambda) (NaN where F is NaN)."""
+    with np.errstate(all="ignore"):
+        return gle.state(np.where(np.isfinite(fos), fos, 1.0), lam).moment + 0.0 * fos
+
+
+def _gle_trace(gle: _Gle, start: np.ndarray, floor: np.ndarray, tolerance: float,
+               max_iterations: int):
+    """(F, lambda, bracketed, bisections) of the crossing of the force and moment equilibrium
+    curves, found by tracing (Fredlund and Krahn 1977).
+
+    F_f(lambda), the force-equilibrium F, is followed from lambda = 0 (the root of
+    :func:`_force_balance` above the m_alpha floor F* nearest to ``start``) in steps of
+    TRACE_LAMBDA_STEP each way up to TRACE_LAMBDA_MAX, each root taken as the one nearest to the
+    previous within a factor of 2 (the same branch: along it no Phi_i changes sign). Moment
+    equilibrium holds where the moment residual along that curve changes sign: where the
+    force and moment curves F_f(lambda) and F_m(lambda) of Fredlund and Krahn cross. The
+    bracket nearest to lambda = 0 is then halved until it is narrower than tolerance / 1000.
+    Each step in |lambda| and each halving counts as one of ``max_iterations``.
+    """
+    n = start.shape[0]
+    steps = min(int(round(TRACE_LAMBDA_MAX / TRACE_LAMBDA_STEP)), max_iterations)
+    zero = np.zeros(n)
+    low = np.maximum(floor * (1 + 1e-9), 1e-3)
+    f0 = _force_root(gle, zero, low, np.maximum(100.0 * start, 10.0), start, points=201)
+    m0 = _moment_balance(gle, f0, zero)
+    best = np.full((n, 4), np.nan)  # lambda_a, F_a, lambda_b, F_b of the chosen bracket
+    branches = {direction: (f0.copy(), m0.copy(), zero.copy(), np.isfinite(f0))
+                for direction in (1.0, -1.0)}
+    bracketed = np.zeros(n, dtype=bool)
+    levels = np.zeros(n, dtype=int)  # steps in |lambda| taken by each surface
+    for _ in range(steps):
+        levels += ~bracketed
+        # Both directions at each |lambda|: the bracket nearest to lambda = 0 wins.
+        for direction, (fos, moment, lam, alive) in branches.items():
+            index = np.flatnonzero(alive & ~bracketed)
+            if index.size == 0:
+                continue
+            sub = gle.take(index)
+            new_lam = lam[index] + direction * TRACE_LAMBDA_STEP
+            new_fos = _force_root(sub, new_lam, fos[index] / 2, fos[index] * 2, fos[index])
+            new_moment = _moment_balance(sub, new_fos, new_lam)
+            crossed = np.isfinite(new_moment) & (np.sign(new_moment) != np.sign(moment[index]))
+            take = index[crossed]
+            best[take] = np.column_stack([lam[take], fos[take], new_lam[crossed],
+                                          new_fos[crossed]])
+            bracketed[take] = True
+            lam[index], fos[index], moment[index] = new_lam, new_fos, new_moment
+            alive[index] = np.isfinite(new_moment)
+    lam_a, fos_a, lam_b, fos_b = best.T
+    moment_a = _moment_balance(gle, fos_a, lam_a)
+    bisections = np.zeros(n, dtype=int)
+    for _ in range(max(max_iterations - int(levels.min(initial=0)), 0)):
+        mid = 0.5 * (lam_a + lam_b)
+        guess = 0.5 * (fos_a + fos_b)
+        fos_mid = _force_root(gle, mid, np.minimum(fos_a, fos_b) / 1.5,
+                              np.maximum(fos_a, fos_b) * 1.5, guess, points=9)
+        moment_mid = _moment_balance(gle, fos_mid, mid)
+        same = np.sign(moment_mid) == np.sign(moment_a)
+        lost = ~np.isfinite(moment_mid)
+        bracketed &= ~lost
+        moving = (bracketed & (np.abs(lam_b - lam_a) > 1e-3 * tolerance)
+                  & (levels + bisections < max_iterations))
+        if not moving.any():
+            break
+        bisections += moving
+        lam_a = np.where(moving & same, mid, lam_a)
+        fos_a = np.where(moving & same, fos_mid, fos_a)
+        moment_a = np.where(moving & same, moment_mid, moment_a)
+        lam_b = np.where(moving & ~same, mid, lam_b)
+        fos_b = np.where(moving & ~same, fos_mid, fos_b)
+    lam = 0.5 * (lam_a + lam_b)
+    fos = _force_root(gle, lam, np.minimum(fos_a, fos_b) / 1.01, np.maximum(fos_a, fos_b) * 1.01,
+                      0.5 * (fos_a + fos_b), points=5)
+    return (np.where(bracketed, fos, np.nan), np.where(bracketed, lam, np.nan), bracketed,
+            levels + bisections)
+
+
+def _inclined_m_alpha(s: _Arrays, fos, lam, f_boundary) -> np.ndarray:
+    r"""m_alpha of Spencer's and Morgenstern-Price's slices: Bishop's m_alpha with the base
+    inclination measured from the interslice force, theta = atan(lambda f) [-]:
+
+        m_alpha = cos(alpha - theta) + sin(alpha - theta) tan(phi') / F
+                = Phi_i(f) cos(theta) / F,
+
+    the smaller of its values at the two sides of the slice (Phi_i of
+    :func:`morgenstern_price`). It is Bishop's m_alpha where lambda f = 0 and vanishes where
+    the base reaction at full mobilisation is parallel to the interslice force, at a pole of
+    the force recursion; next to it the interslice forces grow without bound and F rests on
+    that one slice. Our extension of the m_alpha criterion of Whitman and Bailey (1967) to
+    inclined interslice forces (Bishop's m_alpha follows from it with theta = 0); on the kinked
+    surfaces of the tests F of Spencer's method is far above Bishop's and Morgenstern-Price's
+    (half-sine) wherever it falls below M_ALPHA_MIN.
+    """
+    left, right = _phi_terms(s, fos, lam, f_boundary)
+    lf = lam[:, np.newaxis] * f_boundary
+    cos_theta = 1.0 / np.sqrt(1.0 + lf**2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.minimum(left * cos_theta[:, :-1], right * cos_theta[:, 1:]) / fos[:, np.newaxis]
+
+
+def _retrace(gle: _Gle, index, start, progress: "_Progress", lam, messages, tolerance,
+             max_iterations):
+    """Solve the surfaces ``index`` by :func:`_gle_trace`; write F, lambda, the flags and the
+    messages of those it solves (in place) and say why for those it does not."""
+    sub = gle.take(index)
+    fos, lam_traced, bracketed, steps = _gle_trace(sub, start[index], _m_alpha_floor(sub.s),
+                                                   tolerance, max_iterations)
+    with np.errstate(all="ignore"):
+        force = _force_balance(sub, np.where(bracketed, fos, 1.0),
+                               np.where(bracketed, lam_traced, 0.0))
+        moment = _moment_balance(sub, fos, lam_traced)
+    balanced = bracketed & (np.abs(force) <= tolerance) & (np.abs(moment) <= tolerance)
+    solved = index[balanced]
+    progress.fos[solved] = fos[balanced]
+    lam[solved] = lam_traced[balanced]
+    progress.converged[solved] = True
+    progress.iterations[index] += steps
+    progress.residual[solved] = np.maximum(np.abs(force), np.abs(moment))[balanced]
+    for k in np.flatnonzero(~balanced):
+        i = index[k]
+        why = (f"equilibrium residuals {force[k]:.3g} (force) and {moment[k]:.3g} (moment) "
+               "at the bracketed crossing" if bracketed[k] else
+               "the force and moment equilibrium curves do not cross for |lambda| <= "
+               f"{steps[k] * TRACE_LAMBDA_STEP:.3g} on the branch where every Phi_i > 0")
+        messages[i] = _join(messages[i], f"traced over lambda: {why}")
+    for i in solved:
+        messages[i] = ""
+
+
 def _general_limit_equilibrium(
-    slices: Slices, name: str, method: str, tolerance: float, max_iterations: int
+    slices: Slices,
+    name: str,
+    method: str,
+    interslice_force: str,
+    tolerance: float,
+    max_iterations: int,
 ) -> SafetyResult:
     _validate_settings(tolerance, max_iterations)
+    if interslice_force not in INTERSLICE_FORCES:
+        raise MethodError(
+            f"interslice_force must be one of {', '.join(INTERSLICE_FORCES)}, "
+            f"got {interslice_force!r}"
+        )
     s = _prepare(slices)
     f_boundary = _interslice_function(s, name)
-    gle = _Gle(s, f_boundary)
+    gle = _Gle(s, f_boundary, effective=interslice_force == "effective")
     # Bishop's F is close to the solution on most surfaces (Fredlund and Krahn 1977).
     moment = _moment_terms(s, *_moment_centre(slices))
     bishop = _bishop_iteration(s, moment, tolerance, MAX_ITERATIONS).fos
     start = np.where(np.isfinite(bishop), bishop, _starting_fos(s, moment))
     start = np.where(s.any_active, start, np.nan)
     progress, lam = _gle_solve(gle, start, tolerance, max_iterations)
-    fos = progress.fos
     # A small Newton step is not enough: where the step dropped the moment equation (lambda
     # indeterminate) force and moment equilibrium must both hold at the final (F, lambda).
     with np.errstate(all="ignore"):
-        final = gle.state(np.where(np.isfinite(fos), fos, 1.0), lam)
+        final = gle.state(np.where(np.isfinite(progress.fos), progress.fos, 1.0), lam)
     unbalanced = progress.converged & ~(
         (np.abs(final.force) <= tolerance) & (np.abs(final.moment) <= tolerance)
     )
     progress.converged = progress.converged & ~unbalanced
-    messages = _iteration_messages(progress, fos, max_iterations)
+    messages = _iteration_messages(progress, progress.fos, max_iterations)
     for i in np.flatnonzero(unbalanced):
         messages[i] = (
             "equilibrium not satisfied at the final (F, lambda): force residual "
             f"{final.force[i]:.3g}, moment residual {final.moment[i]:.3g} of load x length "
             "(lambda could not be determined)"
         )
+    # Where the Newton iteration failed (typically a pole of the recursion next to a steep
+    # end of the surface, which its steps may not cross), trace the force-equilibrium curve
+    # over lambda and bracket its crossing with the moment curve (Fredlund and Krahn 1977).
+    retry = np.flatnonzero(s.any_active & ~progress.converged & np.isfinite(start))
+    if retry.size:
+        _retrace(gle, retry, start, progress, lam, messages, tolerance, max_iterations)
+    fos = progress.fos
     # Per-slice forces at the final (F, lambda); E_n is left as computed so that it shows the
-    # remaining force imbalance. X = lambda f E' acts on the effective interslice force; the
-    # total E = E' + U is reported, and its line of thrust checked.
-    effective_e = gle.interslice_normal(fos, lam)
-    x_shear = lam[:, np.newaxis] * f_boundary * effective_e
-    e = effective_e + s.side_water
-    normal, effective, capacity, m_alpha = _base_forces(s, fos, x_shear[:, 1:] - x_shear[:, :-1])
+    # remaining force imbalance. X = lambda f E on the total interslice force, or on the
+    # effective one E' = E - U; the total E is reported either way, and its line of thrust
+    # checked.
+    recursion_e = gle.interslice_normal(fos, lam)
+    x_shear = lam[:, np.newaxis] * f_boundary * recursion_e
+    e = gle.total_interslice_normal(recursion_e)
+    normal, effective, capacity, _ = _base_forces(s, fos, x_shear[:, 1:] - x_shear[:, :-1])
     y_thrust, outside = _thrust_line(s, e, x_shear)
+    m_alpha = _inclined_m_alpha(s, fos, lam, f_boundary)
     return _finish(
         method, s, fos, progress.converged, progress.iterations, progress.residual,
         messages,
@@ -1478,21 +1738,26 @@ def _general_limit_equilibrium(
 def spencer(
     slices: Slices,
     *,
+    interslice_force: str = "total",
     tolerance: float = FOS_TOLERANCE,
     max_iterations: int = MAX_ITERATIONS,
 ) -> SafetyResult:
     r"""Spencer's method (Spencer 1967): force and moment equilibrium, parallel interslice forces.
 
-    The effective interslice forces all have the inclination theta, X = lambda E' with
-    lambda = tan(theta) (E' = E - U, see :func:`morgenstern_price`).
+    The interslice forces all have the inclination theta, X = lambda E with
+    lambda = tan(theta) and E the total interslice normal force, as Spencer (1967) defined
+    and tabulated the method (pore pressure as ru; Fredlund and Krahn 1977, Table 2, with ru
+    and with a piezometric line). ``interslice_force="effective"`` applies the inclination
+    to the effective force E' = E - U instead (see :func:`morgenstern_price`).
     F and lambda satisfy force equilibrium of every slice and moment equilibrium of the whole
-    mass; they are found as in :func:`morgenstern_price` with f(x) = 1 (the force recursion of
-    Zhu et al. 2005 solved by damped Newton iteration).
+    mass; they are found as in :func:`morgenstern_price` with f(x) = 1.
 
     Parameters
     ----------
     slices : Slices
         Slice table (units in :mod:`solver.slices`).
+    interslice_force : {"total", "effective"}
+        The interslice force the inclination applies to (see :func:`morgenstern_price`).
     tolerance : float
         Convergence tolerance on the changes of F and lambda between iterations [-].
     max_iterations : int
@@ -1508,16 +1773,21 @@ def spencer(
     ----------
     Spencer, E. (1967). A method of analysis of the stability of embankments assuming parallel
     inter-slice forces. Geotechnique 17(1), 11-26. doi:10.1680/geot.1967.17.1.11
+    Fredlund, D.G. and Krahn, J. (1977). Comparison of slope stability methods of analysis.
+    Canadian Geotechnical Journal 14(3), 429-439. doi:10.1139/t77-045
     Zhu, D.Y., Lee, C.F. et al. (2005). A concise algorithm for computing the factor of safety
     using the Morgenstern-Price method. Canadian Geotechnical Journal 42(1), 272-278.
     """
-    return _general_limit_equilibrium(slices, "constant", "spencer", tolerance, max_iterations)
+    return _general_limit_equilibrium(
+        slices, "constant", "spencer", interslice_force, tolerance, max_iterations
+    )
 
 
 def morgenstern_price(
     slices: Slices,
     *,
     interslice: str = "half_sine",
+    interslice_force: str = "total",
     tolerance: float = FOS_TOLERANCE,
     max_iterations: int = MAX_ITERATIONS,
 ) -> SafetyResult:
@@ -1542,12 +1812,19 @@ def morgenstern_price(
     step converged on far more steep, kinked surfaces in our trials. Converged when the Newton
     step changes F and lambda by less than ``tolerance``.
 
-    The interslice function applies to the effective interslice force, X = lambda f E' with
+    Interslice force. By default (``interslice_force="total"``) the function applies to the
+    total interslice normal force E, as the method is defined (Morgenstern and Price 1965;
+    Spencer 1967) and as Fredlund and Krahn (1977) tabulate it with pore pressure. With
+    ``interslice_force="effective"`` it applies to the effective force, X = lambda f E' with
     E' = E - U and U the water force on the boundary (hydrostatic from the neighbouring base
-    pore pressures, see ``_Arrays.side_water``): water carries no shear, and with total forces
-    the assumed inclination would depend on the depth of water standing on a submerged slope
-    (which must give the F of its buoyant unit weight; Duncan, Wright and Brandon 2014, ch. 6).
-    The recursion above is then written for E', with U_i - U_{i+1} among the loads of slice i.
+    pore pressures, see ``_Arrays.side_water``); the recursion above is then written for E',
+    with U_i - U_{i+1} among the loads of slice i. The reason for that form: water carries no
+    shear, and with total forces the assumed inclination acts on the water force too, so the
+    F of a submerged slope depends slightly on the depth of water standing over it, where it
+    should be the F of the buoyant slope (Duncan, Wright and Brandon 2014, ch. 6, on the side
+    force assumptions with external water). With pore pressure in the slope it gives higher F
+    than the published total-force method (about 2% on circles at ru = 0.5, found in review),
+    which is why it is not the default.
 
     Parameters
     ----------
@@ -1556,6 +1833,8 @@ def morgenstern_price(
     interslice : {"half_sine", "constant"}
         Interslice force function f(x) over the length of the surface; "constant" is Spencer's
         method.
+    interslice_force : {"total", "effective"}
+        The interslice normal force the function applies to: total E (default) or E - U.
     tolerance : float
         Convergence tolerance on the changes of F and lambda between iterations [-].
     max_iterations : int
@@ -1570,8 +1849,14 @@ def morgenstern_price(
     ----------
     Morgenstern, N.R. and Price, V.E. (1965). The analysis of the stability of general slip
     surfaces. Geotechnique 15(1), 79-93. doi:10.1680/geot.1965.15.1.79
+    Spencer, E. (1967). A method of analysis of the stability of embankments assuming parallel
+    inter-slice forces. Geotechnique 17(1), 11-26. doi:10.1680/geot.1967.17.1.11
+    Fredlund, D.G. and Krahn, J. (1977). Comparison of slope stability methods of analysis.
+    Canadian Geotechnical Journal 14(3), 429-439. doi:10.1139/t77-045
     Zhu, D.Y., Lee, C.F. et al. (2005). A concise algorithm for computing the factor of safety
     using the Morgenstern-Price method. Canadian Geotechnical Journal 42(1), 272-278.
+    Duncan, J.M., Wright, S.G. and Brandon, T.L. (2014). Soil Strength and Slope Stability,
+    2nd ed. Wiley, ch. 6.
     """
     if interslice not in INTERSLICE_FUNCTIONS:
         raise MethodError(
@@ -1579,7 +1864,7 @@ def morgenstern_price(
             + ", ".join(sorted(INTERSLICE_FUNCTIONS))
         )
     return _general_limit_equilibrium(
-        slices, interslice, "morgenstern_price", tolerance, max_iterations
+        slices, interslice, "morgenstern_price", interslice_force, tolerance, max_iterations
     )
 
 

@@ -22,10 +22,19 @@ CIRCLE = (30.0, 30.0, 21.0)  # centre x, centre y, radius [m]
 TIGHT = dict(tolerance=1e-10, max_iterations=500)
 
 
-def _options(method):
-    # The ordinary method passes the buoyancy check only in the form that keeps the water
-    # forces on the slice sides (Turnbull and Hvorslev 1967); its conventional form does not.
-    return {"side_water": True} if method == "ordinary" else TIGHT
+#: Methods and options that keep the exact buoyancy identity. The ordinary method passes it only
+#: in the form that keeps the water forces on the slice sides (Turnbull and Hvorslev 1967);
+#: Spencer and Morgenstern-Price only with the interslice function on effective forces (their
+#: option for this case): on total forces, as published (Spencer 1967; Morgenstern and Price
+#: 1965), the assumed inclination also acts on the water force on the slice sides, which grows
+#: with the depth of water above the slope (Duncan, Wright and Brandon 2014, ch. 6).
+BUOYANT_CASES = [
+    ("ordinary", {"side_water": True}),
+    ("bishop_simplified", TIGHT),
+    ("janbu_simplified", TIGHT),
+    ("spencer", {"interslice_force": "effective", **TIGHT}),
+    ("morgenstern_price", {"interslice_force": "effective", **TIGHT}),
+]
 
 
 def _section(water_level=None, *, pond=True, unit_weight=GAMMA_SAT, kh=0.0):
@@ -44,30 +53,53 @@ def _section(water_level=None, *, pond=True, unit_weight=GAMMA_SAT, kh=0.0):
     return section_from_dict(data)
 
 
-@pytest.mark.parametrize("method", METHOD_NAMES)
+def test_buoyant_cases_cover_every_method():
+    assert sorted(method for method, _ in BUOYANT_CASES) == sorted(METHOD_NAMES)
+
+
+@pytest.mark.parametrize("method, options", BUOYANT_CASES)
 @pytest.mark.parametrize("water_level", [24.0, 45.0])
-def test_submerged_slope_gives_the_factor_of_safety_of_the_buoyant_slope(method, water_level):
+def test_submerged_slope_gives_the_factor_of_safety_of_the_buoyant_slope(
+    method, options, water_level
+):
     # Duncan, Wright and Brandon (2014), ch. 6: submerged = dry with gamma' = gamma_sat -
     # gamma_w. The residual difference is the mid-point placement of slice loads, which
     # vanishes as the slices narrow (4e-4 with 60 slices, 2e-5 with 300).
     submerged = slice_circles(_section(water_level), *CIRCLE, 100).slices
     buoyant = slice_circles(_section(unit_weight=GAMMA_SAT - GAMMA_W), *CIRCLE, 100).slices
-    wet = factor_of_safety(submerged, method, **_options(method))
-    dry = factor_of_safety(buoyant, method, **_options(method))
+    wet = factor_of_safety(submerged, method, **options)
+    dry = factor_of_safety(buoyant, method, **options)
     assert wet.converged[0] and dry.converged[0], (wet.message, dry.message)
     assert wet.fos[0] == pytest.approx(dry.fos[0], rel=1e-3)
 
 
-@pytest.mark.parametrize("method", METHOD_NAMES)
-def test_depth_of_water_over_a_submerged_slope_does_not_change_its_factor_of_safety(method):
+@pytest.mark.parametrize("method, options", BUOYANT_CASES)
+def test_depth_of_water_over_a_submerged_slope_does_not_change_its_factor_of_safety(
+    method, options
+):
     # Duncan, Wright and Brandon (2014), ch. 6: only the buoyant weight matters, so 4 m or
     # 25 m of water above the crest give the same F (to the discretisation, far below 1e-4).
     shallow = factor_of_safety(slice_circles(_section(24.0), *CIRCLE, 60).slices, method,
-                               **_options(method))
-    deep = factor_of_safety(slice_circles(_section(45.0), *CIRCLE, 60).slices, method,
-                            **_options(method))
+                               **options)
+    deep = factor_of_safety(slice_circles(_section(45.0), *CIRCLE, 60).slices, method, **options)
     assert deep.converged[0], deep.message
     assert deep.fos[0] == pytest.approx(shallow.fos[0], rel=1e-4)
+
+
+@pytest.mark.parametrize("method", ["spencer", "morgenstern_price"])
+@pytest.mark.parametrize("water_level", [24.0, 45.0])
+def test_rigorous_methods_on_total_forces_stay_close_to_the_buoyant_slope(method, water_level):
+    # With the published total-force interslice function (the default) the buoyancy identity
+    # of Duncan, Wright and Brandon (2014, ch. 6) holds only approximately: the inclination
+    # also acts on the water forces on the slice sides. Here 25 m of water over a 10 m slope
+    # moved F by 0.15%; the check allows 0.5% and needs deep water solved (Newton fails there
+    # and the trace over lambda of Fredlund and Krahn 1977 finds the crossing).
+    submerged = slice_circles(_section(water_level), *CIRCLE, 100).slices
+    buoyant = slice_circles(_section(unit_weight=GAMMA_SAT - GAMMA_W), *CIRCLE, 100).slices
+    wet = factor_of_safety(submerged, method, **TIGHT)
+    dry = factor_of_safety(buoyant, method, **TIGHT)
+    assert wet.converged[0] and dry.converged[0], (wet.message, dry.message)
+    assert wet.fos[0] == pytest.approx(dry.fos[0], rel=5e-3)
 
 
 def test_horizontal_water_thrust_on_the_ground_is_hydrostatic():
