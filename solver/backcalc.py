@@ -942,8 +942,7 @@ class _BoundedSlipModel:
         fos = np.asarray(solved.fos, dtype=float)
         # As in the search (solver.search): a converged F resting on m_alpha at or below its
         # limit is doubtful and does not compete.
-        doubtful = np.array([("m_alpha" in m) and not a
-                             for m, a in zip(solved.message, solved.admissible)], dtype=bool)
+        doubtful = solved.low_m_alpha & ~solved.admissible
         usable = np.asarray(solved.converged, bool) & np.isfinite(fos) & (fos > 0) & ~doubtful
         fos = np.where(usable, fos, np.inf).reshape(c.size, k)
         critical = np.argmin(fos, axis=1)

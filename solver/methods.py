@@ -124,6 +124,10 @@ class SurfaceSafety:
     interslice_shear: np.ndarray
     thrust_line_y: np.ndarray
     interslice_water: np.ndarray
+    low_m_alpha: bool
+    negative_normal: bool
+    thrust_outside: bool
+    beyond_correction_chart: bool
 
 
 @dataclass(frozen=True)
@@ -145,10 +149,9 @@ class SafetyResult:
         True when the iteration met the tolerance within the iteration limit (always True
         for the non-iterative ordinary method when ``fos`` is finite).
     admissible : ndarray of bool (n_surfaces,)
-        False when the result is converged but physically doubtful (m_alpha at or below
-        :data:`solver.constants.M_ALPHA_MIN`, negative effective normal force on a frictional
-        base) or not converged; ``message`` says why. A line of thrust outside the sliding mass
-        is reported in ``message`` as a warning only.
+        False when the result is converged but physically doubtful (``low_m_alpha`` or
+        ``negative_normal``) or not converged; ``message`` says why in words. A line of thrust
+        outside the sliding mass (``thrust_outside``) is a warning only.
     iterations : ndarray of int (n_surfaces,)
         Iterations used.
     residual : ndarray (n_surfaces,)
@@ -168,24 +171,42 @@ class SafetyResult:
     shear_force : ndarray (n_surfaces, n_slices)
         Mobilised shear force S = S_r / F on the slice base [kN/m].
     m_alpha : ndarray (n_surfaces, n_slices)
-        m_alpha = cos(alpha) + sin(alpha) tan(phi') / F [-]; NaN for the ordinary method.
+        m_alpha = cos(alpha) + sin(alpha) tan(phi') / F [-] (Bishop 1955); for Spencer and
+        Morgenstern-Price with alpha measured from the interslice force inclination
+        atan(lambda f), the smaller value of the slice's two sides (see
+        ``_inclined_m_alpha``); NaN for the ordinary method.
     interslice_normal, interslice_shear : ndarray (n_surfaces, n_slices + 1)
         Total E and X at the slice boundaries [kN/m] (sign convention in the module
         docstring). For Bishop and Janbu X = 0 and E follows from horizontal equilibrium of
         each slice (for Bishop its last value shows the force imbalance that the method
-        accepts); for Spencer and Morgenstern-Price X = lambda f E' with E' = E - U the
-        effective interslice force (U the water force on the boundary); NaN for the ordinary
-        method, which ignores interslice forces.
+        accepts); for Spencer and Morgenstern-Price X = lambda f E (by default; X =
+        lambda f (E - U) with ``interslice_force="effective"``, U the water force on the
+        boundary); NaN for the ordinary method, which ignores interslice forces.
     thrust_line_y : ndarray (n_surfaces, n_slices + 1)
         Elevation of the line of thrust at the slice boundaries [m] (Spencer and
         Morgenstern-Price; NaN elsewhere and where E is nearly zero).
     interslice_water : ndarray (n_surfaces, n_slices + 1)
         U, the water force on each slice boundary [kN/m], hydrostatic from the neighbouring
         base pore pressures; 0 at the ends of the mass. E - U is the effective interslice
-        force, to which Spencer's and Morgenstern-Price's interslice function applies, and the
-        ordinary method (by default) keeps U while ignoring E - U.
+        force, to which Spencer's and Morgenstern-Price's interslice function applies with
+        ``interslice_force="effective"``; the ordinary method with ``side_water=True`` keeps U
+        while ignoring E - U.
     active : ndarray of bool (n_surfaces, n_slices)
         The ``active`` flags of the slice table (padding slices are False).
+    low_m_alpha : ndarray of bool (n_surfaces,)
+        m_alpha <= :data:`solver.constants.M_ALPHA_MIN` at an active slice (at the last
+        iterate): the normal force is unreliable (Whitman and Bailey 1967). Makes the result
+        inadmissible. False for the ordinary method.
+    negative_normal : ndarray of bool (n_surfaces,)
+        Negative effective normal force N' at an active slice base with friction (the shear
+        strength would fall with it). Makes the result inadmissible.
+    thrust_outside : ndarray of bool (n_surfaces,)
+        The line of thrust leaves the sliding mass at an interior boundary where |E| is at
+        least THRUST_LINE_MIN_FORCE_RATIO of its largest value (Spencer and Morgenstern-Price,
+        converged results only). A warning: the result stays admissible.
+    beyond_correction_chart : ndarray of bool (n_surfaces,)
+        Janbu's correction factor f0 was held at its value at the end of the chart (d/L
+        beyond JANBU_CHART_MAX_RATIO). A warning; False for the other methods.
     """
 
     fos: np.ndarray
@@ -205,6 +226,10 @@ class SafetyResult:
     thrust_line_y: np.ndarray
     interslice_water: np.ndarray
     active: np.ndarray
+    low_m_alpha: np.ndarray
+    negative_normal: np.ndarray
+    thrust_outside: np.ndarray
+    beyond_correction_chart: np.ndarray
 
     @property
     def n_surfaces(self) -> int:
@@ -237,6 +262,10 @@ class SafetyResult:
             interslice_shear=self.interslice_shear[index, keep_boundary],
             thrust_line_y=self.thrust_line_y[index, keep_boundary],
             interslice_water=self.interslice_water[index, keep_boundary],
+            low_m_alpha=bool(self.low_m_alpha[index]),
+            negative_normal=bool(self.negative_normal[index]),
+            thrust_outside=bool(self.thrust_outside[index]),
+            beyond_correction_chart=bool(self.beyond_correction_chart[index]),
         )
 
 
@@ -474,11 +503,6 @@ def _moment_centre(slices: Slices) -> tuple[np.ndarray, np.ndarray]:
     return np.asarray(xc, dtype=float)[:, np.newaxis], np.asarray(yc, dtype=float)[:, np.newaxis]
 
 
-def _m_alpha(s: _Arrays, fos: np.ndarray) -> np.ndarray:
-    """m_alpha = cos(a) + sin(a) tan(phi') / F (Bishop 1955)."""
-    return s.cos_a + s.sin_tan_phi / fos[:, np.newaxis]
-
-
 def _m_alpha_floor(s: _Arrays) -> np.ndarray:
     """F* = max(-tan(a) tan(phi')): m_alpha > 0 at every slice exactly when F > F*.
 
@@ -670,6 +694,7 @@ def _finish(
     lambda_: np.ndarray | None = None,
     thrust_line_y: np.ndarray | None = None,
     thrust_outside: np.ndarray | None = None,
+    beyond_correction_chart: np.ndarray | None = None,
 ) -> SafetyResult:
     """Common checks and flags, then the result object."""
     n = fos.shape[0]
@@ -690,6 +715,8 @@ def _finish(
         m_alpha = np.full_like(normal, np.nan)
     if thrust_outside is None:
         thrust_outside = np.zeros(n, dtype=bool)
+    if beyond_correction_chart is None:
+        beyond_correction_chart = np.zeros(n, dtype=bool)
 
     final_messages = list(messages)
     flagged = low_m_alpha | tension | thrust_outside | ~s.any_active
@@ -737,6 +764,10 @@ def _finish(
         else thrust_line_y,
         interslice_water=s.side_water,
         active=active,
+        low_m_alpha=low_m_alpha,
+        negative_normal=tension,
+        thrust_outside=thrust_outside,
+        beyond_correction_chart=beyond_correction_chart,
     )
 
 
@@ -992,12 +1023,8 @@ def bishop_screening(
     xc, yc = _moment_centre(slices)
     progress = _bishop_iteration(s, _moment_terms(s, xc, yc), tolerance, max_iterations)
     fos = progress.fos
-    # N' and m_alpha at the last iterate, as in _base_forces, for the flags of _finish.
-    f = fos[:, np.newaxis]
-    m_alpha = s.cos_a + s.sin_tan_phi / f
-    with np.errstate(divide="ignore", invalid="ignore"):
-        normal = (s.vertical_load - s.cohesion_term_sin / f) / m_alpha
-    effective = normal - s.pore_pressure * s.length
+    # N' and m_alpha at the last iterate, for the flags of _finish.
+    _, effective, _, m_alpha = _base_forces(s, fos)
     with np.errstate(invalid="ignore"):
         negative_normal = np.any(s.active & (effective < 0) & (s.tan_phi > 0), axis=1)
         low_m_alpha = np.any(s.active & (m_alpha <= M_ALPHA_MIN), axis=1)
@@ -1147,7 +1174,8 @@ def janbu_simplified(
         with np.errstate(divide="ignore", invalid="ignore"):
             fos = fos_0 * janbu_correction_factor(depth, length, b1)
             ratio = depth / length
-        for i in np.flatnonzero(ratio > JANBU_CHART_MAX_RATIO):
+        held = ratio > JANBU_CHART_MAX_RATIO
+        for i in np.flatnonzero(held):
             messages[i] = _join(
                 messages[i],
                 f"d/L = {ratio[i]:.3g} is beyond Janbu's correction chart (d/L <= "
@@ -1160,6 +1188,7 @@ def janbu_simplified(
         normal=normal, effective=effective, capacity=capacity, shear_fos=fos_0, m_alpha=m_alpha,
         interslice_normal=_horizontal_interslice(s, normal, shear),
         interslice_shear=np.zeros_like(s.x_boundary),
+        beyond_correction_chart=held if correction else None,
     )
 
 

@@ -1180,27 +1180,18 @@ def _solve_batch(batch, settings, centre_x, centre_y, radius, points, direction)
 def _screen(slices, settings):
     """FoS, last iterate, converged flag and "doubtful" flag (converged but m_alpha too low) of
     every surface of a batch by the search's method, and a function that counts the reasons
-    of the doubtful ones. Bishop's method screens without building the per-slice audit
-    tables (:func:`solver.methods.bishop_screening`); the other methods give a full result.
+    of the doubtful ones from the result's flags. Bishop's method screens without building
+    the per-slice audit tables (:func:`solver.methods.bishop_screening`); the other methods
+    give a full result.
     """
     if settings.method == "bishop_simplified":
         solved = methods.bishop_screening(slices, **_method_options(settings))
-
-        def doubt_reasons(doubtful):
-            # The reasons _doubt_reason makes of the full result's message.
-            tension = solved.negative_normal[doubtful]
-            base = "not admissible: " + _LOW_M_ALPHA_REASON
-            return +Counter({base: int((~tension).sum()),
-                             base + "; " + methods.NEGATIVE_NORMAL_NOTE: int(tension.sum())})
-
-        doubtful = ~solved.admissible & solved.low_m_alpha
-        return solved.fos, solved.last_iterate, solved.converged, doubtful, doubt_reasons
-    solved = factor_of_safety(slices, method=settings.method, **_method_options(settings))
-    low_m_alpha = np.array(["m_alpha" in message for message in solved.message], dtype=bool)
-    doubtful = ~np.asarray(solved.admissible, dtype=bool) & low_m_alpha
+    else:
+        solved = factor_of_safety(slices, method=settings.method, **_method_options(settings))
+    doubtful = ~np.asarray(solved.admissible, dtype=bool) & solved.low_m_alpha
 
     def doubt_reasons(doubtful):
-        return Counter(_doubt_reason(solved.message[i]) for i in np.flatnonzero(doubtful))
+        return _doubt_reasons(solved.negative_normal[doubtful])
 
     return (np.asarray(solved.fos, dtype=float), np.asarray(solved.last_iterate, dtype=float),
             np.asarray(solved.converged, dtype=bool), doubtful, doubt_reasons)
@@ -1224,15 +1215,15 @@ def every_method(slices, settings: SearchSettings | None = None) -> dict:
     }
 
 
-_LOW_M_ALPHA_REASON = "m_alpha <= M_ALPHA_MIN at a slice base"
+_LOW_M_ALPHA_REASON = "not admissible: m_alpha <= M_ALPHA_MIN at a slice base"
 
 
-def _doubt_reason(message: str) -> str:
-    """A count key for a converged but doubtful result: the method's message without the
-    surface-specific numbers."""
-    parts = [p for p in message.split("; ") if p]
-    reasons = [_LOW_M_ALPHA_REASON if "m_alpha" in p else p for p in parts]
-    return "not admissible: " + ("; ".join(reasons) or "flagged by the method")
+def _doubt_reasons(negative_normal: np.ndarray) -> Counter:
+    """Count keys of converged surfaces set aside for low m_alpha, from the flags of the
+    method's result: with or without a negative effective normal force as well."""
+    tension = int(np.count_nonzero(negative_normal))
+    return +Counter({_LOW_M_ALPHA_REASON: negative_normal.size - tension,
+                     _LOW_M_ALPHA_REASON + "; " + methods.NEGATIVE_NORMAL_NOTE: tension})
 
 
 def _concatenate(parts, n_trials) -> _Evaluated:

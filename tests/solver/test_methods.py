@@ -104,6 +104,7 @@ def test_janbu_simplified_says_when_f0_is_held():
     corrected = janbu_simplified(slices, **TIGHT)
     plain = janbu_simplified(slices, correction=False, **TIGHT)
     assert corrected.converged[0], corrected.message
+    assert corrected.beyond_correction_chart[0] and not plain.beyond_correction_chart[0]
     assert "beyond Janbu's correction chart" in corrected.message[0]
     assert corrected.fos[0] == pytest.approx(
         plain.fos[0] * (1.0 + 0.176 * JANBU_B1["cohesion_only"]), rel=1e-12)
@@ -228,6 +229,7 @@ def test_interslice_forces_balance_every_slice(method, interslice_force):
 def test_line_of_thrust_lies_inside_the_mass_on_plain_circles():
     result = spencer(_circles(), **TIGHT)
     assert result.admissible.all(), result.message
+    assert not result.thrust_outside.any()
     assert np.isfinite(result.thrust_line_y[:, 5:-5]).all()
 
 
@@ -424,6 +426,7 @@ def test_low_m_alpha_is_flagged():
         result = factor_of_safety(slices, method)
         assert result.converged[0], method
         assert not result.admissible[0], method
+        assert result.low_m_alpha[0] and result.surface(0).low_m_alpha, method
         assert "<= M_ALPHA_MIN=0.2" in result.message[0], method
 
 
@@ -447,6 +450,7 @@ def test_negative_effective_normal_force_is_flagged():
     slices = _circles(ru=0.9)
     result = ordinary(slices)
     assert not result.admissible.any()
+    assert result.negative_normal.all() and not result.low_m_alpha.any()
     assert all("negative effective normal force" in m for m in result.message)
 
 

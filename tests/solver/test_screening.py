@@ -14,8 +14,8 @@ import numpy as np
 import pytest
 
 from solver.errors import MethodError
-from solver.methods import bishop_screening, bishop_simplified
-from solver.search import SearchSettings, _doubt_reason, _screen, grid_circles
+from solver.methods import bishop_screening, bishop_simplified, factor_of_safety
+from solver.search import SearchSettings, _screen, grid_circles
 from solver.section import section_from_dict
 from solver.slicing import slice_circles
 
@@ -71,23 +71,30 @@ def test_screening_matches_bishop_simplified_surface_by_surface(name):
     np.testing.assert_array_equal(screened.converged, full.converged)
     np.testing.assert_array_equal(screened.admissible, full.admissible)
     np.testing.assert_array_equal(screened.iterations, full.iterations)
-    np.testing.assert_array_equal(screened.low_m_alpha,
-                                  ["m_alpha" in m for m in full.message])
-    np.testing.assert_array_equal(screened.negative_normal,
+    np.testing.assert_array_equal(screened.low_m_alpha, full.low_m_alpha)
+    np.testing.assert_array_equal(screened.negative_normal, full.negative_normal)
+    # The flags are the ones the messages put in words.
+    np.testing.assert_array_equal(full.low_m_alpha, ["m_alpha" in m for m in full.message])
+    np.testing.assert_array_equal(full.negative_normal,
                                   ["negative effective" in m for m in full.message])
     # The grid must exercise what is compared: converged and failed or flagged surfaces.
     assert full.converged.any() and not full.admissible.all()
 
 
-def test_search_counts_doubtful_surfaces_as_the_full_messages_do():
+@pytest.mark.parametrize("method", ["bishop_simplified", "spencer"])
+def test_search_counts_doubtful_surfaces_from_the_flags_of_the_full_result(method):
     section = section_from_dict(SECTIONS["kh"])
     slices = slice_circles(section, *_circles(), n_slices=30).slices
-    settings = SearchSettings(method="bishop_simplified", tolerance=1e-4)
+    settings = SearchSettings(method=method, tolerance=1e-4)
     _, _, converged, doubtful, reasons = _screen(slices, settings)
-    full = bishop_simplified(slices, tolerance=1e-4)
-    expected = Counter(_doubt_reason(m) for m, c, a in
-                       zip(full.message, full.converged, full.admissible)
-                       if c and not a and "m_alpha" in m)
+    full = factor_of_safety(slices, method, tolerance=1e-4)
+    set_aside = full.converged & ~full.admissible & full.low_m_alpha
+    np.testing.assert_array_equal(doubtful & converged, set_aside)
+    tension = int((set_aside & full.negative_normal).sum())
+    base = "not admissible: m_alpha <= M_ALPHA_MIN at a slice base"
+    expected = +Counter({base: int(set_aside.sum()) - tension,
+                         base + "; negative effective normal force at a frictional slice base":
+                         tension})
     assert sum(expected.values()) > 0
     assert reasons(doubtful & converged) == expected
 
