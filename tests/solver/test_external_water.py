@@ -53,6 +53,17 @@ def _section(water_level=None, *, pond=True, unit_weight=GAMMA_SAT, kh=0.0):
     return section_from_dict(data)
 
 
+def _submerged_and_buoyant(method, options, water_level):
+    """F of the slope submerged under ``water_level`` and of the dry slope with the buoyant
+    unit weight, both converged (100 slices)."""
+    submerged = slice_circles(_section(water_level), *CIRCLE, 100).slices
+    buoyant = slice_circles(_section(unit_weight=GAMMA_SAT - GAMMA_W), *CIRCLE, 100).slices
+    wet = factor_of_safety(submerged, method, **options)
+    dry = factor_of_safety(buoyant, method, **options)
+    assert wet.converged[0] and dry.converged[0], (wet.message, dry.message)
+    return wet.fos[0], dry.fos[0]
+
+
 def test_buoyant_cases_cover_every_method():
     assert sorted(method for method, _ in BUOYANT_CASES) == sorted(METHOD_NAMES)
 
@@ -65,12 +76,8 @@ def test_submerged_slope_gives_the_factor_of_safety_of_the_buoyant_slope(
     # Duncan, Wright and Brandon (2014), ch. 6: submerged = dry with gamma' = gamma_sat -
     # gamma_w. The residual difference is the mid-point placement of slice loads, which
     # vanishes as the slices narrow (4e-4 with 60 slices, 2e-5 with 300).
-    submerged = slice_circles(_section(water_level), *CIRCLE, 100).slices
-    buoyant = slice_circles(_section(unit_weight=GAMMA_SAT - GAMMA_W), *CIRCLE, 100).slices
-    wet = factor_of_safety(submerged, method, **options)
-    dry = factor_of_safety(buoyant, method, **options)
-    assert wet.converged[0] and dry.converged[0], (wet.message, dry.message)
-    assert wet.fos[0] == pytest.approx(dry.fos[0], rel=1e-3)
+    wet, dry = _submerged_and_buoyant(method, options, water_level)
+    assert wet == pytest.approx(dry, rel=1e-3)
 
 
 @pytest.mark.parametrize("method, options", BUOYANT_CASES)
@@ -94,12 +101,8 @@ def test_rigorous_methods_on_total_forces_stay_close_to_the_buoyant_slope(method
     # also acts on the water forces on the slice sides. Here 25 m of water over a 10 m slope
     # moved F by 0.15%; the check allows 0.5% and needs deep water solved (Newton fails there
     # and the trace over lambda of Fredlund and Krahn 1977 finds the crossing).
-    submerged = slice_circles(_section(water_level), *CIRCLE, 100).slices
-    buoyant = slice_circles(_section(unit_weight=GAMMA_SAT - GAMMA_W), *CIRCLE, 100).slices
-    wet = factor_of_safety(submerged, method, **TIGHT)
-    dry = factor_of_safety(buoyant, method, **TIGHT)
-    assert wet.converged[0] and dry.converged[0], (wet.message, dry.message)
-    assert wet.fos[0] == pytest.approx(dry.fos[0], rel=5e-3)
+    wet, dry = _submerged_and_buoyant(method, TIGHT, water_level)
+    assert wet == pytest.approx(dry, rel=5e-3)
 
 
 def test_horizontal_water_thrust_on_the_ground_is_hydrostatic():
