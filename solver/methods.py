@@ -65,6 +65,7 @@ from solver.errors import MethodError
 from solver.slices import Slices
 
 __all__ = [
+    "INTERSLICE_FORCES",
     "METHOD_NAMES",
     "SafetyResult",
     "ScreeningResult",
@@ -77,6 +78,7 @@ __all__ = [
     "morgenstern_price",
     "ordinary",
     "spencer",
+    "WARNING_FLAGS",
 ]
 
 #: Interslice force functions f(x) of Morgenstern and Price (1965) offered by
@@ -269,7 +271,10 @@ class SafetyResult:
         )
 
 
-#: The part of a result's message that flags negative N' at a frictional base.
+#: The boolean warning arrays of :class:`SafetyResult` (and fields of :class:`SurfaceSafety`).
+WARNING_FLAGS = ("low_m_alpha", "negative_normal", "thrust_outside", "beyond_correction_chart")
+
+#: The words of a result's message for negative N' at a frictional base.
 NEGATIVE_NORMAL_NOTE = "negative effective normal force at a frictional slice base"
 
 

@@ -108,6 +108,9 @@ class AlertOutcome:
     notifications: int = 0
     inspections: int = 0
     warnings: list[str] = field(default_factory=list)
+    #: The chattering alerts' warnings (also in ``warnings``), kept apart so that the cycle
+    #: report lists them without searching the text of the warnings.
+    chattering: list[str] = field(default_factory=list)
 
 
 # --- records in the store -----------------------------------------------------------------------
@@ -202,10 +205,10 @@ def process_section_alerts(
         window = timedelta(hours=settings.cycle.chatter_window_hours)
         if is_chattering(record, window, settings.cycle.chatter_max_changes, now=at):
             count = sum(at - t <= window for t in record.changes)
-            outcome.warnings.append(
-                f"chattering: {section_id}/{name} changed state {count} times in "
-                f"{settings.cycle.chatter_window_hours:g} h; widen its deadband or add delays"
-            )
+            warning = (f"chattering: {section_id}/{name} changed state {count} times in "
+                       f"{settings.cycle.chatter_window_hours:g} h; widen its deadband or add delays")
+            outcome.warnings.append(warning)
+            outcome.chattering.append(warning)
 
     views = {
         name: AlertView(name, rule.kind, rule.rule.rank, record.state, record.episode,

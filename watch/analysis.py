@@ -20,6 +20,7 @@ from solver.search import (
     every_method,
     search_critical_surface,
 )
+from solver.methods import WARNING_FLAGS
 from solver.slicing import slice_surface
 from solver.surfaces import CircularSurface, PolylineSurface
 from watch.caution import CAUTION
@@ -43,6 +44,9 @@ class MethodResult:
     admissible: bool
     iterations: int
     message: str
+    #: Names of the method's warning flags raised on this surface (``low_m_alpha``,
+    #: ``negative_normal``, ``thrust_outside``, ``beyond_correction_chart``).
+    warnings: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -112,6 +116,7 @@ class AnalysisResult:
                     "admissible": m.admissible,
                     "iterations": m.iterations,
                     "message": m.message,
+                    "warnings": list(m.warnings),
                 }
                 for m in self.by_method
             ],
@@ -183,6 +188,7 @@ def analyse(section, method: str | None = None, *, non_circular: bool = False, s
             admissible=bool(solved.admissible[0]),
             iterations=int(solved.iterations[0]),
             message=solved.message[0],
+            warnings=tuple(flag for flag in WARNING_FLAGS if getattr(solved, flag)[0]),
         )
         for name, solved in every_method(slices, settings).items()
     ]

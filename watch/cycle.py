@@ -107,6 +107,7 @@ class SectionOutcome:
     warnings: list[str] = field(default_factory=list)
     message: str = ""
     seconds: float = 0.0
+    chattering: list[str] = field(default_factory=list)  # those of ``warnings`` on chattering
 
 
 @dataclass
@@ -213,7 +214,7 @@ def run_cycle(
                 executor.close()
         report.executor = executor.describe()
         report.retries = executor.retries
-        report.chattering = [c for s in report.sections for c in s.warnings if c.startswith("chattering")]
+        report.chattering = [c for s in report.sections for c in s.chattering]
         report.seconds = time.perf_counter() - started_wall
         with store.atomic():
             store.finish_cycle(cycle_id, utc_text(clock.now()), json.dumps(report.to_dict(), default=str))
@@ -418,6 +419,7 @@ def _record_section(store: Store, config, settings: AlertSettings, section_id: s
     outcome.notifications = result.notifications
     outcome.inspections = result.inspections
     outcome.warnings += result.warnings
+    outcome.chattering = result.chattering
     outcome.seconds = time.perf_counter() - started
     return outcome
 
