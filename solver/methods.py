@@ -1582,7 +1582,7 @@ def _moment_balance(gle: _Gle, fos: np.ndarray, lam: np.ndarray) -> np.ndarray:
 
 def _gle_trace(gle: _Gle, start: np.ndarray, floor: np.ndarray, tolerance: float,
                max_iterations: int):
-    """(F, lambda, bracketed, bisections) of the crossing of the force and moment equilibrium
+    """(F, lambda, bracketed, steps) of the crossing of the force and moment equilibrium
     curves, found by tracing (Fredlund and Krahn 1977).
 
     F_f(lambda), the force-equilibrium F, is followed from lambda = 0 (the root of
@@ -1845,6 +1845,16 @@ def morgenstern_price(
     sign (a pole of the recursion). Zhu et al. alternate the two updates instead; the joint
     step converged on far more steep, kinked surfaces in our trials. Converged when the Newton
     step changes F and lambda by less than ``tolerance``.
+
+    Where the Newton iteration fails (its steps may not cross a pole of the recursion, where
+    some Phi_i = 0 next to a steep end of the surface; or the sums above change sign under
+    deep water), the force-equilibrium factor of safety F_f(lambda) is traced over lambda from
+    0 on the branch where every Phi_i > 0, and the crossing with moment equilibrium bracketed
+    and halved, as in the F-lambda plots of Fredlund and Krahn (1977); converged when both
+    residuals are below ``tolerance`` there. Near such a pole F rests on one end slice and can
+    lie far above the other methods: the m_alpha of these methods is measured from the
+    interslice force inclination (``_inclined_m_alpha``), so that the ``low_m_alpha`` flag
+    catches it.
 
     Interslice force. By default (``interslice_force="total"``) the function applies to the
     total interslice normal force E, as the method is defined (Morgenstern and Price 1965;
