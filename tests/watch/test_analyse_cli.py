@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from solver.methods import METHOD_NAMES
+from solver.methods import METHOD_NAMES, WARNING_FLAGS
 from watch.analysis import analyse_section
 from watch.cli import main
 
@@ -104,6 +104,11 @@ def test_analyse_json_parses_and_matches_the_library(section_file):
     # The critical surface re-solved on its own gives the search's value.
     assert governing["fos"] == pytest.approx(data["fos"], rel=1e-9)
     assert sum(data["search"]["rejected"].values()) > 0
+    # Warnings travel as the names of the result's flags, the same as the library's.
+    for method in data["fos_by_method"]:
+        expected = next(m for m in library.by_method if m.method == method["method"]).warnings
+        assert method["warnings"] == list(expected)
+        assert set(method["warnings"]) <= set(WARNING_FLAGS)
 
 
 def test_analyse_method_option_overrides_the_section(section_file):
