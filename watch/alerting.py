@@ -206,7 +206,8 @@ def process_section_alerts(
         if is_chattering(record, window, settings.cycle.chatter_max_changes, now=at):
             count = sum(at - t <= window for t in record.changes)
             warning = (f"chattering: {section_id}/{name} changed state {count} times in "
-                       f"{settings.cycle.chatter_window_hours:g} h; widen its deadband or add delays")
+                       f"{settings.cycle.chatter_window_hours:g} h; "
+                       "widen its deadband or add delays")
             outcome.warnings.append(warning)
             outcome.chattering.append(warning)
 
