@@ -67,8 +67,8 @@ def _fk_slices(section, n_slices=200):
 
 
 # Fredlund and Krahn (1977), their table of factors of safety for the example (Bishop,
-# Spencer with lambda, Morgenstern-Price with f(x) = constant and lambda), as reproduced on
-# the MacSlope verification page "Fredlund and Krahn Example Problem".
+# Spencer with lambda, Morgenstern-Price with f(x) = constant and lambda); the values were
+# transcribed from a secondary reproduction of that table, not from the paper itself.
 FK_CASES = {
     "case 1, dry": (dict(), 2.080, (2.073, 0.237), (2.076, 0.254)),
     "case 3, ru = 0.25": (dict(ru=0.25), 1.766, (1.761, 0.255), (1.765, 0.244)),
