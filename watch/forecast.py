@@ -19,8 +19,10 @@ that takes a slope to a trigger level: the service side of :mod:`watch.rainfall`
   each trigger level, by root finding on the forecast.
 
 State of a model at a time: the reservoir content is taken from the instrument's last good
-reading at or before that time (s = (h - h0) / G, so a forecast starts from the measured head,
-not from the model's own simulation), and the rain since that reading is run through the model.
+reading at or before that time (s = (h - h0) / G, floored at zero with the base lowered to a
+head below h0: :meth:`watch.response.ResponseModel.state_at_head`; so a forecast starts from the
+measured head, not from the model's own simulation, and never rises without rain), and the rain
+since that reading is run through the model.
 Rain and heads are resolved to the model's time step.
 """
 
@@ -28,7 +30,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import datetime
 
 import numpy as np
@@ -593,7 +595,7 @@ def model_start(store: Store, instrument_id: str, at, max_hours: float = MAX_EST
                 ) -> ModelStart:
     """The newest usable stored model of ``instrument_id`` (calibrated at or before ``at``)
     and its state at ``at``: the reservoir content from the last good reading at or before
-    ``at`` (s = (h - h0) / G) with the rain of the ``lag`` steps before it on its way, then the
+    ``at`` (s = (h - h0) / G, floored at zero: :meth:`ResponseModel.state_at_head`) with the rain of the ``lag`` steps before it on its way, then the
     rain since that reading run through the model, step by step up to ``at``.
 
     Raises
@@ -639,12 +641,12 @@ def model_start(store: Store, instrument_id: str, at, max_hours: float = MAX_EST
                 f"{instrument_id}: {missing} of the {n} steps since its last good reading "
                 f"({_text(t0)}) have no good report from gauge {row['gauge_id']}"
             )
-    storage = ((float(last["head_m"]) - model.base_head_m) / model.gain_m_per_mm
-               if model.gain_m_per_mm > 0 else 0.0)  # fmt: skip
-    state = ResponseState(storage, tuple(rain[:lag].tolist()))
+    # Floored: a head below the model's base level empties the reservoir and lowers the base
+    # to it (ResponseModel.state_at_head), so dry weather never makes the head rise.
+    state = model.state_at_head(float(last["head_m"]), rain[:lag].tolist())
     if n:
         state = model.simulate(rain[lag:], state).state
-    state = ResponseState(state.storage_mm, state.pending_rain_mm, at)
+    state = replace(state, time_utc=at)
     basis = {
         "model_id": int(row["id"]),
         "model_nse": row["nse"],

@@ -78,11 +78,28 @@ class ResponseState:
         reservoir.
     time_utc : pandas.Timestamp or None
         End of the step this state belongs to, when known.
+    base_shift_m : float
+        How far [m] the base level of this state stands from the model's h0 (below it when
+        negative): the head is h0 + base_shift_m + G * s. Set by
+        :meth:`ResponseModel.state_at_head` when a measured head lies at or below h0 (see
+        there); zero otherwise.
     """
 
     storage_mm: float = 0.0
     pending_rain_mm: tuple[float, ...] = ()
     time_utc: pd.Timestamp | None = None
+    base_shift_m: float = 0.0
+
+    def __post_init__(self) -> None:
+        # A linear reservoir holds no negative content: below its base level the model has no
+        # state, and a negative storage would recede upwards, a rise with no rain.
+        if not (np.isfinite(self.storage_mm) and self.storage_mm >= 0.0):
+            raise ConfigError(
+                f"reservoir storage must be zero or more mm, got {self.storage_mm}; start "
+                "from a head with ResponseModel.state_at_head, which floors it"
+            )
+        if not np.isfinite(self.base_shift_m):
+            raise ConfigError(f"base shift must be a finite number of m, got {self.base_shift_m}")
 
 
 @dataclass(frozen=True)
@@ -200,17 +217,48 @@ class ResponseModel:
         return f"calibration NSE {self.nse:.3f} is {verdict} the minimum {self.min_nse:g}"
 
     def head(self, state: ResponseState) -> float:
-        """Head [m] of a state."""
-        return self.base_head_m + self.gain_m_per_mm * state.storage_mm
+        """Head [m] of a state: h0 + shift + G s."""
+        return self.base_head_m + state.base_shift_m + self.gain_m_per_mm * state.storage_mm
 
     def initial_state(self, storage_mm: float = 0.0, time_utc=None) -> ResponseState:
         """A state with the given storage [mm] and no rain on its way."""
         return ResponseState(float(storage_mm), (0.0,) * self.lag_steps, time_utc)
 
+    def state_at_head(self, head_m: float, pending_rain_mm=None, time_utc=None) -> ResponseState:
+        """The state whose head is a measured ``head_m`` [m], with the start storage floored.
+
+        Above the base level, s = (h - h0) / G. At or below it the reservoir is empty (s = 0,
+        its floor: a linear reservoir holds no negative content) and the base level of this
+        state is lowered to the measured head (``base_shift_m = h - h0``). Without that floor
+        s < 0 would recede towards h0, so the model would predict a rise with no rain; with
+        it, dry weather holds the head and new rain adds its response on top. A head below h0
+        says the base level has fallen since the calibration (a seasonal drift the model does
+        not know); holding it is our choice, the model says nothing about how far it falls.
+        A model with no gain (G = 0) takes the measured head as its base likewise.
+
+        Parameters
+        ----------
+        head_m : float
+            Measured head [m].
+        pending_rain_mm : sequence of float, optional
+            Rain of the last L steps [mm], oldest first (default none on its way).
+        time_utc : pandas.Timestamp, optional
+        """
+        if not np.isfinite(head_m):
+            raise ModelError(f"cannot start the response model from a head of {head_m} m")
+        pending = (0.0,) * self.lag_steps if pending_rain_mm is None else tuple(
+            float(v) for v in pending_rain_mm)
+        excess = float(head_m) - self.base_head_m
+        if excess > 0.0 and self.gain_m_per_mm > 0.0:
+            return ResponseState(excess / self.gain_m_per_mm, pending, time_utc)
+        return ResponseState(0.0, pending, time_utc, base_shift_m=excess)
+
     def simulate(self, rain, initial_state: ResponseState | None = None) -> Simulation:
         """Heads over a rain series, from ``initial_state`` (default: empty reservoir).
 
-        s_n = exp(-dt/tau) s_(n-1) + r_(n-L);  h_n = h0 + G s_n
+        s_n = exp(-dt/tau) s_(n-1) + r_(n-L);  h_n = h0 + shift + G s_n
+
+        (shift: the state's ``base_shift_m``, zero unless it started from a head below h0).
 
         Parameters
         ----------
@@ -241,8 +289,9 @@ class ResponseModel:
             float(storage[-1]) if n else state.storage_mm,
             tuple(float(v) for v in inflow[n:]),
             time,
+            state.base_shift_m,
         )
-        head = self.base_head_m + self.gain_m_per_mm * storage
+        head = self.base_head_m + state.base_shift_m + self.gain_m_per_mm * storage
         if isinstance(rain, pd.Series):
             head = pd.Series(head, index=rain.index, name="head_m")
         return Simulation(head, storage, final)
@@ -500,7 +549,8 @@ def fit(
     usable = converged and model.usable
     reason = model.reason if converged else f"least squares did not converge: {result.message}"
     # Storage at the end = filtered lagged rain plus what is left of the initial storage.
-    storage_end = (simulated[-1] - base) / gain if gain > 0 else 0.0
+    # (Both parts are >= 0; the floor only takes off rounding below zero.)
+    storage_end = max((simulated[-1] - base) / gain, 0.0) if gain > 0 else 0.0
     timed = [
         series.index[-1]
         for series in (head_m, rain_mm)

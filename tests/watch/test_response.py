@@ -186,6 +186,48 @@ def test_forecast_baseline_recedes_exponentially_and_peak_has_a_time():
     assert forecast.peak_time_h == 0.0 and forecast.peak_time_utc == now
 
 
+def test_a_head_below_the_base_level_does_not_rise_without_rain():
+    # The reproduction of issue 16: h0 above the last head; 72 dry hours used to give
+    # 9.00 -> 9.78 m. The start storage is floored at zero (a linear reservoir holds no
+    # negative content) and the base lowered to the head, so dry weather holds it.
+    model = ResponseModel(base_head_m=10.0, gain_m_per_mm=0.02, recession_h=36.0, lag_steps=2)
+    state = model.state_at_head(9.0)
+    assert state.storage_mm == 0.0 and model.head(state) == pytest.approx(9.0, abs=1e-12)
+    dry = model.forecast(state, 0.0, 24.0, 72.0)
+    np.testing.assert_allclose(dry.baseline_head_m, 9.0, atol=1e-12)
+    # Rain adds the response of an empty reservoir on top of the measured head: the
+    # geometric series G p (1 - a^T) / (1 - a) of a uniform storm (module docstring).
+    wet = model.forecast(state, 48.0, 24.0, 72.0)
+    a = np.exp(-1.0 / 36.0)
+    assert wet.peak_head_m == pytest.approx(9.0 + 0.02 * 2.0 * (1 - a**24) / (1 - a), rel=1e-12)
+    # Above the base level the state is s = (h - h0) / G, as before.
+    assert model.state_at_head(11.0).storage_mm == pytest.approx(50.0, rel=1e-12)
+
+
+@settings(max_examples=100, deadline=None)
+@given(
+    head=st.floats(-50.0, 100.0),
+    base=st.floats(-50.0, 100.0),
+    gain=st.floats(0.0, 0.1),
+    recession_h=st.floats(0.5, 500.0),
+    lag=st.integers(0, 6),
+)
+def test_no_rise_without_rain_from_any_start_head(head, base, gain, recession_h, lag):
+    # Invariant of a linear reservoir with non-negative content: with no rain on its way and
+    # none falling, the head only recedes (towards the base) or holds.
+    model = ResponseModel(base, gain, recession_h, lag)
+    state = model.state_at_head(head)
+    assert model.head(state) == pytest.approx(head, rel=1e-12, abs=1e-9)
+    dry = model.forecast(state, 0.0, 6.0, 72.0).baseline_head_m
+    assert np.all(np.diff(dry) <= 1e-12)
+    assert dry.max() <= head + 1e-9
+
+
+def test_a_negative_storage_is_refused():
+    with pytest.raises(ConfigError, match="storage must be zero or more mm, got -1"):
+        ResponseState(storage_mm=-1.0)
+
+
 def test_storm_not_a_whole_number_of_steps():
     model = ResponseModel(50.0, 0.01, 10.0, 0, step_h=1.0)
     forecast = model.forecast(model.initial_state(), 10.0, 2.5, 5.0)
