@@ -52,6 +52,7 @@ from watch.clock import Clock, ManualClock
 from watch.config import SiteConfig
 from watch.errors import UserError
 from watch.executors import InProcessExecutor, SectionExecutor, SectionFailure, executor_for
+from watch.groundwater import rate_of_rise
 from watch.ingest import ingest
 from watch.parameters import current_section
 from watch.rainfall import worst_exceedance
@@ -651,7 +652,10 @@ def _head_value(store: Store, rule: SectionRule, at: datetime, stale_hours: floa
     hours = (parse_utc_text(last["time_utc"]) - parse_utc_text(first["time_utc"])).total_seconds() / 3600
     if hours < 0.5 * window.total_seconds() / 3600:
         return None  # too short a record in the window for a rate
-    return (last["head_m"] - first["head_m"]) / hours
+    # The least-squares slope over every good reading of the window, not a difference of its
+    # two ends (one noisy end reading would set that alone).
+    rate = rate_of_rise([r["time_utc"] for r in rows], [float(r["head_m"]) for r in rows])
+    return rate if math.isfinite(rate) else None
 
 
 def _rain_series(store: Store, gauge: str, at: datetime, hours: float) -> pd.Series | None:

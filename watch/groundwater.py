@@ -603,3 +603,52 @@ def _clip_to_ground(line: np.ndarray, ground: np.ndarray, allow_ponding: bool) -
         np.interp(xs, line[:, 0], line[:, 1]), np.interp(xs, ground[:, 0], ground[:, 1])
     )
     return np.column_stack([xs, ys])
+
+
+# --------------------------------------------------------------------------------------------
+# Rate of rise
+# --------------------------------------------------------------------------------------------
+
+
+#: Fewest readings a rate of rise is fitted to: a line through two points has no redundancy,
+#: so one spike would set the rate alone (our choice, not a published rule).
+MIN_RATE_READINGS = 3
+
+
+def rate_of_rise(times, heads) -> float:
+    """Rate of rise of a head [m/h]: the least-squares slope of head on time.
+
+        rate = sum (t_i - t_mean)(h_i - h_mean) / sum (t_i - t_mean)^2
+
+    the ordinary least-squares estimate of the slope of a straight line (for example
+    Montgomery, Peck and Vining 2012, Introduction to Linear Regression Analysis, 5th ed.,
+    eq. 2.11; the equation number from memory). Every reading in the window counts alike, so one noisy reading at either end
+    does not set the rate as it would in a difference of the first and last readings.
+
+    Parameters
+    ----------
+    times : array_like of datetime-like
+        Reading times (naive = UTC), any order.
+    heads : array_like of float
+        Heads [m], same length; readings whose head is not finite are left out.
+
+    Returns
+    -------
+    float
+        Slope [m/h] (negative when the head falls); NaN with fewer than
+        :data:`MIN_RATE_READINGS` finite readings or when they all share one time.
+    """
+    stamps = pd.DatetimeIndex(pd.to_datetime(times, utc=True))
+    values = np.asarray(heads, dtype=float).reshape(-1)
+    if values.size != len(stamps):
+        raise ConfigError(f"{len(stamps)} times but {values.size} heads for a rate of rise")
+    keep = np.isfinite(values)
+    if keep.sum() < MIN_RATE_READINGS:
+        return float("nan")
+    hours = (stamps[keep] - stamps[keep][0]) / pd.Timedelta(hours=1)
+    hours = np.asarray(hours, dtype=float)
+    spread = hours - hours.mean()
+    denominator = float(np.sum(spread**2))
+    if denominator == 0.0:
+        return float("nan")
+    return float(np.sum(spread * (values[keep] - values[keep].mean())) / denominator)

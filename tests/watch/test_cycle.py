@@ -235,3 +235,27 @@ def test_a_cycle_reads_the_site_file_once_however_many_sections_are_new(tmp_path
     with workspace.open_store(read_only=True) as store:
         assert store.conn.execute("SELECT COUNT(*) FROM section_versions").fetchone()[0] == 4
     assert len(reads) == 1
+
+
+def test_rise_rule_watches_the_least_squares_slope_of_the_window(tmp_path):
+    # The rate of rise a rise_m_per_h rule sees is the least-squares slope of the good heads
+    # in its window (reference: numpy.polyfit, degree 1), not the difference of its ends.
+    import numpy as np
+    import pandas as pd
+
+    from watch.alerts import Direction, TriggerRule
+    from watch.cycle import _head_value
+    from watch.triggers import SectionRule
+    from tests.watch.groundwater_site import hour, make_site
+
+    site = make_site(tmp_path)
+    at = hour(300)
+    rule = SectionRule(TriggerRule("rise", "rise_m_per_h", "amber", 1, 0.05, 0.02,
+                                   Direction.ABOVE), "level", "P1", window_hours=12.0)
+    window = (site.times >= at - pd.Timedelta(hours=12)) & (site.times <= at)  # [at - w, at]
+    hours = (site.times[window] - at) / pd.Timedelta(hours=1)
+    expected = np.polyfit(np.asarray(hours, float), site.head_m[window], 1)[0]
+    with site.workspace.open_store(read_only=True) as store:
+        observed = _head_value(store, rule, at.to_pydatetime(), stale_hours=6.0)
+    # Heads are stored to 1e-6 m (the feed's six decimals).
+    np.testing.assert_allclose(observed, expected, rtol=1e-4, atol=1e-6)

@@ -12,6 +12,7 @@ import pandas as pd
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from scipy.stats import linregress
 
 from watch.errors import ConfigError, ModelError
 from watch.groundwater import (
@@ -28,6 +29,7 @@ from watch.groundwater import (
     SideRule,
     build_water_line,
     latest_heads,
+    rate_of_rise,
 )
 
 GROUND = np.array([[0, 62.0], [18, 62.0], [42, 50.0], [60, 50.0]])
@@ -393,3 +395,47 @@ def test_fos_with_the_line_built_from_readings_equals_fos_with_that_line_given_d
     np.testing.assert_allclose(from_readings, fos(expected), rtol=1e-9)
     # The water line matters: the design line gives other factors of safety.
     assert not np.allclose(from_readings, fos(DESIGN), rtol=1e-3)
+
+
+# --------------------------------------------------------------------------------------------
+# Rate of rise
+# --------------------------------------------------------------------------------------------
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    minutes=st.lists(st.integers(1, 180), min_size=3, max_size=40),
+    seed=st.integers(0, 10_000),
+)
+def test_rate_of_rise_is_the_least_squares_slope(minutes, seed):
+    # Reference: numpy.polyfit (degree 1) and scipy.stats.linregress, both ordinary least
+    # squares, on the same readings in hours.
+    rng = np.random.default_rng(seed)
+    hours = np.cumsum(minutes) / 60.0
+    heads = 10.0 + 0.05 * hours + rng.normal(0.0, 0.02, hours.size)
+    times = pd.Timestamp("2026-11-01T00:00Z") + pd.to_timedelta(hours, unit="h")
+    rate = rate_of_rise(times, heads)
+    np.testing.assert_allclose(rate, np.polyfit(hours, heads, 1)[0], rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(rate, linregress(hours, heads).slope, rtol=1e-9, atol=1e-12)
+
+
+def test_rate_of_rise_is_not_set_by_one_end_reading():
+    # A steady rise of 0.1 m/h read hourly, with the last reading 0.5 m high (a spike): the
+    # two-point difference would give (1.1 + 0.5 - 0) / 11 h = 0.145 m/h; the least-squares
+    # slope stays near the trend (numpy.polyfit reference).
+    hours = np.arange(12.0)
+    heads = 0.1 * hours
+    heads[-1] += 0.5
+    times = pd.Timestamp("2026-11-01T00:00Z") + pd.to_timedelta(hours, unit="h")
+    rate = rate_of_rise(pd.Series(times), pd.Series(heads))
+    np.testing.assert_allclose(rate, np.polyfit(hours, heads, 1)[0], rtol=1e-12)
+    assert rate < 0.145
+
+
+def test_rate_of_rise_needs_three_readings_at_two_times():
+    t = pd.to_datetime(["2026-11-01T00:00Z", "2026-11-01T01:00Z", "2026-11-01T01:00Z"])
+    assert np.isnan(rate_of_rise(t[:2], [1.0, 2.0]))
+    assert np.isnan(rate_of_rise([t[1]] * 3, [1.0, 2.0, 3.0]))
+    assert np.isnan(rate_of_rise(t, [1.0, np.nan, 2.0]))
+    with pytest.raises(ConfigError, match="3 times but 2 heads"):
+        rate_of_rise(t, [1.0, 2.0])
