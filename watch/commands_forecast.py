@@ -151,8 +151,8 @@ def calibrate_response(days, instruments, at, workspace: Path, as_json: bool) ->
 @json_option
 def rain(gauge: str, at, workspace: Path, as_json: bool) -> None:
     """Rain at GAUGE up to now (or --at): totals over 1 h, 24 h, 3, 7 and 30 days, intensity,
-    and the worst ratio to the Caine (1980) and Guzzetti et al. (2008) intensity-duration
-    curves.
+    and the rain event under way (ended by 48 h without rain) against the Caine (1980) and
+    Guzzetti et al. (2008) intensity-duration curves.
 
     \b
     Example:

@@ -55,9 +55,9 @@ from watch.executors import InProcessExecutor, SectionExecutor, SectionFailure, 
 from watch.groundwater import rate_of_rise
 from watch.ingest import ingest
 from watch.parameters import current_section
-from watch.rainfall import worst_exceedance
+from watch.rainfall import event_exceedance, rain_record_reach, window_totals
 from watch.store import Store, parse_utc_text, utc_text
-from watch.triggers import AlertSettings, SectionRule, alert_settings, section_gauge
+from watch.triggers import RAIN_CURVES, AlertSettings, SectionRule, alert_settings, section_gauge
 from watch.waterlines import store_water_lines, water_lines_from_store
 from watch.workspace import Workspace
 
@@ -87,8 +87,6 @@ WRITE_BATCH = 32
 #: How far back a "suspect readings since the last cycle" check looks at most.
 _SUSPECT_LOOKBACK = timedelta(days=7)
 
-#: Longest rain record an intensity-duration check reads [h] (the longest default duration).
-_RAIN_RECORD_H = 240.0
 
 
 @dataclass
@@ -267,7 +265,7 @@ def _assess_sections(workspace, store: Store, config, settings: AlertSettings, c
                 bar.update(1)
             bar.set_postfix(failed=failed)
 
-    gauges = _GaugeRecords(store, at)
+    gauges = _GaugeRecords(store, at, _rain_reach(settings))
     executor.start(compute)
     with executor:
         for section_id in chosen:
@@ -658,13 +656,21 @@ def _head_value(store: Store, rule: SectionRule, at: datetime, stale_hours: floa
     return rate if math.isfinite(rate) else None
 
 
-def _rain_series(store: Store, gauge: str, at: datetime, hours: float) -> pd.Series | None:
-    rows = [r for r in store.readings(gauge, utc_text(at - timedelta(hours=hours)), utc_text(at))
+def _rain_series(store: Store, gauge: str, at: datetime, reach: pd.Timedelta) -> pd.Series | None:
+    rows = [r for r in store.readings(gauge, utc_text(at - reach.to_pytimedelta()), utc_text(at))
             if r["quality"] == "ok" and r["rain_mm"] is not None]  # fmt: skip
     if not rows:
         return None
     index = pd.to_datetime([r["time_utc"] for r in rows], utc=True)
     return pd.Series([float(r["rain_mm"]) for r in rows], index=index, name="rain_mm")
+
+
+def _rain_reach(settings: AlertSettings) -> pd.Timedelta:
+    """How far back the cycle reads each gauge: every rain window of the site's rules and the
+    longest event their curves can be compared with (watch.rainfall.rain_record_reach)."""
+    windows = [t.window_hours for t in settings.triggers if t.window_hours]
+    curves = tuple(RAIN_CURVES[c] for c in sorted({t.curve for t in settings.triggers if t.curve}))
+    return rain_record_reach(curves, window_hours=windows)
 
 
 def _fresh(context: SectionContext, gauge: str, gauges: "_GaugeRecords") -> pd.Series | None:
@@ -682,34 +688,35 @@ class _GaugeRecords:
     the ratio was the largest part of the coordinator's time per section. Within a cycle the
     readings do not change (the ingest runs before it, and this process is the only writer)."""
 
-    def __init__(self, store: Store, at: datetime) -> None:
-        self._store, self._at = store, at
+    def __init__(self, store: Store, at: datetime, reach: pd.Timedelta) -> None:
+        self._store, self._at, self._reach = store, at, reach
         self._series: dict[str, pd.Series | None] = {}
         self._ratios: dict[tuple, float | None] = {}
 
     def series(self, gauge: str) -> pd.Series | None:
         if gauge not in self._series:
-            self._series[gauge] = _rain_series(self._store, gauge, self._at, _RAIN_RECORD_H)
+            self._series[gauge] = _rain_series(self._store, gauge, self._at, self._reach)
         return self._series[gauge]
 
     def id_ratio(self, gauge: str, curve) -> float | None:
-        """Worst ratio of the gauge's rain to the curve over the curve's durations; None
-        without rain records or a finite ratio."""
+        """Ratio of the rain event under way at the gauge to the curve (0 with no event under
+        way); None without rain records or when the event cannot be compared (outside the
+        curve's durations, or starting before the record)."""
         key = (gauge, curve)
         if key not in self._ratios:
             rain = self.series(gauge)
-            ratio = None if rain is None or rain.empty else worst_exceedance(rain, self._at, curve).ratio
+            ratio = None if rain is None or rain.empty else event_exceedance(rain, self._at, curve).ratio
             self._ratios[key] = ratio if ratio is not None and math.isfinite(ratio) else None
         return self._ratios[key]
 
 
 def _total(rain: pd.Series | None, at: datetime, hours: float | None) -> float | None:
+    """Rain over the ``hours`` before ``at`` (watch.rainfall.window_totals); None when there
+    is no record or the record does not cover the whole window (a partial total)."""
     if rain is None or rain.empty or hours is None:
         return None
-    start = pd.Timestamp(at) - pd.Timedelta(hours=hours)
-    if rain.index[0] > start + pd.Timedelta(hours=1):
-        return None  # the record does not reach back over the window: a partial total
-    return float(rain[(rain.index > start) & (rain.index <= pd.Timestamp(at))].sum())
+    total = float(window_totals(rain, at, hours)[0])
+    return total if math.isfinite(total) else None
 
 
 # --- cached searches as JSON --------------------------------------------------------------------

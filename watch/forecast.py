@@ -45,12 +45,15 @@ from watch.errors import ConfigError, ModelError
 from watch.groundwater import WaterLineEstimate
 from watch.rainfall import (
     CAINE_1980,
+    DEFAULT_DRY_GAP_H,
     DEFAULT_WINDOWS,
     GUZZETTI_2008_GLOBAL,
     EventExceedance,
     IntensityDurationThreshold,
+    event_exceedance,
     gauge_for_section,
-    worst_exceedance,
+    rain_record_reach,
+    window_totals,
 )
 from watch.response import (
     DEFAULT_MIN_NSE,
@@ -204,19 +207,21 @@ class RainfallState:
         Per window, the reports the gauge should have sent (at its usual interval) that are
         absent or not of good quality; a total with missing reports is a lower bound.
     exceedances : tuple of EventExceedance
-        The rain ending at ``at`` against each intensity-duration curve.
+        The rain event under way at ``at`` against each intensity-duration curve.
     worst_ratio : float
-        Largest I / I_threshold(D) over the curves and durations [-] (NaN when none could be
-        tested); 1 or more means a curve is reached.
+        Largest I / I_threshold(D) of the event over the curves [-] (NaN when there is no
+        event under way or no curve could be compared); 1 or more means a curve is reached.
     worst_threshold : str
         The curve of the worst ratio ("" when none).
     worst_duration_h : float
-        Its duration [h].
+        The event's duration D [h].
     last_report_utc : pandas.Timestamp or None
         Latest good report at or before ``at``.
     age_hours : float
         Hours from that report to ``at`` (NaN when none).
     notes : tuple of str
+    dry_gap_h : float
+        Dry spell that separates rain events [h].
     """
 
     gauge_id: str
@@ -231,6 +236,7 @@ class RainfallState:
     last_report_utc: pd.Timestamp | None
     age_hours: float
     notes: tuple[str, ...] = ()
+    dry_gap_h: float = DEFAULT_DRY_GAP_H
 
     def describe(self) -> str:
         """What duty staff read."""
@@ -246,13 +252,23 @@ class RainfallState:
             + ("none" if self.last_report_utc is None
                else f"{self.last_report_utc:%Y-%m-%d %H:%M} UTC ({self.age_hours:.1f} h old)"),
         ]  # fmt: skip
+        event = next((e.event for e in self.exceedances if e.event is not None), None)
+        if event is None:
+            lines.append(f"  no rain event under way (none in the last {self.dry_gap_h:g} h)")
+        else:
+            lines.append(f"  rain event since {event.start:%Y-%m-%d %H:%M} UTC: "
+                         f"{event.total_mm:.1f} mm in {event.duration_h:g} h "
+                         f"({event.mean_intensity_mm_h:.2f} mm/h; events end after "
+                         f"{self.dry_gap_h:g} h dry)")
         for e in self.exceedances:
-            if np.isfinite(e.ratio):
-                lines.append(f"  {e.threshold}: worst {e.ratio:.2f} x the curve over "
-                             f"{e.duration_h:g} h ({e.intensity_mm_h:.2f} mm/h against "
-                             f"{e.threshold_mm_h:.2f} mm/h){' EXCEEDED' if e.exceeded else ''}")
+            if e.event is None:
+                continue
+            if e.testable:
+                lines.append(f"  {e.threshold}: {e.ratio:.2f} x the curve at {e.duration_h:g} h "
+                             f"({e.intensity_mm_h:.2f} mm/h against {e.threshold_mm_h:.2f} "
+                             f"mm/h){' EXCEEDED' if e.exceeded else ''}")
             else:
-                lines.append(f"  {e.threshold}: no duration could be tested")
+                lines.append(f"  {e.threshold}: not compared ({e.reason})")
         lines += [f"  note: {n}" for n in self.notes]
         return "\n".join(lines)
 
@@ -260,6 +276,7 @@ class RainfallState:
         def number(v):
             return None if v is None or not np.isfinite(v) else float(v)
 
+        event = next((e.event for e in self.exceedances if e.event is not None), None)
         return {
             "gauge_id": self.gauge_id,
             "time_utc": _text(self.at),
@@ -269,11 +286,17 @@ class RainfallState:
             "worst_ratio": number(self.worst_ratio),
             "worst_threshold": self.worst_threshold,
             "worst_duration_h": number(self.worst_duration_h),
+            "dry_gap_h": self.dry_gap_h,
+            "event": None if event is None else {
+                "start_utc": _text(event.start), "end_utc": _text(event.end),
+                "total_mm": event.total_mm, "duration_h": event.duration_h,
+                "mean_intensity_mm_h": event.mean_intensity_mm_h, "complete": event.complete,
+            },
             "exceedances": [
                 {"threshold": e.threshold, "ratio": number(e.ratio),
                  "duration_h": number(e.duration_h), "intensity_mm_h": number(e.intensity_mm_h),
                  "threshold_mm_h": number(e.threshold_mm_h), "exceeded": e.exceeded,
-                 "skipped": list(e.skipped)}  # fmt: skip
+                 "testable": e.testable, "reason": e.reason}  # fmt: skip
                 for e in self.exceedances
             ],
             "last_report_utc": None if self.last_report_utc is None else _text(self.last_report_utc),
@@ -287,14 +310,15 @@ def rainfall_state(
     gauge_id: str,
     at,
     thresholds: Sequence[IntensityDurationThreshold] = DEFAULT_THRESHOLDS,
-    durations_h: Sequence[float] | None = None,
+    dry_gap_h: float = DEFAULT_DRY_GAP_H,
 ) -> RainfallState:
     """Rain totals, intensity, antecedent rainfall and I-D exceedance of a gauge at ``at``.
 
     Totals over (at - w, at] for the windows of :data:`watch.rainfall.DEFAULT_WINDOWS`, from the
-    reports of good quality; the worst ratio I / (a D^-b) over the curves ``thresholds``
-    (default Caine 1980 and Guzzetti et al. 2008 global) and the durations tested by
-    :func:`watch.rainfall.worst_exceedance`.
+    reports of good quality (:func:`watch.rainfall.window_totals`, NaN for a window the record
+    does not cover); the rain event under way at ``at`` (separated by a dry spell of
+    ``dry_gap_h``) against each curve of ``thresholds`` (default Caine 1980 and Guzzetti et
+    al. 2008 global), :func:`watch.rainfall.event_exceedance`.
 
     Parameters
     ----------
@@ -303,50 +327,41 @@ def rainfall_state(
     at : time
         Naive = UTC.
     thresholds : sequence of IntensityDurationThreshold
-    durations_h : sequence of float, optional
-        Durations to test [h]; default that of :func:`watch.rainfall.worst_exceedance`.
+    dry_gap_h : float
+        Dry spell that separates rain events [h].
 
     Raises
     ------
     ModelError
-        The gauge has no good report at or before ``at`` in the last 30 days.
+        The gauge has no good report at or before ``at`` in the record read (the longest
+        window, or the longest curve duration plus the dry gap).
     """
     at = _utc(at)
-    longest = max(DEFAULT_WINDOWS.values())
-    rows = _rain_rows(store, gauge_id, at - longest - pd.Timedelta(days=1), at)
+    reach = rain_record_reach(thresholds, dry_gap_h)
+    rows = _rain_rows(store, gauge_id, at - reach, at)
     good = rows[rows["ok"]]
     if good.empty:
         raise ModelError(
-            f"rain gauge {gauge_id} has no good report in the {longest.days} days before "
-            f"{_text(at)}; check the gauge and its feed"
+            f"rain gauge {gauge_id} has no good report in the {reach / pd.Timedelta(days=1):g} "
+            f"days before {_text(at)}; check the gauge and its feed"
         )
     series = pd.Series(good["rain_mm"].to_numpy(), index=pd.DatetimeIndex(good["time_utc"]))
     interval = (pd.Series(rows["time_utc"]).diff().median()
                 if len(rows) > 1 else pd.Timedelta(0))  # fmt: skip
-    record_start = series.index[0] - (interval if interval > pd.Timedelta(0) else pd.Timedelta(0))
     totals, missing, notes = {}, {}, []
     for name, length in DEFAULT_WINDOWS.items():
-        begin = at - length
-        in_window = (series.index > begin) & (series.index <= at)
-        if begin < record_start:
-            totals[name] = float("nan")
-            notes.append(f"{name}: the record starts at {_text(record_start)}, after the window")
-        else:
-            totals[name] = float(series[in_window].sum())
-        if interval > pd.Timedelta(0):
-            expected = int(length / interval)
-            missing[name] = max(expected - int(in_window.sum()), 0)
-        else:
-            missing[name] = 0
+        hours = length / pd.Timedelta(hours=1)
+        totals[name] = float(window_totals(series, at, hours)[0])
+        if not np.isfinite(totals[name]):
+            notes.append(f"{name}: the rain record does not cover the whole window")
+        in_window = int(((series.index > at - length) & (series.index <= at)).sum())
+        missing[name] = max(int(length / interval) - in_window, 0) if interval > pd.Timedelta(0) else 0
     for name, count in missing.items():
         if count and np.isfinite(totals[name]):
             notes.append(f"{name}: {count} report(s) missing or flagged; the total is a lower bound")
-    exceedances = tuple(
-        worst_exceedance(series, at, t) if durations_h is None
-        else worst_exceedance(series, at, t, durations_h)
-        for t in thresholds
-    )
-    tested = [e for e in exceedances if np.isfinite(e.ratio)]
+    exceedances = tuple(event_exceedance(series, at, t, dry_gap_h) for t in thresholds)
+    notes += [f"{e.threshold}: not compared: {e.reason}" for e in exceedances if not e.testable]
+    tested = [e for e in exceedances if e.testable and e.event is not None]
     worst = max(tested, key=lambda e: e.ratio) if tested else None
     last = series.index[-1]
     return RainfallState(
@@ -359,6 +374,7 @@ def rainfall_state(
         worst_ratio=worst.ratio if worst else float("nan"),
         worst_threshold=worst.threshold if worst else "",
         worst_duration_h=worst.duration_h if worst else float("nan"),
+        dry_gap_h=float(dry_gap_h),
         last_report_utc=last,
         age_hours=float((at - last) / pd.Timedelta(hours=1)),
         notes=tuple(notes),

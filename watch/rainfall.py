@@ -1,4 +1,4 @@
-"""Rainfall numerics: moving-window totals, intensity, antecedent rainfall and
+"""Rainfall numerics: moving-window totals, intensity, antecedent rainfall, rain events and
 intensity-duration trigger curves.
 
 Pure functions on a rain series: a pandas Series of ``rain_mm`` [mm] indexed by the UTC time at
@@ -6,6 +6,12 @@ the END of each reporting interval (the depth fell in the interval ending at tha
 increasing, gaps allowed. Windows are time-based: the total over a window of length w ending at
 t is the sum of the depths reported at times in (t - w, t]. Naive times are taken as UTC (the
 store's convention).
+
+One partial-window rule, for every window total of the service (triggers, forecasts, cycles;
+all go through :func:`window_totals`): the record starts at its first report time minus its
+typical reporting interval (the first depth fell in the interval ending then); a window that
+starts before the record does has no total (NaN), never a partial sum that would understate
+the rain.
 
 Missing data must be handled by the caller: a series holding NaN is refused, because a gauge
 that reported nothing and a gauge that was down look the same in a sum.
@@ -30,12 +36,6 @@ DEFAULT_WINDOWS: dict[str, pd.Timedelta] = {
     "rain_7d_mm": pd.Timedelta(days=7),
     "rain_30d_mm": pd.Timedelta(days=30),
 }
-
-#: Durations [h] at which a rainfall event is compared with an intensity-duration curve when the
-#: caller gives none: from one hour to ten days. Common practice is to test the durations of
-#: the event itself; a fixed ladder keeps alerts comparable between gauges.
-DEFAULT_EVENT_DURATIONS_H = (1.0, 2.0, 3.0, 6.0, 12.0, 24.0, 48.0, 72.0, 96.0, 120.0, 168.0, 240.0)
-
 
 def _checked_series(rain: pd.Series) -> pd.Series:
     if not isinstance(rain, pd.Series) or not isinstance(rain.index, pd.DatetimeIndex):
@@ -67,19 +67,61 @@ def _as_utc(time) -> pd.Timestamp:
 def _record_start(rain: pd.Series) -> pd.Timestamp:
     """Start of the period the series covers: its first time minus its typical interval (the
     first depth fell in the interval ending at the first time)."""
+    return rain.index[0] - _interval(rain)
+
+
+def _interval(rain: pd.Series) -> pd.Timedelta:
+    """The typical reporting interval (median spacing); zero for a single report."""
     if len(rain) < 2:
-        return rain.index[0]
-    return rain.index[0] - pd.Series(rain.index).diff().median()
+        return pd.Timedelta(0)
+    return pd.Series(rain.index).diff().median()
+
+
+def window_totals(rain: pd.Series, ends, duration_h: float) -> np.ndarray:
+    """Rain totals [mm] over the ``duration_h`` [h] ending at each time of ``ends``.
+
+    total(t) = sum of rain_mm at times in (t - D, t]
+
+    NaN where the window starts before the record does (the module's partial-window rule):
+    this is the one window-total function of the service.
+
+    Parameters
+    ----------
+    rain : pandas.Series
+        Depth of rain [mm] per interval, indexed by interval end time (UTC).
+    ends : time or sequence of times
+        Window ends (naive = UTC).
+    duration_h : float
+        Window length D [h], > 0.
+
+    Returns
+    -------
+    ndarray
+        One total per end [mm].
+    """
+    return _totals(_checked_series(rain), ends, duration_h)
+
+
+def _totals(rain: pd.Series, ends, duration_h: float) -> np.ndarray:
+    """:func:`window_totals` of a checked series: cumulative sums at the window ends' positions
+    in the (increasing) report times."""
+    if not (np.isfinite(duration_h) and duration_h > 0):
+        raise ConfigError(f"duration must be a positive number of hours, got {duration_h}")
+    stamps = pd.DatetimeIndex(pd.to_datetime(np.atleast_1d(ends), utc=True))
+    length = pd.Timedelta(hours=duration_h)
+    times = rain.index.as_unit("ns").asi8  # Timestamp.value is in ns whatever the unit
+    cumulative = np.r_[0.0, np.cumsum(rain.to_numpy())]
+    last = np.searchsorted(times, stamps.as_unit("ns").asi8, side="right")
+    first = np.searchsorted(times, (stamps - length).as_unit("ns").asi8, side="right")
+    totals = np.maximum(cumulative[last] - cumulative[first], 0.0)  # no rounding below 0
+    return np.where(stamps - length < _record_start(rain), np.nan, totals)
 
 
 def moving_totals(
     rain: pd.Series,
     windows: Mapping[str, pd.Timedelta] | None = None,
-    require_full_window: bool = True,
 ) -> pd.DataFrame:
-    """Rain totals over moving time windows ending at each reading time.
-
-    total_w(t) = sum of rain_mm at times in (t - w, t]
+    """Rain totals over moving time windows ending at each reading time (:func:`window_totals`).
 
     Parameters
     ----------
@@ -88,54 +130,33 @@ def moving_totals(
     windows : mapping of str to Timedelta, optional
         Column name -> window length; default :data:`DEFAULT_WINDOWS` (1 h, 24 h, 3 d, 7 d,
         30 d).
-    require_full_window : bool
-        When True (default) a total whose window starts before the series does is NaN rather
-        than a partial sum that would understate it.
 
     Returns
     -------
     pandas.DataFrame
-        One column per window [mm], same index as ``rain``.
+        One column per window [mm], same index as ``rain``; NaN where the window starts
+        before the record (the module's partial-window rule).
     """
     rain = _checked_series(rain)
     windows = DEFAULT_WINDOWS if windows is None else windows
-    start = _record_start(rain)
     columns = {}
     for name, length in windows.items():
-        length = pd.Timedelta(length)
-        if length <= pd.Timedelta(0):
+        hours = pd.Timedelta(length) / pd.Timedelta(hours=1)
+        if not hours > 0:
             raise ConfigError(f"window {name} must be longer than zero, got {length}")
-        total = rain.rolling(length, closed="right").sum()
-        if require_full_window:
-            total[rain.index - length < start] = np.nan
-        columns[name] = total
+        columns[name] = _totals(rain, rain.index, hours)
     return pd.DataFrame(columns, index=rain.index)
 
 
 def rain_total(rain: pd.Series, end, duration_h: float) -> float:
-    """Rain [mm] that fell in the ``duration_h`` [h] ending at ``end``: sum over (end - D, end].
-
-    Raises ModelError when the window starts before the series does (the total would be
-    partial)."""
-    return _window_total(_checked_series(rain), _as_utc(end), duration_h)
-
-
-def _window_total(rain: pd.Series, end: pd.Timestamp, duration_h: float) -> float:
-    if not (np.isfinite(duration_h) and duration_h > 0):
-        raise ConfigError(f"duration must be a positive number of hours, got {duration_h}")
-    begin = end - pd.Timedelta(hours=duration_h)
-    if begin < _record_start(rain):
-        raise ModelError(
-            f"the rain record starts at {_record_start(rain)}, after the start of the "
-            f"{duration_h:g} h window ending at {end}"
-        )
-    in_window = (rain.index > begin) & (rain.index <= end)
-    return float(rain[in_window].sum())
+    """Rain [mm] that fell in the ``duration_h`` [h] ending at ``end``: sum over (end - D, end];
+    NaN when the window starts before the record does (:func:`window_totals`)."""
+    return float(window_totals(rain, end, duration_h)[0])
 
 
 def mean_intensity(rain: pd.Series, end, duration_h: float) -> float:
     """Mean rainfall intensity I = P / D [mm/h] over the ``duration_h`` [h] ending at ``end``,
-    with P the total [mm] over (end - D, end]."""
+    with P the total [mm] over (end - D, end] (NaN for a partial window)."""
     return rain_total(rain, end, duration_h) / duration_h
 
 
@@ -252,7 +273,8 @@ class IntensityDurationThreshold:
 
 
 #: Caine (1980), world-wide lower bound for shallow landslides and debris flows,
-#: I = 14.82 D^-0.39, I [mm/h], D [h], for 10 minutes < D < 10 days.
+#: I = 14.82 D^-0.39, I [mm/h], D [h] the duration of the rain event, for 10 minutes < D < 10
+#: days (the range of the events Caine compiled; from memory).
 CAINE_1980 = IntensityDurationThreshold(
     a=14.82,
     b=0.39,
@@ -265,8 +287,9 @@ CAINE_1980 = IntensityDurationThreshold(
     ),
 )
 
-#: Guzzetti et al. (2008), global minimum threshold, I = 2.20 D^-0.44, I [mm/h], D [h]; range
-#: 0.1 h < D < 1000 h (range from memory: check against the paper before relying on its ends).
+#: Guzzetti et al. (2008), global minimum threshold, I = 2.20 D^-0.44, I [mm/h], D [h] the
+#: duration of the rain event; range 0.1 h < D < 1000 h (range from memory: check against the
+#: paper before relying on its ends).
 GUZZETTI_2008_GLOBAL = IntensityDurationThreshold(
     a=2.20,
     b=0.44,
@@ -281,112 +304,217 @@ GUZZETTI_2008_GLOBAL = IntensityDurationThreshold(
 )
 
 
+#: Dry spell [h] that separates two rain events: 48 h, the separation Brunetti et al. (2010) and
+#: Peruccacci et al. (2012) used for the warm season when they reconstructed the rain events
+#: behind intensity-duration thresholds (they used 96 h in the cold season; both values from
+#: memory: check the papers before relying on them). Caine (1980) and Guzzetti et al. (2008)
+#: took (D, I) as the duration and mean intensity of the whole rain event that triggered each
+#: landslide; neither fixes a dry spell, which the compiled studies chose for themselves.
+DEFAULT_DRY_GAP_H = 48.0
+
+#: References of the event definition, for reports.
+EVENT_REFERENCES = (
+    "Brunetti, M. T., Peruccacci, S., Rossi, M., Luciani, S., Valigi, D. and Guzzetti, F. "
+    "(2010). Rainfall thresholds for the possible occurrence of landslides in Italy. Natural "
+    "Hazards and Earth System Sciences 10, 447-458.",
+    "Peruccacci, S., Brunetti, M. T., Luciani, S., Vennari, C. and Guzzetti, F. (2012). "
+    "Lithological and seasonal control on rainfall thresholds for the possible initiation of "
+    "landslides in central Italy. Geomorphology 139-140, 79-90.",
+)
+
+
 @dataclass(frozen=True)
-class EventExceedance:
-    """A rain record compared with an intensity-duration threshold at several durations.
+class RainEvent:
+    """A rain event: rain separated from the rain before and after it by a dry spell of at
+    least the dry gap (:func:`rain_events`).
 
     Attributes
     ----------
-    threshold : str
-        Name of the curve.
+    start : pandas.Timestamp
+        Start of its first wet interval (the first wet report time minus the reporting
+        interval) (UTC).
     end : pandas.Timestamp
-        End of the rainfall (UTC).
-    ratio : float
-        Worst (largest) I / I_threshold(D) over the durations tested [-]; NaN when no duration
-        could be tested.
+        Time of its last wet report (UTC).
+    total_mm : float
+        Rain of the event [mm], dry intervals inside it included.
     duration_h : float
-        Duration [h] of the worst ratio.
-    intensity_mm_h, threshold_mm_h : float
-        Mean intensity over that duration and the curve's intensity there [mm/h].
-    exceeded : bool
-        ratio >= 1.
-    durations_h, ratios : ndarray
-        Every duration tested [h] and its ratio [-].
-    skipped : tuple of str
-        Durations not tested, and why (outside the curve, shorter than the reporting interval,
-        longer than the record).
+        D = end - start [h].
+    complete : bool
+        The record reaches back a whole dry gap before the event, so it cannot have started
+        earlier; when False, D and the total are lower bounds.
     """
 
-    threshold: str
+    start: pd.Timestamp
     end: pd.Timestamp
-    ratio: float
+    total_mm: float
     duration_h: float
-    intensity_mm_h: float
-    threshold_mm_h: float
-    exceeded: bool
-    durations_h: np.ndarray
-    ratios: np.ndarray
-    skipped: tuple[str, ...]
+    complete: bool
+
+    @property
+    def mean_intensity_mm_h(self) -> float:
+        """I = total / D [mm/h]."""
+        return self.total_mm / self.duration_h
 
 
-def worst_exceedance(
-    rain: pd.Series,
-    end,
-    threshold: IntensityDurationThreshold,
-    durations_h: Sequence[float] = DEFAULT_EVENT_DURATIONS_H,
-) -> EventExceedance:
-    """Worst exceedance ratio of the rain ending at ``end`` over a set of durations.
+def rain_events(rain: pd.Series, dry_gap_h: float = DEFAULT_DRY_GAP_H) -> tuple[RainEvent, ...]:
+    """The rain events of a record: wet reports closer together than the dry gap form one event.
 
-    For each duration D: I(D) = P(end - D, end] / D [mm/h], ratio = I(D) / (a D^-b). Durations
-    outside the curve's range, shorter than the series' typical reporting interval (the depth
-    of one report would be spread over too short a time), or reaching before the record are
-    skipped and listed.
+    Two wet reports (depth > 0) belong to one event when the dry spell between them (the time
+    from the end of the earlier one to the start of the later one's interval) is shorter than
+    ``dry_gap_h``; the event runs from the start of its first wet interval to its last wet
+    report, dry intervals inside it included (Brunetti et al. 2010; :data:`DEFAULT_DRY_GAP_H`).
+    A gap in the reports counts as dry: the caller refuses a gauge that stopped reporting.
 
     Parameters
     ----------
     rain : pandas.Series
         Depth of rain [mm] per interval, indexed by interval end time (UTC).
-    end : time
-        End of the rainfall to assess (naive = UTC).
-    threshold : IntensityDurationThreshold
-    durations_h : sequence of float
-        Durations to test [h].
+    dry_gap_h : float
+        Shortest dry spell that ends an event [h], > 0.
+
+    Returns
+    -------
+    tuple of RainEvent
+        In time order; empty when no rain fell.
     """
+    if not (np.isfinite(dry_gap_h) and dry_gap_h > 0):
+        raise ConfigError(f"dry gap must be a positive number of hours, got {dry_gap_h}")
     rain = _checked_series(rain)
-    end = _as_utc(end)
-    step_h = (
-        pd.Series(rain.index).diff().median() / pd.Timedelta(hours=1) if len(rain) > 1 else 0.0
-    )
-    start = _record_start(rain)
-    # Window totals from positions in the (increasing) times: the same sums over (end - D,
-    # end] as _window_total, without a boolean mask and a record-start check per duration.
-    times = rain.index.as_unit("ns").asi8  # Timestamp.value is in ns whatever the unit
-    depths = rain.to_numpy()
-    last = np.searchsorted(times, end.value, side="right")
-    tested, ratios, intensities, skipped = [], [], [], []
-    for d in sorted(float(d) for d in durations_h):
-        if not threshold.in_range(d):
-            skipped.append(f"{d:g} h: outside {threshold.name} ({threshold.d_min_h:g}-"
-                           f"{threshold.d_max_h:g} h)")
-        elif d < step_h:
-            skipped.append(f"{d:g} h: shorter than the reporting interval ({step_h:g} h)")
-        elif end - pd.Timedelta(hours=d) < start:
-            skipped.append(f"{d:g} h: longer than the rain record before {end}")
-        else:
-            first = np.searchsorted(times, (end - pd.Timedelta(hours=d)).value, side="right")
-            intensity = float(depths[first:last].sum()) / d
-            tested.append(d)
-            intensities.append(intensity)
-            ratios.append(intensity / threshold.intensity(d))
-    tested_array, ratio_array = np.array(tested), np.array(ratios)
-    if not tested:
-        return EventExceedance(
-            threshold.name, end, np.nan, np.nan, np.nan, np.nan, False,
-            tested_array, ratio_array, tuple(skipped),
-        )
-    worst = int(np.argmax(ratio_array))
-    return EventExceedance(
-        threshold=threshold.name,
-        end=end,
-        ratio=float(ratio_array[worst]),
-        duration_h=tested[worst],
-        intensity_mm_h=intensities[worst],
-        threshold_mm_h=threshold.intensity(tested[worst]),
-        exceeded=bool(ratio_array[worst] >= 1.0),
-        durations_h=tested_array,
-        ratios=ratio_array,
-        skipped=tuple(skipped),
-    )
+    interval = _interval(rain)
+    wet = rain[rain > 0]
+    if wet.empty:
+        return ()
+    gap = pd.Timedelta(hours=dry_gap_h)
+    starts_of_wet = wet.index - interval
+    # A new event where the dry spell before a wet report reaches the gap.
+    dry_before = starts_of_wet[1:] - wet.index[:-1]
+    breaks = np.r_[0, np.flatnonzero(dry_before >= gap) + 1, len(wet)]
+    record_start = _record_start(rain)
+    events = []
+    for first, last in zip(breaks[:-1], breaks[1:]):
+        start, end = starts_of_wet[first], wet.index[last - 1]
+        events.append(RainEvent(
+            start=start,
+            end=end,
+            total_mm=float(rain[(rain.index >= wet.index[first]) & (rain.index <= end)].sum()),
+            duration_h=float((end - start) / pd.Timedelta(hours=1)),
+            complete=bool(start - gap >= record_start),
+        ))  # fmt: skip
+    return tuple(events)
+
+
+def current_event(rain: pd.Series, at, dry_gap_h: float = DEFAULT_DRY_GAP_H) -> RainEvent | None:
+    """The rain event under way at ``at``: the event of the reports up to ``at`` whose last
+    wet report is less than ``dry_gap_h`` before it; None when the last rain is older (the
+    event is over) or none fell."""
+    at = _as_utc(at)
+    rain = _checked_series(rain)
+    events = rain_events(rain[rain.index <= at], dry_gap_h) if (rain.index <= at).any() else ()
+    if not events or at - events[-1].end >= pd.Timedelta(hours=dry_gap_h):
+        return None
+    return events[-1]
+
+
+@dataclass(frozen=True)
+class EventExceedance:
+    """The rain event under way at a time compared with an intensity-duration threshold.
+
+    Attributes
+    ----------
+    threshold : str
+        Name of the curve.
+    at : pandas.Timestamp
+        Time of the comparison (UTC).
+    event : RainEvent or None
+        The event under way (None: no rain within the dry gap before ``at``).
+    ratio : float
+        I / I_threshold(D) of the event [-]; 0 with no event under way; NaN when the event
+        cannot be compared (``testable`` False).
+    duration_h, intensity_mm_h : float
+        D [h] and mean intensity I [mm/h] of the event (NaN without one).
+    threshold_mm_h : float
+        The curve's intensity at D [mm/h] (NaN when not testable or no event).
+    exceeded : bool
+        ratio >= 1.
+    testable : bool
+        False when the event's duration lies outside the curve's range or its start lies
+        before the record (its D and total are then only lower bounds).
+    reason : str
+        Why not testable ("" otherwise).
+    """
+
+    threshold: str
+    at: pd.Timestamp
+    event: RainEvent | None
+    ratio: float
+    duration_h: float
+    intensity_mm_h: float
+    threshold_mm_h: float
+    exceeded: bool
+    testable: bool
+    reason: str = ""
+
+
+def event_exceedance(
+    rain: pd.Series,
+    at,
+    threshold: IntensityDurationThreshold,
+    dry_gap_h: float = DEFAULT_DRY_GAP_H,
+) -> EventExceedance:
+    """The rain event under way at ``at`` against an intensity-duration threshold.
+
+    As the thresholds were drawn (Caine 1980; Guzzetti et al. 2008), the comparison is of the
+    rain event's duration D and mean intensity I = E / D: ratio = I / (a D^-b). The event is
+    :func:`current_event` (separated by a dry spell of ``dry_gap_h``); it is compared only when
+    D lies in the curve's range of durations (outside it the curve was not drawn and is not
+    extrapolated) and the record reaches back a dry gap before the event.
+
+    Parameters
+    ----------
+    rain : pandas.Series
+        Depth of rain [mm] per interval, indexed by interval end time (UTC).
+    at : time
+        Time of the comparison (naive = UTC).
+    threshold : IntensityDurationThreshold
+    dry_gap_h : float
+        Dry spell that separates events [h] (default :data:`DEFAULT_DRY_GAP_H`).
+    """
+    at = _as_utc(at)
+    event = current_event(rain, at, dry_gap_h)
+    if event is None:
+        return EventExceedance(threshold.name, at, None, 0.0, np.nan, np.nan, np.nan, False, True)
+    d, intensity = event.duration_h, event.mean_intensity_mm_h
+    reason = ""
+    if not d > 0:
+        reason = "the record has one report: no reporting interval gives the event a duration"
+    elif not threshold.in_range(d):
+        reason = (f"the rain event of {d:g} h lies outside the durations of {threshold.name} "
+                  f"({threshold.d_min_h:g} to {threshold.d_max_h:g} h)")
+    elif not event.complete:
+        reason = (f"the rain record does not reach {dry_gap_h:g} h before the event that "
+                  f"started by {event.start.isoformat()}: its duration and intensity are unknown")
+    if reason:
+        return EventExceedance(threshold.name, at, event, np.nan, d, intensity, np.nan, False,
+                               False, reason)  # fmt: skip
+    limit = threshold.intensity(d)
+    ratio = intensity / limit
+    return EventExceedance(threshold.name, at, event, float(ratio), d, intensity, float(limit),
+                           bool(ratio >= 1.0), True)  # fmt: skip
+
+
+def rain_record_reach(
+    thresholds: Sequence[IntensityDurationThreshold] = (),
+    dry_gap_h: float = DEFAULT_DRY_GAP_H,
+    window_hours: Sequence[float] = (),
+) -> pd.Timedelta:
+    """How far back a rain record must reach to give every window total of
+    :data:`DEFAULT_WINDOWS` and ``window_hours`` [h], and to place the start of any event the
+    curves ``thresholds`` can be compared with (their longest duration plus the dry gap before
+    it), plus one day for the first report's interval."""
+    hours = [w / pd.Timedelta(hours=1) for w in DEFAULT_WINDOWS.values()]
+    hours += [float(h) for h in window_hours]
+    hours += [t.d_max_h + float(dry_gap_h) for t in thresholds]
+    return pd.Timedelta(hours=max(hours)) + pd.Timedelta(days=1)
 
 
 def gauge_for_section(

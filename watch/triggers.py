@@ -44,7 +44,7 @@ QUANTITIES = {
     "head_m": (Direction.ABOVE, "m", "instrument"),  # piezometric head at the tip
     "rise_m_per_h": (Direction.ABOVE, "m/h", "instrument"),  # rate of rise of head over a window
     "rain_mm": (Direction.ABOVE, "mm", "gauge"),  # rain total over a window ending now
-    "rain_id_ratio": (Direction.ABOVE, "-", "gauge"),  # worst I / I_curve(D) of the rain ending now
+    "rain_id_ratio": (Direction.ABOVE, "-", "gauge"),  # I / I_curve(D) of the rain event under way
 }
 
 #: Published intensity-duration curves a rule may name (watch.rainfall).
@@ -384,7 +384,7 @@ def _section_rule(spec: TriggerSpec, level: Level, instrument: str | None, sourc
         "head_m": f"piezometric head at {instrument}",
         "rise_m_per_h": f"rise of head at {instrument} over {window}",
         "rain_mm": f"rain at {instrument} over {window}",
-        "rain_id_ratio": f"rain at {instrument} against the {spec.curve} intensity-duration curve",
+        "rain_id_ratio": f"rain event at {instrument} against the {spec.curve} intensity-duration curve",
     }[spec.quantity]
     side = "at or below" if direction is Direction.BELOW else "at or above"
     return SectionRule(

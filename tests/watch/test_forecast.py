@@ -71,13 +71,31 @@ def test_rainfall_state_totals_and_caine_ratio(site):
         assert state.totals_mm[name] == pytest.approx(window.sum(), abs=1e-9), name
     # The record (from 2026-01-01) is shorter than 30 days before hour 400: no partial total.
     assert np.isnan(state.totals_mm["rain_30d_mm"])
-    caine = next(e for e in state.exceedances if e.threshold == CAINE_1980.name)
-    d = caine.duration_h
-    window = series[(series.index > at - pd.Timedelta(hours=d)) & (series.index <= at)]
-    # Caine (1980): I = 14.82 D^-0.39
-    assert caine.ratio == pytest.approx(window.sum() / d / (14.82 * d ** -0.39), rel=1e-9)
-    assert state.worst_ratio >= caine.ratio
     assert state.age_hours == 0.0
+
+
+def test_rainfall_state_compares_the_rain_event_under_way(site):
+    # The event as the threshold sources define it (Caine 1980; Guzzetti et al. 2008): the
+    # rain since the last dry spell of 48 h (Brunetti et al. 2010), D from the start of its
+    # first wet hour to its last wet report, I = total / D; Caine (1980): I = 14.82 D^-0.39.
+    wet = np.flatnonzero(site.rain_mm > 0)
+    storm_start = wet[np.flatnonzero(np.diff(wet) > 48)[2] + 1]  # a storm after a long dry spell
+    storm = wet[(wet >= storm_start) & (wet < storm_start + 48)]
+    at = site.times[storm[-1]] + pd.Timedelta(hours=5)  # five dry hours after its last rain
+    with site.workspace.open_store(read_only=True) as store:
+        state = rainfall_state(store, "RG", at)
+    d = float(storm[-1] - storm_start + 1)
+    total = float(site.rain_mm[storm_start:storm[-1] + 1].sum())
+    caine = next(e for e in state.exceedances if e.threshold == CAINE_1980.name)
+    assert caine.event.start == site.times[storm_start] - pd.Timedelta(hours=1)
+    assert caine.duration_h == d and caine.event.total_mm == pytest.approx(total, rel=1e-9)
+    assert caine.ratio == pytest.approx(total / d / (14.82 * d ** -0.39), rel=1e-9)
+    assert state.worst_ratio >= caine.ratio
+    # 48 h after its last rain the event is over: nothing under way, ratio 0.
+    with site.workspace.open_store(read_only=True) as store:
+        later = rainfall_state(store, "RG", site.times[storm[-1]] + pd.Timedelta(hours=48))
+    assert all(e.event is None and e.ratio == 0.0 for e in later.exceedances)
+    assert "no rain event under way" in later.describe()
 
 
 def test_rainfall_state_without_rain_is_refused(site):

@@ -16,8 +16,11 @@ from watch.rainfall import (
     gauge_for_section,
     mean_intensity,
     moving_totals,
+    current_event,
+    event_exceedance,
+    rain_events,
     rain_total,
-    worst_exceedance,
+    window_totals,
 )
 
 
@@ -49,9 +52,16 @@ def test_constant_hourly_rain_gives_window_length_times_rate():
     assert totals["rain_24h_mm"].iloc[23] == pytest.approx(24.0, rel=1e-12)
 
 
-def test_partial_windows_kept_when_asked():
-    totals = moving_totals(_hourly([1.0, 2.0, 3.0]), require_full_window=False)
-    np.testing.assert_allclose(totals["rain_24h_mm"], [1.0, 3.0, 6.0], rtol=1e-12)
+def test_partial_windows_have_no_total():
+    # The one partial-window rule: a window starting before the record (first report time
+    # minus the reporting interval) has no total, in every function that gives one.
+    rain = _hourly([1.0, 2.0, 3.0])  # covers 00:00 to 03:00
+    np.testing.assert_allclose(moving_totals(rain)["rain_1h_mm"], [1.0, 2.0, 3.0], rtol=1e-12)
+    assert np.isnan(moving_totals(rain)["rain_24h_mm"]).all()
+    assert rain_total(rain, "2026-01-01 03:00", 3.0) == pytest.approx(6.0, rel=1e-12)
+    assert np.isnan(rain_total(rain, "2026-01-01 03:00", 3.5))
+    np.testing.assert_allclose(window_totals(rain, rain.index, 2.0), [np.nan, 3.0, 5.0],
+                               rtol=1e-12)
 
 
 @settings(max_examples=60, deadline=None)
@@ -63,9 +73,11 @@ def test_moving_totals_on_irregular_series_match_the_window_definition(gaps_min,
     times = pd.Timestamp("2026-01-01", tz="UTC") + pd.to_timedelta(np.cumsum(gaps_min), "min")
     rain = pd.Series(depths[: len(times)], index=times)
     windows = {"rain_1h_mm": pd.Timedelta(hours=1), "rain_24h_mm": pd.Timedelta(hours=24)}
-    totals = moving_totals(rain, windows, require_full_window=False)
+    totals = moving_totals(rain, windows)
+    interval = pd.Series(times).diff().median() if len(times) > 1 else pd.Timedelta(0)
     for name, length in windows.items():
-        expected = [_brute_total(rain, t, length) for t in rain.index]
+        expected = [_brute_total(rain, t, length) if t - length >= times[0] - interval else np.nan
+                    for t in rain.index]  # fmt: skip
         np.testing.assert_allclose(totals[name], expected, rtol=1e-9, atol=1e-9)
 
 
@@ -86,8 +98,6 @@ def test_rain_series_problems_are_refused():
         moving_totals(_hourly([1.0, -0.2]))
     with pytest.raises(ModelError, match="must increase strictly"):
         moving_totals(_hourly([1.0, 2.0])[::-1])
-    with pytest.raises(ModelError, match="rain record starts at"):
-        rain_total(_hourly([1.0, 2.0]), "2026-01-01 02:00", 24.0)
     with pytest.raises(ConfigError, match="positive number of hours, got -1"):
         rain_total(_hourly([1.0, 2.0]), "2026-01-01 02:00", -1.0)
 
@@ -162,27 +172,90 @@ def test_user_threshold_validation():
         IntensityDurationThreshold(5.0, 0.5, 10.0, 1.0, "bad")
 
 
-def test_worst_exceedance_picks_the_worst_duration():
-    # 30 mm in the last hour of a dry two days: I(1 h) = 30 mm/h against Caine's 14.82 mm/h is
-    # ratio 2.024; longer durations dilute it (I(2 h) = 15 against 11.29: 1.33).
-    rain = _hourly(np.r_[np.zeros(47), 30.0])
-    result = worst_exceedance(rain, rain.index[-1], CAINE_1980)
-    assert result.duration_h == 1.0
-    assert result.ratio == pytest.approx(30.0 / 14.82, rel=1e-12)
-    assert result.exceeded
-    np.testing.assert_allclose(
-        result.ratios[:2], [30 / 14.82, 15 / (14.82 * 2**-0.39)], rtol=1e-12
-    )
-    assert any("72 h: longer than the rain record" in s for s in result.skipped)
+def _events_by_hand(rain, gap_h):
+    """Rain events by their definition, one report at a time (Brunetti et al. 2010): a wet
+    report starts a new event when the dry time since the last wet report's end, up to the
+    start of its own interval, is at least the gap."""
+    step = pd.Series(rain.index).diff().median() if len(rain) > 1 else pd.Timedelta(0)
+    events, last_end = [], None
+    for t, v in rain.items():
+        if v <= 0:
+            continue
+        if last_end is None or (t - step) - last_end >= pd.Timedelta(hours=gap_h):
+            events.append([t - step, t, 0.0, t])
+        events[-1][1] = t
+        last_end = t
+    for e in events:
+        e[2] = float(rain[(rain.index >= e[3]) & (rain.index <= e[1])].sum())
+    return events
 
 
-def test_worst_exceedance_skips_durations_shorter_than_the_reporting_interval():
-    rain = pd.Series(
-        [0.0, 5.0, 50.0], index=pd.date_range("2026-01-01", periods=3, freq="6h", tz="UTC")
-    )
-    result = worst_exceedance(rain, rain.index[-1], CAINE_1980, durations_h=[1.0, 6.0, 12.0])
-    assert list(result.durations_h) == [6.0, 12.0]
-    assert result.skipped == ("1 h: shorter than the reporting interval (6 h)",)
+@settings(max_examples=60, deadline=None)
+@given(
+    wet=st.lists(st.booleans(), min_size=1, max_size=300),
+    gap_h=st.sampled_from([1.0, 6.0, 24.0, 48.0]),
+)
+def test_rain_events_follow_their_definition(wet, gap_h):
+    rain = _hourly(np.where(wet, 2.0, 0.0))
+    found = rain_events(rain, gap_h)
+    expected = _events_by_hand(rain, gap_h)
+    assert [(e.start, e.end) for e in found] == [(e[0], e[1]) for e in expected]
+    np.testing.assert_allclose([e.total_mm for e in found], [e[2] for e in expected], rtol=1e-12)
+    for e in found:
+        assert e.duration_h == (e.end - e.start) / pd.Timedelta(hours=1)
+        step = pd.Timedelta(hours=1 if len(rain) > 1 else 0)  # one report: interval unknown
+        assert e.complete == (e.start - pd.Timedelta(hours=gap_h) >= rain.index[0] - step)
+
+
+def test_two_storms_closer_than_the_dry_gap_are_one_event():
+    # 10 mm/h for 3 h, 30 dry hours, 5 mm/h for 2 h: one event with the 48 h gap of Brunetti
+    # et al. (2010), D = 3 + 30 + 2 = 35 h and I = 40 / 35 mm/h; two events with a 24 h gap.
+    depths = np.r_[np.zeros(60), [10.0] * 3, np.zeros(30), [5.0] * 2, np.zeros(4)]
+    rain = _hourly(depths)
+    (event,) = rain_events(rain, 48.0)
+    assert event.duration_h == 35.0 and event.total_mm == pytest.approx(40.0, rel=1e-12)
+    assert event.complete  # 60 dry hours before it are on record
+    assert len(rain_events(rain, 24.0)) == 2
+    at = rain.index[-1]
+    result = event_exceedance(rain, at, CAINE_1980)
+    # Caine (1980): I = 14.82 D^-0.39 at D = 35 h.
+    assert result.ratio == pytest.approx((40.0 / 35.0) / (14.82 * 35.0**-0.39), rel=1e-12)
+    assert result.testable and not result.exceeded
+    # The same rain on sliding windows ending now would have compared 10 mm over its last
+    # 6 h: the event is what the curve is drawn for.
+    assert current_event(rain, at, 24.0).duration_h == 2.0
+
+
+def test_an_intense_event_exceeds_caine_and_an_ended_one_is_not_under_way():
+    # 30 mm in one hour after two dry days: D = 1 h, I = 30 mm/h, 30 / 14.82 = 2.02 times the
+    # curve of Caine (1980).
+    rain = _hourly(np.r_[np.zeros(50), 30.0, np.zeros(60)])
+    during = event_exceedance(rain, rain.index[50], CAINE_1980)
+    assert during.exceeded and during.ratio == pytest.approx(30.0 / 14.82, rel=1e-12)
+    assert during.duration_h == 1.0
+    # 47 h after the rain the event is still under way; 48 h after it, it is over.
+    assert event_exceedance(rain, rain.index[50] + pd.Timedelta(hours=47), CAINE_1980).ratio \
+        == pytest.approx(30.0 / 14.82, rel=1e-12)
+    over = event_exceedance(rain, rain.index[50] + pd.Timedelta(hours=48), CAINE_1980)
+    assert over.event is None and over.ratio == 0.0 and over.testable
+
+
+def test_events_outside_a_curve_or_before_the_record_are_not_compared():
+    # Caine (1980) was drawn for 10 min to 10 days: a 12-day event is not compared (no
+    # extrapolation); Guzzetti et al. (2008), 0.1 to 1000 h (from memory), takes it.
+    rain = _hourly(np.r_[np.zeros(50), np.full(288, 1.0)])
+    at = rain.index[-1]
+    caine = event_exceedance(rain, at, CAINE_1980)
+    assert not caine.testable and np.isnan(caine.ratio)
+    assert "outside the durations of Caine 1980 (0.166667 to 240 h)" in caine.reason
+    guzzetti = event_exceedance(rain, at, GUZZETTI_2008_GLOBAL)
+    assert guzzetti.testable
+    assert guzzetti.ratio == pytest.approx(1.0 / (2.20 * 288.0**-0.44), rel=1e-12)
+    # Rain from the first report on: the record cannot say when the event began.
+    early = event_exceedance(_hourly(np.full(5, 3.0)), "2026-01-01 05:00", CAINE_1980)
+    assert not early.testable and "does not reach 48 h before the event" in early.reason
+    with pytest.raises(ConfigError, match="dry gap must be a positive number of hours, got 0"):
+        rain_events(rain, 0.0)
 
 
 def test_gauge_for_section_named_or_nearest():
@@ -195,9 +268,9 @@ def test_gauge_for_section_named_or_nearest():
 
 
 @pytest.mark.parametrize("unit", ["s", "us", "ns"])
-def test_worst_exceedance_uses_the_same_window_totals_as_rain_total(unit):
-    """The ratio per duration is rain_total(end, D) / D over the curve's intensity (Caine 1980
-    and Guzzetti et al. 2008 curves), whatever the time resolution of the series' index."""
+def test_window_totals_match_the_definition_whatever_the_time_unit(unit):
+    """window_totals by position in the times equals the sum over (end - D, end], whatever the
+    time resolution of the series' index."""
     rng = np.random.default_rng(7)
     for _ in range(20):
         n = int(rng.integers(2, 1500))
@@ -205,7 +278,8 @@ def test_worst_exceedance_uses_the_same_window_totals_as_rain_total(unit):
         depths = np.where(rng.random(n) < 0.7, 0.0, rng.gamma(0.5, 2.0, n)).round(1)
         rain = pd.Series(depths, index=index)
         end = index[int(rng.integers(0, n))] + pd.Timedelta(minutes=int(rng.integers(0, 30)))
-        for curve in (CAINE_1980, GUZZETTI_2008_GLOBAL):
-            found = worst_exceedance(rain, end, curve)
-            expected = [rain_total(rain, end, d) / d / curve.intensity(d) for d in found.durations_h]
-            np.testing.assert_allclose(found.ratios, expected, rtol=1e-12, atol=0)
+        for d in (0.25, 1.0, 6.0, 24.0):
+            length = pd.Timedelta(hours=d)
+            expected = (_brute_total(rain, end, length)
+                        if end - length >= index[0] - pd.Timedelta(minutes=15) else np.nan)
+            np.testing.assert_allclose(rain_total(rain, end, d), expected, rtol=1e-9, atol=1e-9)
