@@ -110,7 +110,8 @@ def forecast(depth_mm, durations_h, to_threshold, levels, max_depth, sections, a
 
 @click.command("calibrate-response")
 @click.option("--days", type=float, default=None, metavar="DAYS",
-              help="Length of the history to calibrate on [days] [default: 90].")
+              help="Longest history to calibrate on [days] [default: 90]; a shorter record "
+                   "is used from its start.")
 @click.option("--instrument", "instruments", multiple=True, metavar="ID",
               help="Piezometer to calibrate (repeatable) [default: every piezometer].")
 @_at_option

@@ -57,6 +57,7 @@ from watch.rainfall import (
 )
 from watch.response import (
     DEFAULT_MIN_NSE,
+    MIN_OBSERVATIONS,
     ResponseFit,
     ResponseModel,
     ResponseState,
@@ -167,21 +168,30 @@ def _binned(times: pd.Series, values: np.ndarray, ends: pd.DatetimeIndex, step: 
         return np.bincount(index, weights=values, minlength=len(e))
     if how == "count":
         return np.bincount(index, minlength=len(e)).astype(float)
+    last = np.full(len(e), np.nan)
+    if index.size == 0:
+        return last
     order = np.argsort(t[inside], kind="stable")
     index, values = index[order], values[order]  # in time order, so the bins never decrease
     final = np.r_[index[1:] != index[:-1], True]  # the last reading of each step
-    last = np.full(len(e), np.nan)
     last[index[final]] = values[final]
     return last
 
 
 def _rain_grid(store: Store, gauge_id: str, ends: pd.DatetimeIndex, step: pd.Timedelta):
-    """(rain per step [mm], number of steps without any good report) on the grid ``ends``."""
+    """(rain per step [mm], whether each step has a good report, start of the gauge's record
+    within the grid or None) on the grid ``ends``. The record starts at the gauge's first
+    report of any quality minus its reporting interval (the first depth fell in the interval
+    ending then; watch.rainfall's rule)."""
     rows = _rain_rows(store, gauge_id, ends[0] - step, ends[-1])
     good = rows[rows["ok"]]
     rain = _binned(good["time_utc"], good["rain_mm"].to_numpy(), ends, step, "sum")
-    reports = _binned(good["time_utc"], np.ones(len(good)), ends, step, "count")
-    return rain, int(np.sum(reports == 0))
+    reported = _binned(good["time_utc"], np.ones(len(good)), ends, step, "count") > 0
+    if rows.empty:
+        return rain, reported, None
+    times = pd.DatetimeIndex(rows["time_utc"])
+    interval = pd.Series(times).diff().median() if len(times) > 1 else pd.Timedelta(0)
+    return rain, reported, times[0] - interval
 
 
 # --------------------------------------------------------------------------------------------
@@ -472,12 +482,15 @@ def calibrate_response_models(
 ) -> list[Calibration]:
     """Calibrate and store the response model of each piezometer on its stored history.
 
-    The record is the ``days`` before ``at``, on a grid of ``step_h`` steps ending at ``at``:
-    the head of a step is the last good reading in it (none: no observation), the rain the sum
-    of the good reports of the section's gauge in it. Fitting is
+    The record is the ``days`` before ``at``, on a grid of ``step_h`` steps ending at ``at``,
+    starting no earlier than the record does (the later of the gauge's first report and the
+    instrument's first reading): the head of a step is the last good reading in it (none: no
+    observation), the rain the sum of the good reports of the section's gauge in it; a step
+    of the record without a good rain report is a missing report. Fitting is
     :func:`watch.response.fit`. Every fit is stored (``response_models``) with its NSE, RMSE
-    and whether it may forecast; an instrument whose record cannot be fitted at all (too few
-    heads, no rain, too many rain steps missing) is reported with the reason and nothing is
+    and whether it may forecast; an instrument whose record cannot be fitted at all (no
+    readings or no rain in the window, fewer heads than a fit needs (the reason says how many
+    hours more), too many rain steps missing) is reported with the reason and nothing is
     stored for it.
 
     Parameters
@@ -517,28 +530,48 @@ def calibrate_response_models(
         raise ConfigError(f"{unknown} are not [[piezometer]] ids of the site file "
                           f"(piezometers: {', '.join(sorted(piezometers))})")
     results, rows = [], []
-    rain_cache: dict[str, tuple[np.ndarray, int]] = {}
+    rain_cache: dict[str, tuple] = {}
     for instrument in wanted:
         gauge = gauge_of(config, piezometers[instrument])
         if gauge not in rain_cache:
             rain_cache[gauge] = _rain_grid(store, gauge, ends, step)
-        rain, missing = rain_cache[gauge]
+        all_rain, reported, rain_start = rain_cache[gauge]
         readings = load_readings(store, [instrument], ends[0] - step, at)
+        # The window starts no earlier than the record does: the later of the gauge's first
+        # report and the instrument's first reading (any quality), on the grid's steps. Steps
+        # before it are not missing reports; they are before the record.
+        starts = [ends[0] - step]
+        if rain_start is not None:
+            starts.append(rain_start)
+        if not readings.empty:
+            starts.append(readings["time_utc"].min() - step)
+        start = max(starts)
+        first = int(np.searchsorted(ends - step, start, side="left"))  # first step within it
+        window = ends[first:]
+        rain = all_rain[first:]
+        missing = int(np.sum(~reported[first:]))
         good = readings[(readings["quality"] == "ok") & readings["head_m"].notna()]
-        heads = _binned(good["time_utc"], good["head_m"].to_numpy(), ends, step, "last")
-        common = dict(instrument_id=instrument, gauge_id=gauge, record_start_utc=ends[0] - step,
+        heads = _binned(good["time_utc"], good["head_m"].to_numpy(), window, step, "last") \
+            if len(window) else np.empty(0)
+        record_start = (window[0] if len(window) else at) - step
+        common = dict(instrument_id=instrument, gauge_id=gauge, record_start_utc=record_start,
                       record_end_utc=at, missing_rain_steps=missing)  # fmt: skip
-        if missing > MAX_MISSING_RAIN_FRACTION * n:
+        short = _short_record(instrument, gauge, rain_start, readings, heads, step_h, at, days)
+        if short:
+            results.append(Calibration(model_id=None, usable=False, fit=None, reason=short,
+                                       **common))  # fmt: skip
+            continue
+        if missing > MAX_MISSING_RAIN_FRACTION * len(window):
             results.append(Calibration(
                 model_id=None, usable=False, fit=None,
-                reason=f"{missing} of {n} steps have no good report from gauge {gauge} (more "
-                f"than {MAX_MISSING_RAIN_FRACTION:.0%}); a missing storm could pass for a dry "
-                "spell",
+                reason=f"{missing} of {len(window)} steps since {_text(record_start)} have no "
+                f"good report from gauge {gauge} (more than {MAX_MISSING_RAIN_FRACTION:.0%}); a "
+                "missing storm could pass for a dry spell",
                 **common,
             ))  # fmt: skip
             continue
         try:
-            result = fit(pd.Series(heads, index=ends), pd.Series(rain, index=ends),
+            result = fit(pd.Series(heads, index=window), pd.Series(rain, index=window),
                          step_h=step_h, min_nse=min_nse)  # fmt: skip
         except ModelError as error:
             results.append(Calibration(model_id=None, usable=False, fit=None,
@@ -548,7 +581,7 @@ def calibrate_response_models(
         rows.append({
             "instrument_id": instrument, "gauge_id": gauge,
             "calibrated_utc": utc_text(calibrated_utc) if calibrated_utc else _text(at),
-            "record_start_utc": _text(ends[0] - step), "record_end_utc": _text(at),
+            "record_start_utc": _text(record_start), "record_end_utc": _text(at),
             "step_h": step_h, "base_head_m": model.base_head_m,
             "gain_m_per_mm": model.gain_m_per_mm, "recession_h": model.recession_h,
             "lag_steps": int(model.lag_steps), "nse": model.nse, "rmse_m": model.rmse_m,
@@ -564,6 +597,25 @@ def calibrate_response_models(
         c if c.fit is None else Calibration(**{**c.__dict__, "model_id": next(ids)})
         for c in results
     ]
+
+
+def _short_record(instrument: str, gauge: str, rain_start, readings: pd.DataFrame,
+                  heads: np.ndarray, step_h: float, at: pd.Timestamp, days: float) -> str:
+    """Why the record in the window is too short to calibrate on, and how much more it needs
+    ("" when it is long enough to try)."""
+    span = f"the {days:g} days before {_text(at)}"
+    if rain_start is None:
+        return f"gauge {gauge} has no report in {span}; no rain to calibrate on"
+    if readings.empty:
+        return f"{instrument} has no reading in {span}; no heads to calibrate on"
+    observed = int(np.isfinite(heads).sum())
+    if observed < MIN_OBSERVATIONS:
+        more = (MIN_OBSERVATIONS - observed) * step_h
+        return (f"{instrument} has {observed} good head(s) on the {step_h:g} h grid in {span} "
+                f"(its record with gauge {gauge} starts {_text(max(rain_start, readings['time_utc'].min()))}); "
+                f"calibration needs at least {MIN_OBSERVATIONS}: about {more:g} h more record "
+                "at one good reading per step")
+    return ""
 
 
 def _model_of(row: dict) -> ResponseModel:

@@ -244,3 +244,39 @@ def test_calibrate_and_rain_commands(site, tmp_path):
     assert rain.exit_code == 0 and "Rain at RG up to 2026-01-17 16:00 UTC" in rain.output
     unknown = CliRunner().invoke(main, ["rain", "RX", "-w", ws])
     assert unknown.exit_code == 1 and "'RX' is not a [[rain_gauge]] id" in unknown.output
+
+
+def test_calibration_windows_start_with_the_record(tmp_path):
+    # Issue 16: with five weeks of records the default 90-day window counted the weeks before
+    # the first reading as missing rain reports and refused every model; with three weeks the
+    # binning of heads ended in an IndexError. The window now starts with the record (the
+    # gauge's first report and the piezometer's first reading), so both calibrate; the
+    # noise-free heads of the generating model give it back (tests/watch/groundwater_site.py).
+    fresh = make_site(tmp_path)
+    with fresh.workspace.open_store() as store:
+        for weeks in (3, 5):
+            (calibration,) = calibrate_response_models(store, fresh.workspace.config(),
+                                                       hour(weeks * 7 * 24))
+            assert calibration.usable, calibration.reason
+            assert calibration.missing_rain_steps == 0
+            assert calibration.record_start_utc == pd.Timestamp("2026-01-01T00:00Z")
+            assert calibration.fit.model.lag_steps == TRUE_MODEL.lag_steps
+            np.testing.assert_allclose(calibration.fit.model.recession_h,
+                                       TRUE_MODEL.recession_h, rtol=1e-3)
+
+
+def test_short_or_absent_records_say_what_they_need(tmp_path):
+    fresh = make_site(tmp_path)
+    ws = str(fresh.workspace.root)
+    with fresh.workspace.open_store() as store:
+        (short,) = calibrate_response_models(store, fresh.workspace.config(), hour(10))
+    # Ten hourly heads of the 24 a fit needs (watch.response.MIN_OBSERVATIONS): 14 h more.
+    assert not short.usable and short.fit is None
+    assert "has 10 good head(s) on the 1 h grid" in short.reason
+    assert "about 14 h more record" in short.reason
+    # Long after the records end (the reproduction's --at): a reason, no traceback.
+    for at in ("2026-11-11T12:00Z", "2025-12-01T00:00Z"):
+        result = CliRunner().invoke(main, ["calibrate-response", "--at", at, "-w", ws, "--json"])
+        assert result.exit_code == 0, result.output
+        (row,) = json.loads(result.output)
+        assert not row["usable"] and "gauge RG has no report in the 90 days" in row["reason"]
