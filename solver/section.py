@@ -376,14 +376,24 @@ class Section:
         """The strata compiled into columns (computed once, at construction)."""
         return self._columns
 
-    def with_water_lines(self, points: Mapping[str, Any]) -> "Section":
+    def with_water_lines(
+        self,
+        points: Mapping[str, Any],
+        inclination_correction: Mapping[str, bool] | None = None,
+    ) -> "Section":
         """A copy whose named water lines have new ``points`` ((k, 2) [m] each); other lines,
         the geometry and the materials are shared, not copied or re-validated.
+
+        ``inclination_correction`` sets that flag of the named new lines (default: each keeps
+        its own). A line drawn through measured piezometric heads needs it off: the heads are
+        already the pressure heads at the tips, and the cos^2 factor belongs to a phreatic
+        surface with seepage parallel to it (Skempton and DeLory 1957).
 
         Raises SectionError for an unknown line name or invalid points.
         """
         known = {line.name: line for line in self.water_lines}
-        for name in points:
+        corrections = dict(inclination_correction or {})
+        for name in [*points, *corrections]:
             if name not in known:
                 raise SectionError(
                     f"water_line {name!r} is not defined in section {self.id!r} "
@@ -393,7 +403,8 @@ class Section:
         for line in self.water_lines:
             if line.name in points:
                 new = WaterLine(
-                    line.name, points[line.name], line.inclination_correction,
+                    line.name, points[line.name],
+                    corrections.get(line.name, line.inclination_correction),
                     line.allow_suction, line.confined,
                 )
                 _check_span(new.points, self.ground, f"water_line {line.name!r}")

@@ -401,8 +401,11 @@ def _water_at(store: Store, config, case: SlipCase, section: Section, at: dateti
     else:
         for line in section.water_lines:
             described.setdefault(line.name, "design line (case file: at_failure = design lines)")
+    # Lines through readings are piezometric lines: no cos^2 inclination correction on them
+    # (watch.waterlines.section_with_lines gives the reason and the sources).
+    measured = {name: False for name in points if name not in given or not failure}
     try:
-        return section.with_water_lines(points), described
+        return section.with_water_lines(points, measured), described
     except SectionError as error:
         raise ConfigError(f"{case.path}: water line for section {section.id!r}: {error}") from None
 

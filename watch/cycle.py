@@ -58,7 +58,7 @@ from watch.parameters import current_section
 from watch.rainfall import event_exceedance, rain_record_reach, window_totals
 from watch.store import Store, parse_utc_text, utc_text
 from watch.triggers import RAIN_CURVES, AlertSettings, SectionRule, alert_settings, section_gauge
-from watch.waterlines import store_water_lines, water_lines_from_store
+from watch.waterlines import section_with_lines, store_water_lines, water_lines_from_store
 from watch.workspace import Workspace
 
 __all__ = [
@@ -447,7 +447,7 @@ def _prepare(workspace, store: Store, config, settings: AlertSettings, section_i
         calc.status = "unchanged"
         calc.message = f"inputs unchanged since the assessment at {last['time_utc']}"
         return calc, None
-    current = section.with_water_lines({name: est.points for name, est in lines.items()})
+    current = section_with_lines(section, lines)
     try:
         cached = _cached_search_json(store, section_id, version_id, at, settings.cycle.full_search_every_hours)
     except (UserError, SolverError) as error:

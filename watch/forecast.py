@@ -65,7 +65,7 @@ from watch.response import (
     rain_to_thresholds,
 )
 from watch.store import Store, utc_text
-from watch.waterlines import ModelHeads, load_readings, water_lines_through
+from watch.waterlines import ModelHeads, load_readings, section_with_lines, water_lines_through
 from watch.workspace import Workspace
 
 __all__ = [
@@ -926,7 +926,7 @@ class _Prepared:
 
     def section_with(self, heads: Mapping[str, float]) -> tuple[Section, dict]:
         lines = self.lines(heads)
-        return self.section.with_water_lines({n: l.points for n, l in lines.items()}), lines
+        return section_with_lines(self.section, lines), lines
 
     def warm_fos(self, heads: Mapping[str, float], search: SearchResult) -> float:
         current, _ = self.section_with(heads)

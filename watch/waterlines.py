@@ -36,6 +36,7 @@ from watch.groundwater import (
 from watch.store import TIME_FORMAT, Store, utc_text
 
 __all__ = [
+    "section_with_lines",
     "ModelHeads",
     "HeadEstimator",
     "water_lines_for",
@@ -247,6 +248,26 @@ def _with_record(
                 entry.update(reading)
         record.append(entry)
     return replace(estimate, readings=tuple(record))
+
+
+def section_with_lines(section: Section, lines: Mapping[str, WaterLineEstimate]) -> Section:
+    """The section with the water lines drawn at a time in place of its design lines.
+
+    A line through piezometer heads (measured, or estimated for the instruments by a
+    rainfall-response model) is a piezometric line: each head is the pressure head at a tip,
+    u = gamma_w (h - y), so the inclination correction u = gamma_w h cos^2(theta) is switched
+    off for it whatever the section file says. That correction belongs to a phreatic line drawn
+    as the water table with seepage parallel to the slope, where the equipotentials are normal
+    to the flow and the pressure head at depth is h_w cos^2(theta) (Skempton and DeLory 1957;
+    Duncan, Wright and Brandon 2014, infinite slope with seepage parallel to the slope): a
+    design-line fallback keeps the section file's setting.
+    """
+    piezometric = {
+        name: False
+        for name, line in lines.items()
+        if line.source in (SOURCE_INSTRUMENTS, SOURCE_RAINFALL_MODEL)
+    }
+    return section.with_water_lines({n: line.points for n, line in lines.items()}, piezometric)
 
 
 # --------------------------------------------------------------------------------------------

@@ -165,6 +165,18 @@ def test_with_water_lines_replaces_only_the_named_line():
     assert updated.water_line("main").inclination_correction is False
 
 
+def test_with_water_lines_sets_the_inclination_correction_of_named_lines():
+    data = layered()
+    data["water_line"][0]["inclination_correction"] = True
+    section = section_from_dict(data)
+    points = {"main": [[0, 18.0], [30, 12.0], [50, 9.5]]}
+    assert section.with_water_lines(points).water_line("main").inclination_correction is True
+    off = section.with_water_lines(points, {"main": False})
+    assert off.water_line("main").inclination_correction is False
+    with pytest.raises(SectionError, match="water_line 'perched' is not defined"):
+        section.with_water_lines(points, {"perched": False})
+
+
 def test_with_water_lines_refuses_unknown_names_and_bad_points():
     section = section_from_dict(layered())
     with pytest.raises(SectionError, match="water_line 'perched' is not defined"):

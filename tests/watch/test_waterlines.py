@@ -8,6 +8,7 @@ readings are invented (tests/watch/groundwater_site.py); heads come from a known
 response model, so a rainfall-model estimate has an exact answer.
 """
 
+from dataclasses import replace
 from datetime import timedelta
 
 import numpy as np
@@ -270,3 +271,36 @@ def test_the_demo_site_file_configures_its_toe_ditches():
     assert rules["WC-040"]["clay"].right.describe() == "fixed level (63.35 m from x = 37.6 m)"
     assert rules["FE-210"]["main"].max_age_hours == 12.0
     assert sorted(rules) == ["FE-210", "WC-040", "WC-060", "WC-080"]
+
+
+def test_no_inclination_correction_on_lines_through_measured_heads(site):
+    # A head read at a piezometer tip is a pressure head: u = gamma_w (h_line - y_base) at a
+    # slice base, without the cos^2(theta) of a phreatic surface with seepage parallel to it
+    # (Skempton and DeLory 1957). The design-line fallback keeps the section file's setting.
+    from solver.constants import GAMMA_W
+    from watch.waterlines import section_with_lines
+
+    at = hour(500)
+    config = site.workspace.config()
+    corrected = SECTION.replace('name = "main"\npoints = [[0.0, 14.0]',
+                                'name = "main"\ninclination_correction = true\npoints = [[0.0, 14.0]')
+    assert corrected != SECTION
+    path = site.workspace.sections / "s1_corrected.toml"
+    path.write_text(corrected, encoding="utf-8")
+    section = load_section(path)
+    assert section.water_lines[0].inclination_correction
+    with site.workspace.open_store() as store:
+        lines = water_lines_from_store(store, section, config, at)
+    current = section_with_lines(section, lines)
+    assert not current.water_lines[0].inclination_correction
+    surface = surface_of(analyse(current).critical)
+    slices = slice_surface(current, surface, 30)
+    x_mid = 0.5 * (slices.x_left + slices.x_right)
+    head = np.interp(x_mid, *lines["main"].points.T)
+    wet = slices.active & (head > slices.y_base)
+    assert wet.any()
+    np.testing.assert_allclose(slices.pore_pressure[wet],
+                               GAMMA_W * (head - slices.y_base)[wet], rtol=1e-9)
+    # A design-line fallback is the engineer's phreatic line: the correction stays.
+    design = replace(lines["main"], source="design line")
+    assert section_with_lines(section, {"main": design}).water_lines[0].inclination_correction
