@@ -192,8 +192,8 @@ class WaterLine:
         When true, the line is the piezometric level of a confined (artesian) aquifer: where
         it rises above the ground, the pore pressure at a slice base still uses its full head
         (u = gamma_w * (h_line - y_base)), and no water is ponded on the ground by it. When
-        false (default), a head above the ground is taken at ground level unless the section
-        allows ponding.
+        false (default), a head above the ground is taken at ground level, or at the level
+        of the ponded water where the section allows ponding and water ponds there.
     """
 
     name: str
@@ -271,7 +271,10 @@ class Section:
     ground : ndarray (n, 2)
         [m] Ground surface, x strictly increasing.
     pond : bool
-        Whether water may stand above the ground (its weight then loads the slope).
+        Whether water may stand above the ground (its weight then loads the slope). Water
+        ponds at the level of the water line of the material at the ground surface; the head
+        of any unconfined line at a slice base is capped at that ponded level, or at the
+        ground where nothing ponds (solver.slicing, the ponding rule).
     base : ndarray (k, 2) or None
         [m] Impenetrable base that no slip surface may cross.
     materials, strata, water_lines, surcharges : tuples

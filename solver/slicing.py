@@ -20,6 +20,12 @@ Per slice (at the mid-point, on the chord between the surface points at the slic
   ``y_weight`` (the soil weight is also ``seismic_weight``, the weight kh acts on);
 * ponded water, when ``Section.pond`` is true and the (unconfined) water line of the material at
   the ground surface lies above it: its pressure acts normal to the ground on the slice top.
+  The ponding rule, one for every line: water stands on the ground only at the level of the
+  line of the material at the ground surface (the line in contact with it), and the free water
+  surface over a slice is that level where it ponds, else the ground. The head of any
+  unconfined line at a slice base is capped at the free water surface, so every head above
+  the ground is matched by ponded water at least as high (a buried layer's line drawn above
+  the ground without ponded water over it is artesian and must say so: ``confined``);
   Its vertical part, gamma_w * (mean depth) * width, is added to W; its horizontal part,
   gamma_w * (mean depth) * (rise of the ground across the slice in the direction of movement),
   is ``top_water_horizontal``, at the elevation ``y_top_water`` that makes the two parts
@@ -33,9 +39,9 @@ Per slice (at the mid-point, on the chord between the surface points at the slic
 
   - water line: u = gamma_w (h_line - y_base), times cos^2(theta) of the line's slope when the
     line has ``inclination_correction`` (Skempton and DeLory 1957), floored at 0 unless the line
-    has ``allow_suction``. A water line above the ground is taken at ground level unless the
-    section allows ponding (the excess head then also acts as ponded water on the ground) or
-    the line is ``confined`` (artesian: the full head acts at the base, nothing is ponded);
+    has ``allow_suction``. An unconfined line's head is capped at the free water surface (the
+    ground, or the ponded water over it: the ponding rule above); a ``confined`` line keeps its
+    full head above the ground (artesian: the full head acts at the base, nothing is ponded);
   - ru: u = ru * sigma_v, sigma_v = soil weight of the column / width (Bishop and Morgenstern
     1960);
   - undrained (total stress) and dry materials: u = 0;
@@ -811,6 +817,10 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices, weight_centroid
     seismic_weight = weight.copy()
     top_water_horizontal = np.zeros(xm.shape)
     y_top_water = y_top.copy()
+    # The free water surface over each slice: the ground, or the level of the ponded water
+    # where water ponds on it. No unconfined line's head at a base rises above it (the
+    # ponding rule of the module docstring).
+    free_surface = y_top
     if frame.pond:
         top_layer = np.zeros(xm.shape, dtype=np.intp)
         for e in boundary[1:]:
@@ -822,11 +832,13 @@ def _slice_table(frame: _Frame, surface, entry, exit_, n_slices, weight_centroid
         if ponds.any():
             weight, top_water_horizontal, y_top_water = _ponded_water(
                 frame, line, ponds, x_left, x_right, y_top, weight)
+            free_surface = np.where(
+                ponds, np.maximum(y_top, _level(levels, line, xm.shape)), y_top)
 
     material = np.maximum(base_material, 0)
     cohesion = frame.cohesion[material]
     tan_phi = frame.tan_phi[material]
-    pore = _pore_pressure(frame, xm, y_base, y_top, material, levels, stress)
+    pore = _pore_pressure(frame, xm, y_base, free_surface, material, levels, stress)
     if frame.undrained.any():
         undrained = frame.undrained[material]
         su = frame.su_0[material] + frame.su_gradient[material] * np.maximum(
@@ -915,19 +927,18 @@ def _level(levels, line_index, shape):
     return out
 
 
-def _pore_pressure(frame: _Frame, xm, y_base, y_top, material, levels, soil_stress):
+def _pore_pressure(frame: _Frame, xm, y_base, free_surface, material, levels, soil_stress):
     # One line number for every slice when all materials share a water line (the usual case).
     index = frame.water_index
     line = index[0] if index.min() == index.max() else index[material]
     head = _level(levels, line, xm.shape)
-    if not frame.pond or frame.line_confined.any():
-        # A line above the ground carries no excess head unless water may pond there or the
-        # line is the head of a confined aquifer.
-        keeps_head = frame.line_confined[line] | frame.pond
-        if np.ndim(keeps_head):
-            head = np.where(keeps_head, head, np.minimum(head, y_top))
-        elif not keeps_head:
-            head = np.minimum(head, y_top)
+    # An unconfined line's head stands no higher than the free water surface over the slice
+    # (the ground, or the ponded water on it); a confined line keeps its full head.
+    confined = frame.line_confined[line]
+    if np.ndim(confined):
+        head = np.where(confined, head, np.minimum(head, free_surface))
+    elif not confined:
+        head = np.minimum(head, free_surface)
     with np.errstate(invalid="ignore"):
         u = GAMMA_W * (head - y_base)
     if frame.line_correction.any():

@@ -95,6 +95,9 @@ def water_lines_for(
     line on both sides). It is clipped to the ground unless the section lets water pond
     (``[ground] pond``) or the line is confined (``confined = true`` on the section file's
     ``[[water_line]]``: a piezometric level in a confined layer may stand above the ground).
+    With ponding the line is drawn as read; the solver then applies the one ponding rule
+    (solver.slicing): water ponds at the level of the line of the material at the ground
+    surface, and an unconfined line's head counts up to that free water surface only.
 
     Maximum reading age of an instrument: its own ``max_age_hours``, else its line's
     ``max_age_hours``, else ``[ingest] stale_hours``.

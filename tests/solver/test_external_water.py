@@ -199,3 +199,52 @@ def test_confined_flag_round_trips_and_is_validated():
     with pytest.raises(SectionError, match="water_line 'aquifer': confined = 'yes' must be "
                                            "true or false"):
         section_from_dict(data)
+
+
+# ------------------------------------------------------------------------------------------
+# One ponding rule for every line
+
+
+def _ponded_artesian(top_level_at_toe, aquifer_head, confined=False):
+    """_artesian with ponding allowed and the clay's line ending at ``top_level_at_toe``."""
+    data = section_to_dict(_artesian(aquifer_head, confined))
+    data["ground"]["pond"] = True
+    data["water_line"][0]["points"] = [[0, 15], [40, top_level_at_toe], [70, top_level_at_toe]]
+    return section_from_dict(data)
+
+
+def test_a_buried_line_above_the_ground_keeps_no_head_without_water_ponded_over_it():
+    # The ponding rule (solver/slicing.py): water ponds at the level of the line of the
+    # material at the ground surface (the clay's, here at the ground at the toe: nothing
+    # ponds), and an unconfined line's head is capped at the free water surface. So the sand's
+    # head of 16 m counts only up to the ground, exactly as without ponding; before, the pond
+    # flag kept the full 16 m at the base with no water on the ground to match it.
+    ponded = slice_circles(_ponded_artesian(10.0, 16.0), 30.0, 30.0, 23.5, 60).slices
+    plain = slice_circles(_artesian(16.0, False), 30.0, 30.0, 23.5, 60).slices
+    sand = ponded.base_material[0] == 1
+    assert sand.any()
+    np.testing.assert_allclose(
+        ponded.pore_pressure[0, sand],
+        GAMMA_W * (np.minimum(16.0, ponded.y_top[0, sand]) - ponded.y_base[0, sand]),
+        rtol=1e-12)
+    np.testing.assert_allclose(ponded.pore_pressure, plain.pore_pressure, rtol=1e-12)
+    np.testing.assert_allclose(ponded.weight, plain.weight, rtol=1e-12)  # nothing ponded
+
+
+def test_a_buried_line_is_capped_at_the_level_of_the_ponded_water():
+    # The clay's line stands 2 m above the toe (12 m): water ponds to its level there, and
+    # the sand's unconfined head of 16 m counts up to that free surface, min(16, max(ground,
+    # clay line));
+    # the hydrostatic pressure under 2 m of ponded water (Duncan, Wright and Brandon 2014,
+    # ch. 6). A confined sand line keeps its 16 m.
+    ponded = slice_circles(_ponded_artesian(12.0, 16.0), 30.0, 30.0, 23.5, 60).slices
+    sand = ponded.base_material[0] == 1
+    x_mid = 0.5 * (ponded.x_left[0, sand] + ponded.x_right[0, sand])
+    surface = np.maximum(ponded.y_top[0, sand], np.interp(x_mid, [0, 40, 70], [15, 12, 12]))
+    np.testing.assert_allclose(
+        ponded.pore_pressure[0, sand],
+        GAMMA_W * (np.minimum(16.0, surface) - ponded.y_base[0, sand]), rtol=1e-12)
+    assert np.any(ponded.weight > ponded.seismic_weight)  # water ponded on the toe
+    confined = slice_circles(_ponded_artesian(12.0, 16.0, True), 30.0, 30.0, 23.5, 60).slices
+    np.testing.assert_allclose(confined.pore_pressure[0, sand],
+                               GAMMA_W * (16.0 - confined.y_base[0, sand]), rtol=1e-12)
