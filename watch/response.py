@@ -250,7 +250,11 @@ class ResponseModel:
             float(v) for v in pending_rain_mm)
         excess = float(head_m) - self.base_head_m
         if excess > 0.0 and self.gain_m_per_mm > 0.0:
-            return ResponseState(excess / self.gain_m_per_mm, pending, time_utc)
+            storage = excess / self.gain_m_per_mm
+            if not np.isfinite(storage):
+                raise ModelError(f"a head {excess:g} m above the base level needs more storage "
+                                 f"than a gain of {self.gain_m_per_mm:g} m/mm can hold")
+            return ResponseState(storage, pending, time_utc)
         return ResponseState(0.0, pending, time_utc, base_shift_m=excess)
 
     def simulate(self, rain, initial_state: ResponseState | None = None) -> Simulation:
