@@ -55,7 +55,7 @@ from watch.executors import InProcessExecutor, SectionExecutor, SectionFailure, 
 from watch.groundwater import rate_of_rise
 from watch.ingest import ingest
 from watch.parameters import current_section
-from watch.rainfall import event_exceedance, rain_record_reach, window_totals
+from watch.rainfall import DEFAULT_DRY_GAP_H, event_exceedance, rain_record_reach, window_totals
 from watch.store import Store, parse_utc_text, utc_text
 from watch.triggers import RAIN_CURVES, AlertSettings, SectionRule, alert_settings, section_gauge
 from watch.waterlines import section_with_lines, store_water_lines, water_lines_from_store
@@ -634,7 +634,7 @@ def _observe(store: Store, rule: SectionRule, calc: _Calculation, context: Secti
     if quantity == "rain_id_ratio":
         if _fresh(context, rule.instrument, gauges) is None:
             return None
-        return gauges.id_ratio(rule.instrument, rule.curve)
+        return gauges.id_ratio(rule.instrument, rule.curve, rule.dry_gap_hours)
     raise UserError(f"rule {rule.rule.name!r}: no way to observe quantity {quantity!r}")
 
 
@@ -670,7 +670,9 @@ def _rain_reach(settings: AlertSettings) -> pd.Timedelta:
     longest event their curves can be compared with (watch.rainfall.rain_record_reach)."""
     windows = [t.window_hours for t in settings.triggers if t.window_hours]
     curves = tuple(RAIN_CURVES[c] for c in sorted({t.curve for t in settings.triggers if t.curve}))
-    return rain_record_reach(curves, window_hours=windows)
+    gap = max([t.dry_gap_hours for t in settings.triggers if t.dry_gap_hours]
+              + [DEFAULT_DRY_GAP_H])  # fmt: skip
+    return rain_record_reach(curves, gap, window_hours=windows)
 
 
 def _fresh(context: SectionContext, gauge: str, gauges: "_GaugeRecords") -> pd.Series | None:
@@ -698,14 +700,15 @@ class _GaugeRecords:
             self._series[gauge] = _rain_series(self._store, gauge, self._at, self._reach)
         return self._series[gauge]
 
-    def id_ratio(self, gauge: str, curve) -> float | None:
+    def id_ratio(self, gauge: str, curve, dry_gap_h: float) -> float | None:
         """Ratio of the rain event under way at the gauge to the curve (0 with no event under
         way); None without rain records or when the event cannot be compared (outside the
         curve's durations, or starting before the record)."""
-        key = (gauge, curve)
+        key = (gauge, curve, dry_gap_h)
         if key not in self._ratios:
             rain = self.series(gauge)
-            ratio = None if rain is None or rain.empty else event_exceedance(rain, self._at, curve).ratio
+            ratio = (None if rain is None or rain.empty
+                     else event_exceedance(rain, self._at, curve, dry_gap_h).ratio)  # fmt: skip
             self._ratios[key] = ratio if ratio is not None and math.isfinite(ratio) else None
         return self._ratios[key]
 

@@ -22,7 +22,13 @@ from functools import cached_property
 from watch.alerts import Direction, TriggerRule
 from watch.config import Piezometer, SiteConfig, TableReader
 from watch.errors import ConfigError
-from watch.rainfall import CAINE_1980, GUZZETTI_2008_GLOBAL, IntensityDurationThreshold, gauge_for_section
+from watch.rainfall import (
+    CAINE_1980,
+    DEFAULT_DRY_GAP_H,
+    GUZZETTI_2008_GLOBAL,
+    IntensityDurationThreshold,
+    gauge_for_section,
+)
 
 __all__ = [
     "QUANTITIES",
@@ -100,6 +106,7 @@ class TriggerSpec:
     instrument: str | None = None
     window_hours: float | None = None
     curve: str | None = None
+    dry_gap_hours: float | None = None
 
 
 @dataclass(frozen=True)
@@ -112,6 +119,7 @@ class SectionRule:
     window_hours: float | None = None
     curve: IntensityDurationThreshold | None = None
     description: str = ""
+    dry_gap_hours: float = DEFAULT_DRY_GAP_H  # rain events end after this long without rain
 
 
 @dataclass(frozen=True)
@@ -300,7 +308,8 @@ def _trigger(r: TableReader, t: dict, i: int, levels: dict, sections: set, confi
     name = t.get("name")
     where = f"[[trigger]] {name!r}" if isinstance(name, str) else f"[[trigger]] #{i + 1}"
     r.keys(t, where, {"name", "section", "enabled", "quantity", "level", "trigger", "clear",
-                      "on_delay_hours", "off_delay_hours", "instrument", "window_hours", "curve"})
+                      "on_delay_hours", "off_delay_hours", "instrument", "window_hours", "curve",
+                      "dry_gap_hours"})
     name = r.get(t, where, "name", str)
     section = r.get(t, where, "section", str, default=None)
     if section is not None:
@@ -325,6 +334,9 @@ def _trigger(r: TableReader, t: dict, i: int, levels: dict, sections: set, confi
     curve = r.get(t, where, "curve", str, default=None)
     if curve is not None and curve not in RAIN_CURVES:
         r.fail(where, "curve", f"must be one of {', '.join(RAIN_CURVES)}; got {curve!r}")
+    gap = r.number(t, where, "dry_gap_hours", default=None)
+    if gap is not None and gap <= 0:
+        r.fail(where, "dry_gap_hours", f"must be > 0, got {gap}")
     delays = {}
     for key in ("on_delay_hours", "off_delay_hours"):
         hours = r.number(t, where, key, default=None)
@@ -337,7 +349,7 @@ def _trigger(r: TableReader, t: dict, i: int, levels: dict, sections: set, confi
         clear=r.number(t, where, "clear", default=None),
         on_delay=None if delays["on_delay_hours"] is None else timedelta(hours=delays["on_delay_hours"]),
         off_delay=None if delays["off_delay_hours"] is None else timedelta(hours=delays["off_delay_hours"]),
-        instrument=instrument, window_hours=window, curve=curve,
+        instrument=instrument, window_hours=window, curve=curve, dry_gap_hours=gap,
     )  # fmt: skip
 
 
@@ -346,7 +358,7 @@ def _merged(base: TriggerSpec | None, spec: TriggerSpec, source: str) -> Trigger
     complete (the state-machine rule itself checks the deadband)."""
     values = {}
     for key in ("quantity", "level", "trigger", "clear", "on_delay", "off_delay", "instrument",
-                "window_hours", "curve"):
+                "window_hours", "curve", "dry_gap_hours"):
         own = getattr(spec, key)
         values[key] = own if own is not None else (getattr(base, key) if base else None)
     merged = TriggerSpec(name=spec.name, section=spec.section, enabled=spec.enabled,
@@ -379,18 +391,21 @@ def _section_rule(spec: TriggerSpec, level: Level, instrument: str | None, sourc
     except ConfigError as error:
         raise ConfigError(f"{source}: {error}") from None
     window = f"{spec.window_hours:g} h" if spec.window_hours else ""
+    gap = DEFAULT_DRY_GAP_H if spec.dry_gap_hours is None else spec.dry_gap_hours
     what = {
         "fos": "factor of safety",
         "head_m": f"piezometric head at {instrument}",
         "rise_m_per_h": f"rise of head at {instrument} over {window}",
         "rain_mm": f"rain at {instrument} over {window}",
-        "rain_id_ratio": f"rain event at {instrument} against the {spec.curve} intensity-duration curve",
+        "rain_id_ratio": f"rain event at {instrument} (ended by {gap:g} h dry) against the "
+                         f"{spec.curve} intensity-duration curve",
     }[spec.quantity]
     side = "at or below" if direction is Direction.BELOW else "at or above"
     return SectionRule(
         rule, "level", instrument, spec.window_hours,
         RAIN_CURVES.get(spec.curve) if spec.curve else None,
         description=f"{what} {side} {spec.trigger:g} {unit}".rstrip(" -"),
+        dry_gap_hours=gap,
     )
 
 

@@ -72,6 +72,20 @@ def test_delays_are_read_in_hours():
     assert rule.on_delay == timedelta(hours=2.5)
 
 
+def test_rain_event_rules_carry_their_dry_gap():
+    # The demo's rain-caine rule sets 12 h; a rule without the key takes the default 48 h
+    # (Brunetti et al. 2010, from memory: watch.rainfall.DEFAULT_DRY_GAP_H).
+    config, settings = _settings(_demo())
+    rules = {r.rule.name: r for r in settings.rules_for(config, "WC-040")}
+    assert rules["rain-caine"].dry_gap_hours == 12.0
+    assert "ended by 12 h dry" in rules["rain-caine"].description
+    data = _demo()
+    next(t for t in data["trigger"] if t["name"] == "rain-caine").pop("dry_gap_hours")
+    config, settings = _settings(data)
+    rules = {r.rule.name: r for r in settings.rules_for(config, "WC-040")}
+    assert rules["rain-caine"].dry_gap_hours == 48.0
+
+
 @pytest.mark.parametrize(
     "change, message",
     [
@@ -88,6 +102,7 @@ def test_delays_are_read_in_hours():
         (lambda d: d["data_alerts"].update(stale_clear_hours=7.0), r"stale_clear_hours' must be >= 0 and below"),
         (lambda d: d["cycle"].update(full_search_every_hours=0), r"full_search_every_hours' must be > 0"),
         (lambda d: d["trigger"][0].update(colour="amber"), r"key 'colour' is unknown"),
+        (lambda d: d["trigger"][3].update(dry_gap_hours=0), r"'dry_gap_hours' must be > 0, got 0"),
     ],
 )
 def test_bad_trigger_configuration_names_the_key(change, message):
