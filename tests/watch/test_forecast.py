@@ -280,3 +280,36 @@ def test_short_or_absent_records_say_what_they_need(tmp_path):
         assert result.exit_code == 0, result.output
         (row,) = json.loads(result.output)
         assert not row["usable"] and "gauge RG has no report in the 90 days" in row["reason"]
+
+
+def test_a_forecast_from_a_head_below_the_base_level_does_not_rise_without_rain(tmp_path):
+    # Issue 16's reproduction end to end: the last reading lies below the calibrated base
+    # level h0 = 12 m (the generating model's, tests/watch/groundwater_site.py). With no rain
+    # the forecast holds that head (start storage floored at zero, base lowered to the head)
+    # instead of rising towards h0; a storm adds the response of an empty reservoir, the
+    # geometric series G p (1 - a^T) / (1 - a) with a = exp(-dt / tau).
+    from watch.ingest import ingest
+
+    fresh = make_site(tmp_path)
+    config = fresh.workspace.config()
+    with fresh.workspace.open_store() as store:
+        (calibration,) = calibrate_response_models(store, config, fresh.times[-1], days=28)
+    low = fresh.times[-1] + pd.Timedelta(hours=1)
+    extra = tmp_path / "logger_low.csv"
+    extra.write_text(f"time,P1 head (m),Rain (mm)\n{low:%Y-%m-%dT%H:%M:%SZ},11.000000,0.0\n",
+                     encoding="utf-8")
+    ingest(fresh.workspace, [extra], now=(low + pd.Timedelta(days=1)).to_pydatetime(),
+           progress=False)
+    model = calibration.fit.model
+    assert model.base_head_m > 11.5
+    with fresh.workspace.open_store(read_only=True) as store:
+        dry = forecast_storm(fresh.workspace, store, config, "S1", 0.0, 24.0, low,
+                             horizon_h=72.0)
+        wet = forecast_storm(fresh.workspace, store, config, "S1", 24.0, 24.0, low,
+                             horizon_h=72.0)
+    (p1,) = dry.instruments
+    np.testing.assert_allclose(p1.head_m, 11.0, atol=1e-9)
+    a = np.exp(-model.step_h / model.recession_h)
+    (p1,) = wet.instruments
+    assert p1.peak_head_m == pytest.approx(
+        11.0 + model.gain_m_per_mm * 1.0 * (1 - a**24) / (1 - a), rel=1e-9)
