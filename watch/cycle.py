@@ -666,9 +666,10 @@ def _rain_series(store: Store, gauge: str, at: datetime, reach: pd.Timedelta) ->
 
 
 def _rain_reach(settings: AlertSettings) -> pd.Timedelta:
-    """How far back the cycle reads each gauge: every rain window of the site's rules and the
-    longest event their curves can be compared with (watch.rainfall.rain_record_reach)."""
-    windows = [t.window_hours for t in settings.triggers if t.window_hours]
+    """How far back the cycle reads each gauge: the 24 h and 7 days the messages quote, every
+    rain window of the site's rules and the longest event their curves can be compared with
+    (watch.rainfall.rain_record_reach)."""
+    windows = [24.0, 168.0] + [t.window_hours for t in settings.triggers if t.window_hours]
     curves = tuple(RAIN_CURVES[c] for c in sorted({t.curve for t in settings.triggers if t.curve}))
     gap = max([t.dry_gap_hours for t in settings.triggers if t.dry_gap_hours]
               + [DEFAULT_DRY_GAP_H])  # fmt: skip

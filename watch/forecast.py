@@ -347,7 +347,8 @@ def rainfall_state(
         window, or the longest curve duration plus the dry gap).
     """
     at = _utc(at)
-    reach = rain_record_reach(thresholds, dry_gap_h)
+    reach = rain_record_reach(thresholds, dry_gap_h,
+                              [w / pd.Timedelta(hours=1) for w in DEFAULT_WINDOWS.values()])
     rows = _rain_rows(store, gauge_id, at - reach, at)
     good = rows[rows["ok"]]
     if good.empty:

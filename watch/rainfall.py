@@ -507,12 +507,11 @@ def rain_record_reach(
     dry_gap_h: float = DEFAULT_DRY_GAP_H,
     window_hours: Sequence[float] = (),
 ) -> pd.Timedelta:
-    """How far back a rain record must reach to give every window total of
-    :data:`DEFAULT_WINDOWS` and ``window_hours`` [h], and to place the start of any event the
-    curves ``thresholds`` can be compared with (their longest duration plus the dry gap before
-    it), plus one day for the first report's interval."""
-    hours = [w / pd.Timedelta(hours=1) for w in DEFAULT_WINDOWS.values()]
-    hours += [float(h) for h in window_hours]
+    """How far back a rain record must reach to give the window totals of ``window_hours``
+    [h] and to place the start of any event the curves ``thresholds`` can be compared with
+    (their longest duration plus the dry gap before it), plus one day for the first report's
+    interval."""
+    hours = [0.0] + [float(h) for h in window_hours]
     hours += [t.d_max_h + float(dry_gap_h) for t in thresholds]
     return pd.Timedelta(hours=max(hours)) + pd.Timedelta(days=1)
 

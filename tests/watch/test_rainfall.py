@@ -283,3 +283,12 @@ def test_window_totals_match_the_definition_whatever_the_time_unit(unit):
             expected = (_brute_total(rain, end, length)
                         if end - length >= index[0] - pd.Timedelta(minutes=15) else np.nan)
             np.testing.assert_allclose(rain_total(rain, end, d), expected, rtol=1e-9, atol=1e-9)
+
+
+def test_rain_record_reach_covers_the_longest_event_and_window():
+    # Caine (1980) is drawn up to 10 days: an event of 240 h needs the 48 h dry gap before it
+    # on record, plus a day for the first report's interval.
+    from watch.rainfall import rain_record_reach
+
+    assert rain_record_reach((CAINE_1980,), 48.0, [24.0]) == pd.Timedelta(hours=240 + 48 + 24)
+    assert rain_record_reach((), 48.0, [720.0]) == pd.Timedelta(hours=720 + 24)
