@@ -2,9 +2,8 @@
 that takes a slope to a trigger level: the service side of :mod:`watch.rainfall` and
 :mod:`watch.response`.
 
-* :func:`rainfall_state`: moving totals, intensity, antecedent rainfall and the worst
-  intensity-duration exceedance of one gauge at one time, from the store (for rainfall
-  triggers).
+* :func:`rainfall_state`: moving totals, intensity, antecedent rainfall and the rain event
+  under way against the intensity-duration curves, of one gauge at one time, from the store.
 * :func:`calibrate_response_models`: fit each piezometer's rainfall-to-head model on its stored
   history (heads and rain resampled to a regular grid) and store the fit. Models are stored,
   not recomputed on demand: a calibration reads weeks of readings and runs a least-squares fit
