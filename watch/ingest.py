@@ -44,7 +44,8 @@ from watch.store import Store, parse_utc_text, utc_text
 from watch.text import printable
 from watch.workspace import Workspace
 
-__all__ = ["FileSummary", "IngestReport", "ingest", "reconcile", "TEMPORARY_SUFFIXES"]
+__all__ = ["FileSummary", "IngestReport", "ingest", "reconcile", "record_first_look", "TEMPORARY_SUFFIXES",
+           "SIGHTINGS_FILE"]
 
 #: Names that loggers and copy tools use while a file is still being written.
 TEMPORARY_SUFFIXES = (".tmp", ".part", ".partial", ".filepart", ".crdownload", ".temp", "~")
@@ -62,7 +63,7 @@ _REASON_FILE_ROWS = 20
 #: into incoming/ for the next pass instead of being rejected.
 _STORE_OR_DISK_ERRORS = (sqlite3.Error, StoreError, OSError)
 
-#: First looks at the files waiting in incoming/ (name -> size, mtime, inode, when seen), kept
+#: First looks at the files waiting in incoming/ (name -> size, mtime, when seen), kept
 #: between passes in the workspace: a file is taken once it has not changed for
 #: ``min_file_age_seconds`` of the ingest's clock.
 SIGHTINGS_FILE = ".ingest-sightings.json"
@@ -204,12 +205,12 @@ def _claim_waiting(workspace: Workspace, config: SiteConfig, now: datetime, repo
         marker = path.with_name(name + done) if done else None
         marked = marker is not None and marker.is_file() and not marker.is_symlink()
         if not marked:
-            look = [info.st_size, info.st_mtime_ns, info.st_ino]
+            look = [info.st_size, info.st_mtime_ns]
             first = first_looks.get(name)
-            if first is None or first[:3] != look:
+            if first is None or first[:2] != look:
                 first = [*look, utc_text(now)]
             looks[name] = first
-            unchanged = (now - parse_utc_text(first[3])).total_seconds()
+            unchanged = (now - parse_utc_text(first[2])).total_seconds()
             if unchanged < settings.min_file_age_seconds:
                 report.waiting.append(f"{name} (unchanged for {max(unchanged, 0):.0f} s of the "
                                       f"{settings.min_file_age_seconds:g} s of min_file_age_seconds)")  # fmt: skip
@@ -227,7 +228,7 @@ def _claim_waiting(workspace: Workspace, config: SiteConfig, now: datetime, repo
         except FileNotFoundError:  # taken by someone else between listing and claiming
             continue
         after = os.lstat(target)
-        if (after.st_size, after.st_mtime_ns, after.st_ino) != (info.st_size, info.st_mtime_ns, info.st_ino):
+        if (after.st_size, after.st_mtime_ns) != (info.st_size, info.st_mtime_ns) or not stat.S_ISREG(after.st_mode):
             _move_no_clobber(target, workspace.incoming, name)
             report.waiting.append(f"{name} (still growing)")
             continue
@@ -255,6 +256,16 @@ def _refuse(workspace: Workspace, path: Path, info: os.stat_result) -> FileSumma
     destination = _move_no_clobber(path, workspace.rejected, path.name)
     _write_reason(destination, reason, [], 0)
     return FileSummary(path.name, "refused", reason=reason, archived_as=_relative(workspace, destination))
+
+
+def record_first_look(workspace: Workspace, name: str, seen: datetime) -> None:
+    """Record that the file ``incoming/NAME`` was looked at, as it is now, at ``seen``: as if
+    an ingest pass had seen it then. For replays that deliver a logger's files after the fact,
+    and for tests."""
+    info = os.lstat(workspace.incoming / name)
+    looks = _load_sightings(workspace)
+    looks[name] = [info.st_size, info.st_mtime_ns, utc_text(seen)]
+    _save_sightings(workspace, looks)
 
 
 def _load_sightings(workspace: Workspace) -> dict[str, list]:

@@ -150,10 +150,9 @@ def test_a_duplicate_delivery_changes_nothing(tmp_path):
     shutil.copy(workspace.processed / "wendlecombe_2026-01_d001.csv", tmp_path / "again.csv")
     resent = workspace.incoming / "wendlecombe_2026-01_resent.csv"
     shutil.copy(tmp_path / "again.csv", resent)
-    import os
-    import time
-
-    os.utime(resent, (time.time() - 3600, time.time() - 3600))
+    clock.advance(timedelta(minutes=5))
+    first = run_cycle(workspace, clock, sections=["WC-040"])  # first look: it waits
+    assert first.files == [] and resent.exists()
     clock.advance(timedelta(minutes=5))
     report = run_cycle(workspace, clock, sections=["WC-040"])
     assert any("already ingested" in line for line in report.files)
