@@ -27,6 +27,7 @@ from __future__ import annotations
 import codecs
 import csv
 import io
+import re
 import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass, field
@@ -40,7 +41,7 @@ from watch.errors import FeedError
 
 __all__ = [
     "RowProblem", "FeedChunk", "FeedReader", "READING_COLUMNS", "BLOCK_BYTES", "MAX_ROW_BYTES",
-    "RAW_TEXT_CHARS", "open_feed_bytes", "bounded_lines", "clipped",
+    "RAW_TEXT_CHARS", "open_feed_bytes", "bounded_lines", "clipped", "wide_encoding",
 ]  # fmt: skip
 
 #: Bytes read per block; bounds memory independently of the file size.
@@ -87,10 +88,16 @@ class FeedChunk:
     bytes_read: int = 0
 
 
+_CUT = re.compile(r"\.\.\. \[cut: \d+ characters in all\]\Z")
+
+
 def clipped(text: str | None, limit: int = RAW_TEXT_CHARS) -> str | None:
     """``text`` cut to ``limit`` characters, saying how long it was (raw texts kept of
     rejected rows)."""
     if text is None or len(text) <= limit:
+        return text
+    cut = _CUT.search(text)
+    if cut is not None and cut.start() <= limit:  # cut already
         return text
     return f"{text[:limit]}... [cut: {len(text)} characters in all]"
 
@@ -126,6 +133,12 @@ class _LineFeedsForCarriageReturns(io.RawIOBase):
         super().close()
 
 
+def wide_encoding(head: bytes) -> str | None:
+    """The name of the UTF-16 or UTF-32 encoding whose byte-order mark begins ``head``, or
+    None."""
+    return next((name for mark, name in _WIDE_BOMS if head.startswith(mark)), None)
+
+
 def open_feed_bytes(path: Path):
     """Open a feed file for reading as bytes, the way every reader of feed files must.
 
@@ -136,13 +149,14 @@ def open_feed_bytes(path: Path):
     handle = open(path, "rb")  # noqa: SIM115 - returned to the caller, who closes it
     try:
         head = handle.read(BLOCK_BYTES)
-        for mark, name in _WIDE_BOMS:
-            if head.startswith(mark):
-                raise FeedError(
-                    f"{path.name}: the file is encoded as {name} (byte-order mark "
-                    f"{mark.hex(' ').upper()}); slipwatch reads feeds in one-byte encodings: save "
-                    "it as UTF-8 (or set the feed's encoding) and deliver it again"
-                )
+        name = wide_encoding(head)
+        if name is not None:
+            mark = next(mark for mark, n in _WIDE_BOMS if n == name)
+            raise FeedError(
+                f"{path.name}: the file is encoded as {name} (byte-order mark "
+                f"{mark.hex(' ').upper()}); slipwatch reads feeds in one-byte encodings: save "
+                "it as UTF-8 (or set the feed's encoding) and deliver it again"
+            )
         handle.seek(0)
         if b"\r" in head and b"\n" not in head:
             return io.BufferedReader(_LineFeedsForCarriageReturns(handle))

@@ -38,7 +38,7 @@ from tqdm import tqdm
 
 from watch.config import Piezometer, SiteConfig
 from watch.errors import FeedError, StoreError, UserError, WorkspaceError
-from watch.feeds import FeedReader, RowProblem, bounded_lines, clipped, open_feed_bytes
+from watch.feeds import FeedReader, RowProblem, bounded_lines, clipped, open_feed_bytes, wide_encoding
 from watch.quality import Previous, assess_piezometer, assess_rain_gauge, time_window_problems
 from watch.store import Store, parse_utc_text, utc_text
 from watch.text import printable
@@ -239,9 +239,13 @@ def _claim_waiting(workspace: Workspace, config: SiteConfig, now: datetime, repo
 
 
 def _ends_with_line_end(path: Path, size: int) -> bool:
+    """Whether the file's last byte ends a line; a UTF-16/32 file counts as ended (its
+    encoding is refused when it is read, whatever its end)."""
     if size == 0:
         return False
     with path.open("rb") as handle:
+        if wide_encoding(handle.read(4)) is not None:
+            return True
         handle.seek(size - 1)
         return handle.read(1) in (b"\n", b"\r")
 

@@ -14,7 +14,7 @@ import pytest
 from solver.search import SearchSettings
 from watch.analysis import analyse
 from watch.clock import ManualClock
-from watch.cycle import replay_season, run_cycle, search_from_json, search_to_json
+from watch.cycle import SectionResult, replay_season, run_cycle, search_from_json, search_to_json
 from watch.errors import UserError
 from watch.sections import load_section
 from tests.watch.cycle_helpers import announced_alarms, make_workspace
@@ -234,3 +234,70 @@ def test_a_cycle_reads_the_site_file_once_however_many_sections_are_new(tmp_path
     with workspace.open_store(read_only=True) as store:
         assert store.conn.execute("SELECT COUNT(*) FROM section_versions").fetchone()[0] == 4
     assert len(reads) == 1
+
+
+# --- the watch keeps going when something fails (issue 14) ---------------------------------------
+
+
+def _stand_in(task):
+    """A calculation that always fails, in place of the real one (the test is about what the
+    cycle does with a failure, not about the factor of safety)."""
+    return SectionResult(task.section_id, "failed", message="stand-in failure")
+
+
+def test_a_failed_ingest_raises_the_site_alert_notified_like_any_other_and_the_cycle_goes_on(tmp_path,
+                                                                                              monkeypatch):  # fmt: skip
+    import watch.cycle
+
+    workspace = make_workspace(tmp_path / "ws")
+    clock = ManualClock(START)
+
+    def broken_ingest(*args, **kwargs):
+        raise RuntimeError("stand-in for an ingest bug")
+
+    monkeypatch.setattr(watch.cycle, "ingest", broken_ingest)
+    report = run_cycle(workspace, clock, sections=["WC-040"], compute=_stand_in)
+    assert report.ingest_failures == ["the ingest failed: RuntimeError: stand-in for an ingest bug"]
+    assert [s.status for s in report.sections] == ["failed"] and not report.ok
+    assert report.site_changes == ["data-ingest: inactive -> pending at 1", "data-ingest: pending -> firing at 1"]
+    with workspace.open_store(read_only=True) as store:
+        (row,) = [r for r in store.outbox() if r["section_id"] == "(site)"]
+    assert (row["kind"], row["level"], row["idempotency_key"]) == ("data", "data", "(site)/data-ingest/1/data")
+    assert "What failed: the ingest failed: RuntimeError: stand-in for an ingest bug." in row["body"]
+    assert "the watch itself is failing" in row["body"]
+    monkeypatch.undo()
+    clock.advance(STEP)
+    again = run_cycle(workspace, clock, sections=["WC-040"], compute=_stand_in)
+    assert again.ingest_failures == [] and again.site_changes == ["data-ingest: firing -> resolved at 0"]
+
+
+def test_an_unforeseen_error_preparing_one_section_fails_that_section_only(tmp_path, monkeypatch):
+    import watch.cycle
+
+    workspace = make_workspace(tmp_path / "ws")
+    real = watch.cycle.water_lines_from_store
+
+    def breaks_for_wc040(store, section, config, at):
+        if section.id == "WC-040":
+            raise KeyError("stand-in for a bug")
+        return real(store, section, config, at)
+
+    monkeypatch.setattr(watch.cycle, "water_lines_from_store", breaks_for_wc040)
+    report = run_cycle(workspace, ManualClock(START), sections=["WC-040", "WC-060"], compute=_stand_in)
+    first, second = report.sections
+    assert first.status == "failed" and "unexpected error KeyError" in first.message
+    assert second.message == "stand-in failure"  # it was prepared and calculated
+    assert "data-assessment: pending -> firing at 1" in first.changes
+
+
+def test_assess_exits_non_zero_when_a_section_failed(tmp_path, monkeypatch):
+    import watch.cycle
+    from click.testing import CliRunner
+
+    from watch.cli import main
+
+    workspace = make_workspace(tmp_path / "ws")
+    monkeypatch.setattr(watch.cycle, "compute_section", _stand_in)
+    result = CliRunner().invoke(main, ["assess", "--section", "WC-040", "-w", str(workspace.root)])
+    assert result.exit_code == 1
+    assert "WC-040: failed" in result.output and "something failed in this cycle" in result.output
