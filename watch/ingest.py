@@ -143,6 +143,8 @@ def ingest(workspace: Workspace, files: list[Path | str] | None = None, now: dat
                 claims = [_claim_named(workspace, Path(f)) for f in files]
             else:
                 claims = _claim_waiting(workspace, config, now, report)
+            for refused in report.files if echo else ():
+                echo(refused.line())
             for claim in claims:
                 summary = _ingest_one(workspace, store, config, claim, now, progress)
                 report.files.append(summary)
@@ -156,13 +158,14 @@ def ingest(workspace: Workspace, files: list[Path | str] | None = None, now: dat
 def _ingest_one(workspace: Workspace, store: Store, config: SiteConfig, claim: _Claim, now: datetime,
                 progress: bool) -> FileSummary:  # fmt: skip
     """Ingest one claimed file whatever happens: should the store or the disk fail, the file
-    is back in incoming/ for the next pass and the summary says ``failed``; the other files
-    are still ingested."""
+    is left for the next pass (back in incoming/, or claimed for the next ingest to settle when
+    its record was committed) and the summary says ``failed``; the other files are still
+    ingested."""
     try:
         return _ingest_claimed(workspace, store, config, claim, now, progress)
     except _STORE_OR_DISK_ERRORS as error:
         return FileSummary(claim.name, "failed", reason=f"could not be ingested ({type(error).__name__}: {error}); "
-                                                        "left in incoming/ for the next pass")  # fmt: skip
+                                                        "left for the next pass")  # fmt: skip
 
 
 # --- claiming -------------------------------------------------------------------------------------
