@@ -438,18 +438,21 @@ def _load(store: Store, config: SiteConfig, reader: FeedReader, file_id: int, no
         total=reader.size, unit="B", unit_scale=True, desc=reader.path.name, leave=False,
         disable=True if not progress or reader.size < _PROGRESS_MIN_BYTES else None,
     )  # fmt: skip
+    conflicted: set[tuple[str, str]] = set()  # (instrument, time) given by the file with different values
     with bar:
         for chunk in reader.chunks():
             bar.update(chunk.bytes_read)
             summary.missing += chunk.missing
             pending = list(chunk.problems)
-            _load_block(store, config, chunk.readings, file_id, now, summary, pending)
+            _load_block(store, config, chunk.readings, file_id, now, summary, pending, conflicted)
             _flush_problems(store, file_id, pending, problems, summary)
 
 
 def _load_block(store: Store, config: SiteConfig, rows: pd.DataFrame, file_id: int, now: datetime,
-                summary: FileSummary, problems: list[RowProblem]) -> None:  # fmt: skip
-    """Check and insert the readings of one block; its rejected rows go to ``problems``."""
+                summary: FileSummary, problems: list[RowProblem], conflicted: set[tuple[str, str]]) -> None:  # fmt: skip
+    """Check and insert the readings of one block; its rejected rows go to ``problems``.
+    ``conflicted``: the keys the file gave earlier with different values (none is stored;
+    updated here)."""
     instruments = config.instruments
     if len(rows) == 0:
         return
@@ -461,7 +464,15 @@ def _load_block(store: Store, config: SiteConfig, rows: pd.DataFrame, file_id: i
     for line, iid, reason in zip(rows["line"].to_numpy()[~in_window], rows["instrument_id"].to_numpy()[~in_window],
                                  reasons[~in_window]):  # fmt: skip
         problems.append(RowProblem(int(line), None, reason, iid))
-    rows = _settle_repeats(rows[in_window], summary, problems)
+    rows = rows[in_window]
+    if conflicted and len(rows):
+        keys = list(zip(rows["instrument_id"], _utc_text(rows["time_utc"].to_numpy())))
+        again = np.array([key in conflicted for key in keys], dtype=bool)
+        for (iid, when), line in zip([k for k, hit in zip(keys, again) if hit], rows["line"].to_numpy()[again]):
+            problems.append(RowProblem(int(line), None, f"{iid} at {when} is given more than once in this file "
+                                                        "with different values: none of them is stored", iid))  # fmt: skip
+        rows = rows[~again]
+    rows = _settle_repeats(rows, summary, problems, conflicted)
     piezometer_parts, rain_parts = [], []
     for iid, group in rows.groupby("instrument_id", sort=False):
         group = group.sort_values("time_utc", kind="stable")
@@ -476,10 +487,11 @@ def _load_block(store: Store, config: SiteConfig, rows: pd.DataFrame, file_id: i
             rain_parts.append(assess_rain_gauge(group, instrument, store.previous_rain_total(iid, first)))
     for table, parts in (("readings", piezometer_parts), ("rainfall", rain_parts)):
         if parts:
-            _insert(store, table, pd.concat(parts, ignore_index=True), file_id, summary, problems)
+            _insert(store, table, pd.concat(parts, ignore_index=True), file_id, summary, problems, conflicted)
 
 
-def _settle_repeats(rows: pd.DataFrame, summary: FileSummary, problems: list[RowProblem]) -> pd.DataFrame:
+def _settle_repeats(rows: pd.DataFrame, summary: FileSummary, problems: list[RowProblem],
+                    conflicted: set[tuple[str, str]]) -> pd.DataFrame:  # fmt: skip
     """Rows of one block that give the same instrument and time more than once: when they are
     identical, the first is kept and the others count as duplicates; when their values differ,
     none can be trusted over the others and every one of them is rejected."""
@@ -494,7 +506,9 @@ def _settle_repeats(rows: pd.DataFrame, summary: FileSummary, problems: list[Row
     for (iid, when), rows_of_key in group[differing].groupby(key, sort=False):
         lines = rows_of_key["line"].tolist()
         shown = ", ".join(f"{v:g}" for v in rows_of_key["raw_value"].drop_duplicates())
-        reason = (f"{iid} at {_utc_text(np.array([np.datetime64(when, 's')]))[0]} is given {len(lines)} times in this file with "
+        when = _utc_text(np.array([np.datetime64(when, "s")]))[0]
+        conflicted.add((iid, when))
+        reason = (f"{iid} at {when} is given {len(lines)} times in this file with "
                   f"different values ({shown}; lines {', '.join(map(str, lines))}): none of them is stored")  # fmt: skip
         problems.extend(RowProblem(int(line), None, reason, iid) for line in lines)
     drop = np.zeros(len(rows), dtype=bool)
@@ -516,7 +530,7 @@ def _flush_problems(store: Store, file_id: int, pending: list[RowProblem], kept:
 
 
 def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary: FileSummary,
-            problems: list[RowProblem]) -> None:  # fmt: skip
+            problems: list[RowProblem], conflicted: set[tuple[str, str]]) -> None:  # fmt: skip
     ids = rows["instrument_id"].to_numpy(dtype=object)
     times = _utc_text(rows["time_utc"].to_numpy())
     lines = rows["line"].to_numpy(dtype=np.int64)
@@ -558,6 +572,7 @@ def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary:
         if r.stored_file_id == file_id:
             # Given twice by this file with different values (in different blocks): neither is
             # stored, as within one block (_settle_repeats).
+            conflicted.add((r.instrument_id, r.time_utc))
             quality = store.discard_reading(table, r.instrument_id, r.time_utc, file_id)
             if quality is not None:
                 summary.accepted -= 1

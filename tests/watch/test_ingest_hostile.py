@@ -147,11 +147,13 @@ def test_repeated_rows_with_different_values_are_all_rejected_with_line_and_reas
 def test_repeated_rows_in_different_blocks_of_a_file_are_all_rejected(workspace, monkeypatch):
     # Blocks of 64 bytes: the two rows of PA at 00:00 are read in different blocks.
     monkeypatch.setattr(watch.ingest, "FeedReader", functools.partial(watch.feeds.FeedReader, block_bytes=64))
-    deliver(workspace, "long_far.csv", HEADER + row(0) + row(15) + row(30) + row(45) + row(0, value="7,0"))
+    text = HEADER + row(0) + row(15) + row(30) + row(45) + row(0, value="7,0") + row(60) + row(0) + row(75)
+    deliver(workspace, "long_far.csv", text)
     (summary,) = ingest(workspace, now=NOW, progress=False).files
-    assert (summary.accepted, summary.duplicates, summary.rejected) == (3, 0, 2)
-    assert query(workspace, "SELECT source_line FROM readings ORDER BY source_line") == [(3,), (4,), (5,)]
-    assert query(workspace, "SELECT line FROM rejected_rows ORDER BY line") == [(2,), (6,)]
+    assert (summary.accepted, summary.duplicates, summary.rejected) == (5, 0, 3)
+    assert query(workspace, "SELECT source_line FROM readings ORDER BY source_line") == [(3,), (4,), (5,), (7,), (9,)]
+    # The third row of the key agrees with the first, but the file gave two values for it.
+    assert query(workspace, "SELECT line FROM rejected_rows ORDER BY line") == [(2,), (6,), (8,)]
 
 
 def test_an_unforeseen_error_rejects_that_file_only_and_the_ingest_exits_non_zero(workspace, monkeypatch):
