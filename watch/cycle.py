@@ -49,7 +49,7 @@ from watch.alerting import SectionContext, last_evaluations, process_section_ale
 from watch.analysis import analyse, surface_of
 from watch.clock import Clock, ManualClock
 from watch.config import SiteConfig
-from watch.errors import UserError
+from watch.errors import BusyError, UserError
 from watch.executors import InProcessExecutor, SectionExecutor, SectionFailure, executor_for
 from watch.ingest import ingest, record_first_look
 from watch.parameters import current_section
@@ -201,9 +201,13 @@ def run_cycle(
     if at > now:
         raise UserError(f"cannot assess {utc_text(at)}: it is later than now ({utc_text(now)})")
     report = CycleReport(at=at, started=now)
+    ingest_ran = ingest_waiting
     if ingest_waiting:
         try:
             ingested = ingest(workspace, now=now, progress=False)
+        except BusyError as error:  # another ingest is at it: the files wait for it or the next cycle
+            report.files = [printable(f"ingest left to the one running: {error}")]
+            ingest_ran = False
         except Exception as error:  # noqa: BLE001 - a failed ingest must not stop the assessment
             report.ingest_failures = [printable(f"the ingest failed: {type(error).__name__}: {error}")]
         else:
@@ -228,7 +232,7 @@ def run_cycle(
         finally:
             if owned:
                 executor.close()
-        if ingest_waiting:
+        if ingest_ran:
             with store.atomic():
                 _record_site_alerts(store, config, settings, report, now)
         report.executor = executor.describe()

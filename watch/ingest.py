@@ -37,7 +37,7 @@ import pandas as pd
 from tqdm import tqdm
 
 from watch.config import Piezometer, SiteConfig
-from watch.errors import FeedError, StoreError, UserError, WorkspaceError
+from watch.errors import BusyError, FeedError, StoreError, UserError, WorkspaceError
 from watch.feeds import FeedReader, RowProblem, bounded_lines, clipped, open_feed_bytes, wide_encoding
 from watch.quality import Previous, assess_piezometer, assess_rain_gauge, time_window_problems
 from watch.store import Store, parse_utc_text, utc_text
@@ -753,7 +753,7 @@ class _IngestLock:
         except OSError as error:
             self.handle.close()
             if error.errno in (errno.EAGAIN, errno.EACCES):
-                raise WorkspaceError(
+                raise BusyError(
                     f"another ingest is running in {self.path.parent} (lock {self.path.name}); "
                     "wait for it to finish"
                 ) from None

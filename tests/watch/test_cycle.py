@@ -301,3 +301,17 @@ def test_assess_exits_non_zero_when_a_section_failed(tmp_path, monkeypatch):
     result = CliRunner().invoke(main, ["assess", "--section", "WC-040", "-w", str(workspace.root)])
     assert result.exit_code == 1
     assert "WC-040: failed" in result.output and "something failed in this cycle" in result.output
+
+
+def test_an_ingest_busy_elsewhere_is_no_failure(tmp_path, monkeypatch):
+    import watch.cycle
+    from watch.errors import BusyError
+
+    def busy(*args, **kwargs):
+        raise BusyError("another ingest is running in ws (lock .ingest.lock); wait for it to finish")
+
+    monkeypatch.setattr(watch.cycle, "ingest", busy)
+    report = run_cycle(make_workspace(tmp_path / "ws"), ManualClock(START), sections=["WC-040"], compute=_stand_in)
+    assert report.ingest_failures == [] and report.site_changes == []
+    assert report.files == ["ingest left to the one running: another ingest is running in ws (lock .ingest.lock); "
+                            "wait for it to finish"]  # fmt: skip
