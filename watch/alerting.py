@@ -33,7 +33,7 @@ from watch.config import SiteConfig
 from watch.errors import UserError
 from watch.inspections import open_request
 from watch.store import Store, parse_utc_text, utc_text
-from watch.triggers import AlertSettings, SectionRule, alert_settings, section_gauge
+from watch.triggers import SITE_ALERTS, AlertSettings, SectionRule, alert_settings, section_gauge
 from watch.workspace import Workspace
 
 __all__ = [
@@ -303,7 +303,9 @@ def _message(kind: str, rule: SectionRule, level, t: Transition, standing: list[
     lines = [f"{name} on {context.site_name or context.site_id} {headline} at {_when(t.at)}."]
     what = "cleared" if t.new is AlertState.RESOLVED else "triggered"
     lines.append(f"Rule {t.rule_name} {what}: {rule.description}; value now {_value(t.value, rule)}.")
-    if context.fos is not None:
+    if context.section_id == SITE_ALERTS:
+        lines.append(f"What failed: {context.message or 'nothing any more'}.")
+    elif context.fos is not None:
         lines.append(f"Factor of safety: {context.fos:.2f} ({context.method}), {context.trend()}.")
     else:
         lines.append(f"Factor of safety: not available ({context.message or context.status}).")

@@ -1097,13 +1097,41 @@ def plot_figure(workspace, kind: str, section_id: str, start: datetime, end: dat
     return path
 
 
+def _servable(folder: Path, path: Path) -> Path | None:
+    """The file the board server may send for ``path`` (a request translated into the folder):
+    a regular file really inside ``folder`` (no link leads out of it) whose name and folders
+    below ``folder`` start with no dot; a folder means its index.html. None otherwise."""
+    root = Path(os.path.realpath(folder))
+    lexical = Path(os.path.abspath(path))
+    try:
+        parts = lexical.relative_to(os.path.abspath(folder)).parts
+    except ValueError:
+        return None
+    if any(part.startswith(".") for part in parts):
+        return None
+    if lexical.is_dir():
+        lexical = lexical / "index.html"
+    real = Path(os.path.realpath(lexical))
+    if root not in real.parents or not real.is_file():
+        return None
+    return real
+
+
 def serve_board(folder: Path, host: str = "127.0.0.1", port: int = 0):
     """An HTTP server of the board folder (static files, GET and HEAD only), not yet started:
-    call ``serve_forever()``. Listens on ``host`` (this computer only by default)."""
+    call ``serve_forever()``. Listens on ``host`` (this computer only by default). It sends
+    only regular files inside the folder: no dot-files, nothing reached through a link that
+    leads out of the folder (see :func:`_servable`)."""
     import functools
     from http.server import SimpleHTTPRequestHandler, ThreadingHTTPServer
 
     class Handler(SimpleHTTPRequestHandler):
+        def send_head(self):
+            if _servable(Path(self.directory), Path(self.translate_path(self.path))) is None:
+                self.send_error(404, "File not found")
+                return None
+            return super().send_head()
+
         def end_headers(self):
             # Pages change after every cycle: a browser must not show yesterday's board.
             self.send_header("Cache-Control", "no-store")

@@ -25,6 +25,7 @@ def run(workspace: Path, interval: float | None, once: bool) -> None:
     alerts and send the notifications due; in between, send grouped and retried messages.
     Logs to slipwatch.log in the workspace and to standard error. Stop with SIGTERM or
     Ctrl-C: the running cycle is finished first (at most [daemon] stop_timeout_seconds, 60).
+    With --once, exits with status 1 when the cycle, the ingest or a section failed.
 
     \b
     Example:

@@ -44,7 +44,8 @@ def init(directory: Path, site_template: Path | None) -> None:
 @json_option
 def ingest(files: tuple[Path, ...], workspace: Path, progress: bool, as_json: bool) -> None:
     """Ingest feed files: the FILES named (copied in; originals stay), or every file ready in
-    incoming/. Prints one line per file: accepted, duplicates, rejected, flagged.
+    incoming/. Prints one line per file: accepted, duplicates, rejected, flagged. Exits with
+    status 1 when a file could not be ingested (an unforeseen error, or the store or disk).
 
     \b
     Example:
@@ -58,7 +59,9 @@ def ingest(files: tuple[Path, ...], workspace: Path, progress: bool, as_json: bo
                         echo=None if as_json else click.echo)  # fmt: skip
     if as_json:
         echo_json({"files": [f.__dict__ for f in report.files], "waiting": report.waiting,
-                   "reconciled": report.reconciled})  # fmt: skip
+                   "reconciled": report.reconciled, "failed": [f.name for f in report.failures]})  # fmt: skip
+        if report.failures:
+            sys.exit(1)
         return
     for line in report.reconciled:
         click.echo(f"reconciled: {line}")
@@ -66,6 +69,9 @@ def ingest(files: tuple[Path, ...], workspace: Path, progress: bool, as_json: bo
         click.echo(f"waiting: {line}")
     if not report.files and not report.waiting:
         click.echo("nothing to ingest")
+    if report.failures:
+        click.echo(f"slipwatch: error: {len(report.failures)} file(s) could not be ingested (see above)", err=True)
+        sys.exit(1)
 
 
 @click.command()

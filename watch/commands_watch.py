@@ -3,6 +3,7 @@ CSV, close)."""
 
 from __future__ import annotations
 
+import sys
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -40,7 +41,8 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str 
            workspace: Path, as_json: bool) -> None:
     """Run one assessment cycle now: ingest the waiting files, rebuild the water lines,
     re-evaluate the factor of safety, store the assessment, evaluate the trigger levels and
-    queue notifications and inspection requests.
+    queue notifications and inspection requests. Exits with status 1 when the ingest failed
+    or a section could not be assessed (failed or not converged).
 
     \b
     Example:
@@ -60,10 +62,16 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str 
     report = run_cycle(opened, SystemClock(), sections=list(sections) or None, at=_time_option(at, "--at"),
                        progress=every and not as_json, executor=cycle_executor(opened, cluster, workers))  # fmt: skip
     if as_json:
-        echo_json(report.to_dict() | {"caution": CAUTION})
+        echo_json(report.to_dict() | {"ok": report.ok, "caution": CAUTION})
+        if not report.ok:
+            sys.exit(1)
         return
     for line in report.files:
         click.echo(f"ingested: {line}")
+    for line in report.ingest_failures:
+        click.echo(f"INGEST FAILED: {line}")
+    for change in report.site_changes:
+        click.echo(f"site alert {change}")
     for name in report.released:
         click.echo(f"un-shelved (expired): {name}")
     for s in report.sections:
@@ -80,6 +88,9 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str 
                f"{report.executor}, {len(report.failed)} failed or not converged, "
                f"{report.retries} calculation(s) retried")  # fmt: skip
     click.echo(CAUTION)
+    if not report.ok:
+        click.echo("slipwatch: error: something failed in this cycle (see above); exit status 1", err=True)
+        sys.exit(1)
 
 
 @click.group(invoke_without_command=True)

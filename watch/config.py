@@ -8,6 +8,8 @@ were silently ignored would switch off a quality check.
 
 from __future__ import annotations
 
+import codecs
+
 import math
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
@@ -474,9 +476,14 @@ def _feed(r: TableReader, t: dict, i: int) -> FeedSpec:
         r.fail(where, "missing", f"must be a list of strings, got {missing!r}")
     encoding = r.get(t, where, "encoding", str, default="utf-8")
     try:
-        "".encode(encoding)
+        codecs.lookup(encoding)
     except LookupError:
-        r.fail(where, "encoding", f"unknown encoding {encoding!r}")
+        r.fail(where, "encoding", f"unknown encoding {encoding!r} (e.g. 'utf-8', 'latin-1', 'cp1252')")
+    if not _ascii_compatible(encoding):
+        r.fail(where, "encoding", f"{encoding!r} does not write line ends, delimiters and digits as single "
+                                  "ASCII bytes; feeds are read in an ASCII-compatible encoding such as 'utf-8', "
+                                  "'latin-1' or 'cp1252' (UTF-16 and UTF-32 files are recognised by their "
+                                  "byte-order mark and refused with a message)")  # fmt: skip
     columns = _string_map(r, t, where, "columns")
     temperature_columns = _string_map(r, t, where, "temperature_columns")
     spec = FeedSpec(
@@ -512,6 +519,18 @@ def _feed(r: TableReader, t: dict, i: int) -> FeedSpec:
             if key in t:
                 r.fail(where, key, "is for layout = 'wide'; a long feed names its instrument column")
     return spec
+
+
+def _ascii_compatible(encoding: str) -> bool:
+    """Whether the encoding writes the characters a feed's structure is made of as the same
+    single bytes as ASCII (the reader cuts lines and fields on bytes)."""
+    sample = "\r\n\t ,;|\"'.-+:/0123456789TZeE"
+    try:
+        if codecs.lookup(encoding).name == "utf-8-sig":  # UTF-8 that may begin with a byte-order mark
+            return True
+        return sample.encode(encoding) == sample.encode("ascii") and codecs.lookup(encoding).name != "utf-7"
+    except (LookupError, UnicodeError):
+        return False
 
 
 def _ingest(r: TableReader, t: dict) -> IngestSettings:

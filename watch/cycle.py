@@ -25,7 +25,6 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-import os
 import shutil
 import time
 from collections import Counter
@@ -50,14 +49,16 @@ from watch.alerting import SectionContext, last_evaluations, process_section_ale
 from watch.analysis import analyse, surface_of
 from watch.clock import Clock, ManualClock
 from watch.config import SiteConfig
-from watch.errors import UserError
+from watch.errors import BusyError, UserError
 from watch.executors import InProcessExecutor, SectionExecutor, SectionFailure, executor_for
 from watch.groundwater import rate_of_rise
-from watch.ingest import ingest
+from watch.ingest import ingest, record_first_look
 from watch.parameters import current_section
 from watch.rainfall import DEFAULT_DRY_GAP_H, event_exceedance, rain_record_reach, window_totals
 from watch.store import Store, parse_utc_text, utc_text
-from watch.triggers import RAIN_CURVES, AlertSettings, SectionRule, alert_settings, section_gauge
+from watch.text import printable
+from watch.triggers import (RAIN_CURVES, SITE_ALERTS, AlertSettings, SectionRule, alert_settings,
+                            section_gauge)
 from watch.waterlines import section_with_lines, store_water_lines, water_lines_from_store
 from watch.workspace import Workspace
 
@@ -116,6 +117,9 @@ class CycleReport:
     at: datetime
     started: datetime
     files: list[str] = field(default_factory=list)  # ingest summary lines
+    ingest_failures: list[str] = field(default_factory=list)  # what the watch failed on while ingesting
+    site_changes: list[str] = field(default_factory=list)  # state changes of the site's own alerts
+    site_notifications: int = 0  # queued by them
     sections: list[SectionOutcome] = field(default_factory=list)
     released: list[str] = field(default_factory=list)  # alerts un-shelved (expired)
     chattering: list[str] = field(default_factory=list)
@@ -129,7 +133,13 @@ class CycleReport:
 
     @property
     def notifications(self) -> int:
-        return sum(s.notifications for s in self.sections)
+        return sum(s.notifications for s in self.sections) + self.site_notifications
+
+    @property
+    def ok(self) -> bool:
+        """Nothing failed: the ingest read what it took and every section was assessed
+        (the commands exit non-zero otherwise)."""
+        return not self.ingest_failures and not self.failed
 
     def to_dict(self) -> dict:
         return {
@@ -137,6 +147,8 @@ class CycleReport:
             "started_utc": utc_text(self.started),
             "seconds": round(self.seconds, 3),
             "files": self.files,
+            "ingest_failures": self.ingest_failures,
+            "site_changes": self.site_changes,
             "sections": [asdict(s) for s in self.sections],
             "released": self.released,
             "chattering": self.chattering,
@@ -189,9 +201,18 @@ def run_cycle(
     if at > now:
         raise UserError(f"cannot assess {utc_text(at)}: it is later than now ({utc_text(now)})")
     report = CycleReport(at=at, started=now)
+    ingest_ran = ingest_waiting
     if ingest_waiting:
-        ingested = ingest(workspace, now=now, progress=False)
-        report.files = [f.line() for f in ingested.files]
+        try:
+            ingested = ingest(workspace, now=now, progress=False)
+        except BusyError as error:  # another ingest is at it: the files wait for it or the next cycle
+            report.files = [printable(f"ingest left to the one running: {error}")]
+            ingest_ran = False
+        except Exception as error:  # noqa: BLE001 - a failed ingest must not stop the assessment
+            report.ingest_failures = [printable(f"the ingest failed: {type(error).__name__}: {error}")]
+        else:
+            report.files = [f.line() for f in ingested.files]
+            report.ingest_failures = [f.line() for f in ingested.failures]
     config = workspace.config()
     settings = alert_settings(config)
     chosen = _chosen_sections(config, sections)
@@ -211,6 +232,9 @@ def run_cycle(
         finally:
             if owned:
                 executor.close()
+        if ingest_ran:
+            with store.atomic():
+                _record_site_alerts(store, config, settings, report, now)
         report.executor = executor.describe()
         report.retries = executor.retries
         report.chattering = [c for s in report.sections for c in s.chattering]
@@ -218,6 +242,24 @@ def run_cycle(
         with store.atomic():
             store.finish_cycle(cycle_id, utc_text(clock.now()), json.dumps(report.to_dict(), default=str))
     return report
+
+
+def _record_site_alerts(store: Store, config: SiteConfig, settings: AlertSettings, report: CycleReport,
+                        now: datetime) -> None:  # fmt: skip
+    """Evaluate the site's own data-quality alerts (the ingest failing) at ``now``, inside the
+    caller's transaction; their changes and notifications go into ``report``."""
+    rules = settings.site_rules()
+    if not rules:
+        return
+    failed = "; ".join(report.ingest_failures)
+    context = SectionContext(
+        site_id=config.id, site_name=config.name, section_id=SITE_ALERTS, section_name="the watch itself",
+        at=now, status="failed" if failed else "ok", message=failed[:2000],
+    )  # fmt: skip
+    values = {rule.rule.name: float(bool(report.ingest_failures)) for rule in rules}
+    result = process_section_alerts(store, config, settings, SITE_ALERTS, rules, values, now, now, context)
+    report.site_changes = result.changes
+    report.site_notifications = result.notifications
 
 
 def _assess_sections(workspace, store: Store, config, settings: AlertSettings, chosen: list[str],
@@ -433,6 +475,9 @@ def _prepare(workspace, store: Store, config, settings: AlertSettings, section_i
         lines = water_lines_from_store(store, section, config, at)
     except (UserError, SolverError) as error:
         return _Calculation("failed", message=f"inputs could not be prepared: {error}"), None
+    except Exception as error:  # noqa: BLE001 - one section's unforeseen error must not stop the others
+        return _Calculation("failed", message=f"inputs could not be prepared (unexpected error "
+                                              f"{type(error).__name__}: {error})"), None  # fmt: skip
     calc = _Calculation("pending", section=section, version_id=version_id, lines=lines)
     instrumented = {p.water_line for p in config.piezometers_of(section_id)}
     for name, line in lines.items():
@@ -856,7 +901,7 @@ def replay_season(
     while moment <= end:
         clock.set(moment)
         while next_piece < len(pieces) and pieces[next_piece][0] <= moment:
-            _drop(workspace, *pieces[next_piece][1:])
+            _drop(workspace, *pieces[next_piece][1:], seen=moment)
             next_piece += 1
             result.files_delivered += 1
         report = run_cycle(workspace, clock, sections=sections)
@@ -911,14 +956,14 @@ def _row_times(rows: list[str], header: str, feed) -> list[datetime]:
     return times
 
 
-def _drop(workspace: Workspace, name: str, text: str, encoding: str) -> None:
-    """Put a delivered piece into incoming/ as a finished file (written aside, then renamed,
-    and dated an hour back so that the ingest's minimum file age, which is wall-clock, holds)."""
+def _drop(workspace: Workspace, name: str, text: str, encoding: str, seen: datetime) -> None:
+    """Put a delivered piece into incoming/ as a finished file (written aside, then renamed),
+    looked at first an hour before ``seen`` (the logger finished it then), so that the ingest's
+    two looks ``min_file_age_seconds`` apart are behind it."""
     temporary = workspace.incoming / f".{name}.tmp"
     temporary.write_text(text, encoding=encoding)
-    past = time.time() - 3600
-    os.utime(temporary, (past, past))
     shutil.move(temporary, workspace.incoming / name)
+    record_first_look(workspace, name, seen - timedelta(hours=1))
 
 
 def season_summary(workspace: Workspace) -> list[str]:

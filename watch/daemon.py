@@ -59,6 +59,7 @@ LOCK_FILE = ".daemon.lock"
 LOGGER = "slipwatch"
 
 _EXIT_CLEAN, _EXIT_FORCED = 0, 1
+_EXIT_FAILED = 1  # run --once: the cycle, the ingest or a section failed
 
 
 @dataclass(frozen=True)
@@ -180,7 +181,8 @@ def _report_lines(report) -> list[str]:
     """A cycle report (watch.cycle.CycleReport) in a few log lines."""
     if report is None:
         return []
-    lines = [f"ingested {line}" for line in report.files]
+    lines = [f"ingested {line}" for line in report.files] + [f"INGEST FAILED: {line}" for line in report.ingest_failures]
+    lines += [f"site alert {change}" for change in report.site_changes]
     for s in report.sections:
         fos = "" if s.fos is None else f", FoS {s.fos:.3f}" + (f" ({s.method})" if s.method else "")
         text = f"{s.section_id}: {s.status}{fos}" + ("" if s.live else ", not on live readings")
@@ -245,7 +247,10 @@ def run_daemon(workspace: Workspace, *, interval_minutes: float | None = None, o
         try:
             if once:
                 log.info("one cycle (slipwatch run --once) in %s", workspace.root)
-                run_once(workspace, clock, log=log)
+                cycle_report, _ = run_once(workspace, clock, log=log)
+                if cycle_report is None or not cycle_report.ok:
+                    log.error("slipwatch run --once: the cycle failed or something in it failed (see above)")
+                    return _EXIT_FAILED
                 return _EXIT_CLEAN
             return _serve(workspace, clock, settings, stop, log, install_signal_handlers)
         finally:

@@ -15,6 +15,11 @@ class WorkspaceError(UserError):
     """The workspace folder is missing, incomplete or locked by another process."""
 
 
+class BusyError(WorkspaceError):
+    """Another process holds a lock of the workspace (an ingest running); trying again later
+    is the remedy."""
+
+
 class StoreError(UserError):
     """The SQLite store cannot be opened, migrated or written."""
 

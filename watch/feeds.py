@@ -27,6 +27,7 @@ from __future__ import annotations
 import codecs
 import csv
 import io
+import re
 import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass, field
@@ -38,10 +39,31 @@ import pandas as pd
 from watch.config import FeedSpec
 from watch.errors import FeedError
 
-__all__ = ["RowProblem", "FeedChunk", "FeedReader", "READING_COLUMNS", "BLOCK_BYTES"]
+__all__ = [
+    "RowProblem", "FeedChunk", "FeedReader", "READING_COLUMNS", "BLOCK_BYTES", "MAX_ROW_BYTES",
+    "RAW_TEXT_CHARS", "open_feed_bytes", "bounded_lines", "clipped", "wide_encoding",
+]  # fmt: skip
 
 #: Bytes read per block; bounds memory independently of the file size.
 BLOCK_BYTES = 4 << 20
+
+#: Longest row (or header line) read [bytes, line end excluded]. A logger row is a time and a
+#: few numbers per instrument, well under 1 kB even for a wide logger of a hundred channels; a
+#: longer "row" is a binary or runaway file and is rejected without being held in memory.
+MAX_ROW_BYTES = 64 << 10
+
+#: Characters of a rejected row's raw text kept in the store and in reason files; the rest is
+#: cut and the cut said (the row itself stays whole in the archived file).
+RAW_TEXT_CHARS = 400
+
+#: Byte-order marks of encodings whose line ends and delimiters are not single bytes: such
+#: files cannot be read as the feed's byte-oriented encoding and are refused with their name.
+_WIDE_BOMS = (
+    (codecs.BOM_UTF32_LE, "UTF-32 (little-endian)"),
+    (codecs.BOM_UTF32_BE, "UTF-32 (big-endian)"),
+    (codecs.BOM_UTF16_LE, "UTF-16 (little-endian)"),
+    (codecs.BOM_UTF16_BE, "UTF-16 (big-endian)"),
+)  # UTF-32 LE first: its mark begins with the UTF-16 LE one
 
 READING_COLUMNS = ("instrument_id", "time_utc", "raw_value", "temperature_c", "barometric_kpa", "line")
 
@@ -66,6 +88,104 @@ class FeedChunk:
     bytes_read: int = 0
 
 
+_CUT = re.compile(r"\.\.\. \[cut: \d+ characters in all\]\Z")
+
+
+def clipped(text: str | None, limit: int = RAW_TEXT_CHARS) -> str | None:
+    """``text`` cut to ``limit`` characters, saying how long it was (raw texts kept of
+    rejected rows)."""
+    if text is None or len(text) <= limit:
+        return text
+    cut = _CUT.search(text)
+    if cut is not None and cut.start() <= limit:  # cut already
+        return text
+    return f"{text[:limit]}... [cut: {len(text)} characters in all]"
+
+
+class _LineFeedsForCarriageReturns(io.RawIOBase):
+    """A binary file whose lone carriage returns read as line feeds (files from loggers that
+    end lines with CR only). Byte for byte, so positions and line numbers are the file's."""
+
+    def __init__(self, raw):
+        self._raw = raw
+
+    def readable(self) -> bool:
+        return True
+
+    def seekable(self) -> bool:
+        return True
+
+    def seek(self, offset: int, whence: int = io.SEEK_SET) -> int:
+        return self._raw.seek(offset, whence)
+
+    def tell(self) -> int:
+        return self._raw.tell()
+
+    def readinto(self, buffer) -> int:
+        n = self._raw.readinto(buffer)
+        if n:
+            view = memoryview(buffer)[:n]
+            view[:] = bytes(view).replace(b"\r", b"\n")
+        return n
+
+    def close(self) -> None:
+        self._raw.close()
+        super().close()
+
+
+def wide_encoding(head: bytes) -> str | None:
+    """The name of the UTF-16 or UTF-32 encoding whose byte-order mark begins ``head``, or
+    None."""
+    return next((name for mark, name in _WIDE_BOMS if head.startswith(mark)), None)
+
+
+def open_feed_bytes(path: Path):
+    """Open a feed file for reading as bytes, the way every reader of feed files must.
+
+    Raises FeedError for a UTF-16 or UTF-32 file (recognised by its byte-order mark; such a
+    file must be saved as UTF-8 or the feed's encoding). A file with carriage returns and no
+    line feed in its first block (lines ended by CR only) is read with its CRs as line ends.
+    """
+    handle = open(path, "rb")  # noqa: SIM115 - returned to the caller, who closes it
+    try:
+        head = handle.read(BLOCK_BYTES)
+        name = wide_encoding(head)
+        if name is not None:
+            mark = next(mark for mark, n in _WIDE_BOMS if n == name)
+            raise FeedError(
+                f"{path.name}: the file is encoded as {name} (byte-order mark "
+                f"{mark.hex(' ').upper()}); slipwatch reads feeds in one-byte encodings: save "
+                "it as UTF-8 (or set the feed's encoding) and deliver it again"
+            )
+        handle.seek(0)
+        if b"\r" in head and b"\n" not in head:
+            return io.BufferedReader(_LineFeedsForCarriageReturns(handle))
+        return handle
+    except BaseException:
+        handle.close()
+        raise
+
+
+def bounded_lines(handle, limit: int = MAX_ROW_BYTES) -> Iterator[tuple[bytes, int]]:
+    """(first ``limit`` bytes of the line without its line end, length in bytes without it) of
+    each line of a binary file, in order; memory stays bounded whatever the length of a line."""
+    while True:
+        line = handle.readline(limit + 1)
+        if not line:
+            return
+        if line.endswith(b"\n") or len(line) <= limit:
+            text = line.rstrip(b"\r\n")
+            yield text, len(text)
+            continue
+        head, length = line[:limit], len(line)
+        while not line.endswith(b"\n"):  # the rest of a line over the limit, block by block
+            line = handle.readline(BLOCK_BYTES)
+            if not line:
+                break
+            length += len(line)
+        yield head, length - (len(line) - len(line.rstrip(b"\r\n")))
+
+
 def _empty_readings() -> pd.DataFrame:
     return pd.DataFrame(
         {
@@ -83,10 +203,15 @@ class FeedReader:
     """Reads one feed file per its FeedSpec. ``header_notes`` lists columns of the file that no
     mapping uses and mapped columns the file lacks; ``chunks()`` yields FeedChunk."""
 
-    def __init__(self, path: Path | str, spec: FeedSpec, block_bytes: int = BLOCK_BYTES):
+    def __init__(self, path: Path | str, spec: FeedSpec, block_bytes: int = BLOCK_BYTES,
+                 complete: bool = False):  # fmt: skip
+        """``complete``: the deliverer said the file is finished (its done-marker exists), so
+        a last line without a line end is read as a row; otherwise it is not trusted (a copy
+        cut short) and is reported."""
         self.path = Path(path)
         self.spec = spec
         self.block_bytes = block_bytes
+        self.complete = complete
         self.size = self.path.stat().st_size
         self.header_notes: list[str] = []
         self._delimiter = ord(spec.delimiter)
@@ -98,10 +223,14 @@ class FeedReader:
     def _read_header(self, handle) -> int:
         """Skip the preamble, read the header line; return the number of lines consumed."""
         spec = self.spec
+        lines = bounded_lines(handle)
         for skipped in range(spec.skip_rows):
-            if not handle.readline():
+            if next(lines, None) is None:
                 raise FeedError(f"{self.path.name}: the file ends within the {spec.skip_rows} lines to skip")
-        raw = handle.readline()
+        raw, length = next(lines, (b"", 0))
+        if length > MAX_ROW_BYTES:
+            raise FeedError(f"{self.path.name}: the header line (line {spec.skip_rows + 1}) is {length} bytes "
+                            f"long, over the limit of {MAX_ROW_BYTES} bytes (not a feed file?)")  # fmt: skip
         if not raw.strip():
             raise FeedError(f"{self.path.name}: no header line at line {spec.skip_rows + 1} (empty file?)")
         encoding = "utf-8-sig" if codecs.lookup(spec.encoding).name == "utf-8" else spec.encoding
@@ -161,39 +290,60 @@ class FeedReader:
     # --- blocks -------------------------------------------------------------------------------
 
     def chunks(self) -> Iterator[FeedChunk]:
-        with self.path.open("rb") as handle:
+        with open_feed_bytes(self.path) as handle:
             line = self._read_header(handle) + 1  # number of the first data line
             carry = b""
+            overlong = 0  # bytes of a line over MAX_ROW_BYTES seen so far (its head is in carry)
             position = handle.tell()
             while True:
                 data = handle.read(self.block_bytes)
                 if not data:
                     break
+                if overlong:
+                    cut = data.find(b"\n")
+                    if cut < 0:
+                        overlong += len(data)
+                        continue
+                    problem = self._overlong(line, carry, overlong + cut)
+                    line, carry, overlong, data = line + 1, b"", 0, data[cut + 1 :]
+                    chunk = FeedChunk(_empty_readings(), [problem])
+                    chunk.bytes_read, position = handle.tell() - position, handle.tell()
+                    yield chunk
                 buffer = carry + data
                 cut = buffer.rfind(b"\n")
-                if cut < 0:
-                    carry = buffer
+                block, carry = (buffer[: cut + 1], buffer[cut + 1 :]) if cut >= 0 else (b"", buffer)
+                if len(carry) > MAX_ROW_BYTES:  # the start of a line too long to hold: skip the rest
+                    overlong, carry = len(carry), carry[:MAX_ROW_BYTES]
+                if not block:
                     continue
-                block, carry = buffer[: cut + 1], buffer[cut + 1 :]
                 chunk = self._parse_block(block, line)
                 chunk.bytes_read = handle.tell() - position
                 position = handle.tell()
                 line += block.count(b"\n")
                 yield chunk
             tail = FeedChunk(_empty_readings(), bytes_read=handle.tell() - position)
-            if carry.strip(b" \t\r"):
+            if overlong:
+                tail.problems.append(self._overlong(line, carry, overlong))
+            elif carry.strip(b" \t\r") and self.complete:
+                tail = self._parse_block(carry + b"\n", line)
+                tail.bytes_read = handle.tell() - position
+            elif carry.strip(b" \t\r"):
                 # A last line without a line end is what a copy cut short looks like; its last
                 # number may be truncated ("12.5" -> "12"), so it is not trusted.
                 tail.problems.append(
                     RowProblem(line, self._decode(carry), "last line has no line end (file cut short?)")
                 )
             resolved, problems = self._resolve_held()
-            tail.readings = resolved
+            tail.readings = pd.concat([tail.readings, resolved], ignore_index=True) if len(tail.readings) else resolved
             tail.problems.extend(problems)
             yield tail
 
+    def _overlong(self, line: int, head: bytes, length: int) -> RowProblem:
+        return RowProblem(line, self._decode(head),
+                          f"row is {length} bytes long, over the limit of {MAX_ROW_BYTES} bytes")  # fmt: skip
+
     def _decode(self, raw: bytes) -> str:
-        return raw.decode(self.spec.encoding, errors="replace").rstrip("\r\n")
+        return clipped(raw.decode(self.spec.encoding, errors="replace").rstrip("\r\n"))
 
     def _parse_block(self, block: bytes, first_line: int) -> FeedChunk:
         a = np.frombuffer(block, dtype=np.uint8)
@@ -219,11 +369,16 @@ class FeedReader:
         fields = per_line(delimiters) + 1
         stray_cr = per_line(np.flatnonzero(a == _CR)) > has_cr
         nul = per_line(np.flatnonzero(a == _NUL)) > 0
-        bad = ~blank & ((fields != self._n_fields) | odd_quotes | stray_cr | nul)
+        overlong = (lengths - has_cr) > MAX_ROW_BYTES
+        bad = ~blank & ((fields != self._n_fields) | odd_quotes | stray_cr | nul | overlong)
         good = ~blank & ~bad
 
         problems = []
         for i in np.flatnonzero(bad):
+            if overlong[i]:
+                problems.append(self._overlong(first_line + int(i), block[starts[i] : starts[i] + MAX_ROW_BYTES],
+                                               int(lengths[i] - has_cr[i])))  # fmt: skip
+                continue
             if nul[i]:
                 reason = "line holds NUL bytes (binary data)"
             elif stray_cr[i]:
@@ -462,7 +617,8 @@ class FeedReader:
             local = parsed
 
         def expand(series: pd.Series) -> np.ndarray:
-            values = series.to_numpy(dtype="datetime64[ns]").astype("datetime64[s]")
+            # Straight to whole seconds: through nanoseconds, years outside 1677-2262 would wrap.
+            values = series.to_numpy(dtype="datetime64[s]")
             out = values[codes]
             out[codes < 0] = np.datetime64("NaT")
             return out

@@ -21,8 +21,11 @@ from __future__ import annotations
 import errno
 import fcntl
 import hashlib
+import json
 import os
 import shutil
+import sqlite3
+import stat
 import time
 from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
@@ -34,13 +37,15 @@ import pandas as pd
 from tqdm import tqdm
 
 from watch.config import Piezometer, SiteConfig
-from watch.errors import FeedError, UserError, WorkspaceError
-from watch.feeds import FeedReader, RowProblem
+from watch.errors import BusyError, FeedError, StoreError, UserError, WorkspaceError
+from watch.feeds import FeedReader, RowProblem, bounded_lines, clipped, open_feed_bytes, wide_encoding
 from watch.quality import Previous, assess_piezometer, assess_rain_gauge, time_window_problems
-from watch.store import Store, utc_text
+from watch.store import Store, parse_utc_text, utc_text
+from watch.text import printable
 from watch.workspace import Workspace
 
-__all__ = ["FileSummary", "IngestReport", "ingest", "reconcile", "TEMPORARY_SUFFIXES"]
+__all__ = ["FileSummary", "IngestReport", "ingest", "reconcile", "record_first_look", "TEMPORARY_SUFFIXES",
+           "SIGHTINGS_FILE"]
 
 #: Names that loggers and copy tools use while a file is still being written.
 TEMPORARY_SUFFIXES = (".tmp", ".part", ".partial", ".filepart", ".crdownload", ".temp", "~")
@@ -54,11 +59,20 @@ _PROGRESS_MIN_BYTES = 1 << 20
 #: Rejected rows listed in a rejected file's reason file.
 _REASON_FILE_ROWS = 20
 
+#: Errors of the store or the disk rather than of the file being read: the file is put back
+#: into incoming/ for the next pass instead of being rejected.
+_STORE_OR_DISK_ERRORS = (sqlite3.Error, StoreError, OSError)
+
+#: First looks at the files waiting in incoming/ (name -> size, mtime, when seen), kept
+#: between passes in the workspace: a file is taken once it has not changed for
+#: ``min_file_age_seconds`` of the ingest's clock.
+SIGHTINGS_FILE = ".ingest-sightings.json"
+
 
 @dataclass
 class FileSummary:
     name: str
-    status: str  # 'ingested' | 'rejected' | 'already ingested'
+    status: str  # 'ingested' | 'rejected' | 'already ingested' | 'refused' | 'failed'
     feed: str | None = None
     accepted: int = 0
     duplicates: int = 0
@@ -68,10 +82,25 @@ class FileSummary:
     reason: str | None = None
     archived_as: str | None = None
     notes: list[str] = field(default_factory=list)
+    unexpected: bool = False  # rejected because reading it raised an error nobody foresaw
+
+    @property
+    def failed(self) -> bool:
+        """The watch itself failed on this file (an unforeseen error, or the store or disk
+        failing), as opposed to a file whose content is bad."""
+        return self.status == "failed" or self.unexpected
 
     def line(self) -> str:
+        """One summary line; control characters of names and values are escaped."""
+        return printable(self._line())
+
+    def _line(self) -> str:
         if self.status == "already ingested":
             return f"{self.name}: already ingested ({self.reason}); archived as {self.archived_as}"
+        if self.status == "refused":
+            return f"{self.name}: REFUSED: {self.reason}; moved to {self.archived_as}"
+        if self.status == "failed":
+            return f"{self.name}: FAILED: {self.reason}"
         counts = (
             f"{self.accepted} accepted, {self.duplicates} duplicates, {self.rejected} rejected, "
             f"{self.flagged} flagged"
@@ -87,6 +116,11 @@ class IngestReport:
     files: list[FileSummary] = field(default_factory=list)
     waiting: list[str] = field(default_factory=list)  # left for the next pass, with the reason
     reconciled: list[str] = field(default_factory=list)
+
+    @property
+    def failures(self) -> list[FileSummary]:
+        """Files the watch itself failed on (see FileSummary.failed)."""
+        return [f for f in self.files if f.failed]
 
 
 def ingest(workspace: Workspace, files: list[Path | str] | None = None, now: datetime | None = None,
@@ -108,13 +142,30 @@ def ingest(workspace: Workspace, files: list[Path | str] | None = None, now: dat
             if files:
                 claims = [_claim_named(workspace, Path(f)) for f in files]
             else:
-                claims = _claim_waiting(workspace, config, now, report.waiting)
+                claims = _claim_waiting(workspace, config, now, report)
+            for refused in report.files if echo else ():
+                echo(refused.line())
             for claim in claims:
-                summary = _ingest_claimed(workspace, store, config, claim, now, progress)
+                summary = _ingest_one(workspace, store, config, claim, now, progress)
                 report.files.append(summary)
                 if echo:
                     echo(summary.line())
+    report.waiting = [printable(line) for line in report.waiting]
+    report.reconciled = [printable(line) for line in report.reconciled]
     return report
+
+
+def _ingest_one(workspace: Workspace, store: Store, config: SiteConfig, claim: _Claim, now: datetime,
+                progress: bool) -> FileSummary:  # fmt: skip
+    """Ingest one claimed file whatever happens: should the store or the disk fail, the file
+    is left for the next pass (back in incoming/, or claimed for the next ingest to settle when
+    its record was committed) and the summary says ``failed``; the other files are still
+    ingested."""
+    try:
+        return _ingest_claimed(workspace, store, config, claim, now, progress)
+    except _STORE_OR_DISK_ERRORS as error:
+        return FileSummary(claim.name, "failed", reason=f"could not be ingested ({type(error).__name__}: {error}); "
+                                                        "left for the next pass")  # fmt: skip
 
 
 # --- claiming -------------------------------------------------------------------------------------
@@ -125,51 +176,127 @@ class _Claim:
     path: Path  # in incoming/.claimed/
     name: str  # the delivered name
     marker: Path | None = None  # done-marker left in incoming/ until the file is archived
+    complete: bool = False  # the deliverer marked it finished: a last line without line end is a row
 
 
-def _claim_waiting(workspace: Workspace, config: SiteConfig, now: datetime, waiting: list[str]) -> list[_Claim]:
+def _claim_waiting(workspace: Workspace, config: SiteConfig, now: datetime, report: IngestReport) -> list[_Claim]:
+    """Claim the files of incoming/ that are finished: a regular file (never a link, device
+    or folder, which are moved to rejected/ unread) that either has its done-marker or has
+    kept its size and modification time between two looks at least ``min_file_age_seconds``
+    apart and ends with a line end. The looks are timed by ``now`` (the ingest's clock),
+    never by the file's own time stamp, which a copy may carry over from elsewhere."""
     settings = config.ingest
     done = settings.done_suffix
+    first_looks = _load_sightings(workspace)
+    looks: dict[str, list] = {}
     claims = []
     for path in sorted(workspace.incoming.iterdir()):
         name = path.name
-        if name.startswith(".") or not path.is_file():
+        if name.startswith("."):
+            continue
+        info = os.lstat(path)
+        if not stat.S_ISREG(info.st_mode):
+            report.files.append(_refuse(workspace, path, info))
             continue
         if done and name.endswith(done):
             if not path.with_name(name[: -len(done)]).exists():
                 _archive_orphan_marker(workspace, path, settings.min_file_age_seconds)
             continue
         if name.endswith(TEMPORARY_SUFFIXES):
-            waiting.append(f"{name} (temporary name: still being written)")
+            report.waiting.append(f"{name} (temporary name: still being written)")
             continue
         marker = path.with_name(name + done) if done else None
-        before = path.stat()
-        if not (marker and marker.exists()):
-            age = time.time() - before.st_mtime  # file ages are wall-clock, whatever ``now`` says
-            if age < settings.min_file_age_seconds:
-                waiting.append(f"{name} (modified {age:.0f} s ago; waiting {settings.min_file_age_seconds:g} s)")
+        marked = marker is not None and marker.is_file() and not marker.is_symlink()
+        if not marked:
+            look = [info.st_size, info.st_mtime_ns]
+            first = first_looks.get(name)
+            if first is None or first[:2] != look:
+                first = [*look, utc_text(now)]
+            looks[name] = first
+            unchanged = (now - parse_utc_text(first[2])).total_seconds()
+            if unchanged < settings.min_file_age_seconds:
+                report.waiting.append(f"{name} (unchanged for {max(unchanged, 0):.0f} s of the "
+                                      f"{settings.min_file_age_seconds:g} s of min_file_age_seconds)")  # fmt: skip
+                continue
+            if not _ends_with_line_end(path, info.st_size):
+                report.waiting.append(f"{name} (its last line has no line end yet: still being written"
+                                      + (f"; {name}{done} marks it finished" if done else "") + ")")  # fmt: skip
                 continue
         target = workspace.claimed / name
         if target.exists():
-            waiting.append(f"{name} (a file of that name is still claimed)")
+            report.waiting.append(f"{name} (a file of that name is still claimed)")
             continue
         try:
             os.rename(path, target)
         except FileNotFoundError:  # taken by someone else between listing and claiming
             continue
-        after = target.stat()
-        if (after.st_size, after.st_mtime_ns) != (before.st_size, before.st_mtime_ns):
+        after = os.lstat(target)
+        if (after.st_size, after.st_mtime_ns) != (info.st_size, info.st_mtime_ns) or not stat.S_ISREG(after.st_mode):
             _move_no_clobber(target, workspace.incoming, name)
-            waiting.append(f"{name} (still growing)")
+            report.waiting.append(f"{name} (still growing)")
             continue
-        claims.append(_Claim(target, name, marker if marker and marker.exists() else None))
+        looks.pop(name, None)
+        claims.append(_Claim(target, name, marker if marked else None, complete=marked))
+    _save_sightings(workspace, looks)
     return claims
+
+
+def _ends_with_line_end(path: Path, size: int) -> bool:
+    """Whether the file's last byte ends a line; a UTF-16/32 file counts as ended (its
+    encoding is refused when it is read, whatever its end)."""
+    if size == 0:
+        return False
+    with path.open("rb") as handle:
+        if wide_encoding(handle.read(4)) is not None:
+            return True
+        handle.seek(size - 1)
+        return handle.read(1) in (b"\n", b"\r")
+
+
+def _refuse(workspace: Workspace, path: Path, info: os.stat_result) -> FileSummary:
+    """Move what is not a regular file out of incoming/ unread (a link is moved, not followed)."""
+    kind = ("symbolic link" if stat.S_ISLNK(info.st_mode) else "folder" if stat.S_ISDIR(info.st_mode)
+            else "device" if stat.S_ISBLK(info.st_mode) or stat.S_ISCHR(info.st_mode)
+            else "named pipe" if stat.S_ISFIFO(info.st_mode) else "socket" if stat.S_ISSOCK(info.st_mode)
+            else "special file")  # fmt: skip
+    reason = f"a {kind}, not a regular file: feeds are read only from regular files delivered into incoming/"
+    destination = _move_no_clobber(path, workspace.rejected, path.name)
+    _write_reason(destination, reason, [], 0)
+    return FileSummary(path.name, "refused", reason=reason, archived_as=_relative(workspace, destination))
+
+
+def record_first_look(workspace: Workspace, name: str, seen: datetime) -> None:
+    """Record that the file ``incoming/NAME`` was looked at, as it is now, at ``seen``: as if
+    an ingest pass had seen it then. For replays that deliver a logger's files after the fact,
+    and for tests."""
+    info = os.lstat(workspace.incoming / name)
+    looks = _load_sightings(workspace)
+    looks[name] = [info.st_size, info.st_mtime_ns, utc_text(seen)]
+    _save_sightings(workspace, looks)
+
+
+def _load_sightings(workspace: Workspace) -> dict[str, list]:
+    try:
+        looks = json.loads((workspace.root / SIGHTINGS_FILE).read_text(encoding="utf-8"))
+    except (FileNotFoundError, ValueError):  # none yet, or unreadable: look again from now
+        return {}
+    return looks if isinstance(looks, dict) else {}
+
+
+def _save_sightings(workspace: Workspace, looks: dict[str, list]) -> None:
+    path = workspace.root / SIGHTINGS_FILE
+    temporary = path.with_name(path.name + ".tmp")
+    temporary.write_text(json.dumps(looks), encoding="utf-8")
+    os.replace(temporary, path)
 
 
 def _claim_named(workspace: Workspace, path: Path) -> _Claim:
     if not path.is_file():
         raise UserError(f"feed file {path} not found")
-    if path.resolve().parent == workspace.incoming.resolve():
+    if path.absolute().parent.resolve() == workspace.incoming.resolve():
+        if not stat.S_ISREG(os.lstat(path).st_mode):
+            raise UserError(f"{printable(str(path))} is a symbolic link, not a regular file: files in incoming/ "
+                            "are read only as regular files; name the file it points to instead")  # fmt: skip
         target = workspace.claimed / path.name
         if target.exists():
             raise WorkspaceError(f"{path.name} is already claimed in {workspace.claimed}; run ingest again")
@@ -218,8 +345,12 @@ def reconcile(workspace: Workspace, store: Store) -> list[str]:
 
 def _ingest_claimed(workspace: Workspace, store: Store, config: SiteConfig, claim: _Claim, now: datetime,
                     progress: bool) -> FileSummary:  # fmt: skip
-    sha, size = _sha256(claim.path)
-    prior = store.ingested_file(sha)
+    try:
+        sha, size = _sha256(claim.path)
+        prior = store.ingested_file(sha)
+    except BaseException:
+        _move_no_clobber(claim.path, workspace.incoming, claim.name)
+        raise
     if prior is not None:
         destination = _move_no_clobber(claim.path, workspace.processed, claim.name)
         _archive_marker(claim, destination.parent)
@@ -230,37 +361,27 @@ def _ingest_claimed(workspace: Workspace, store: Store, config: SiteConfig, clai
         )  # fmt: skip
     feed = config.feed_for(claim.name)
     summary = FileSummary(claim.name, "ingested", feed.name if feed else None)
+    problems: list[RowProblem] = []
     try:
-        with store.atomic():
-            file_id = store.add_file(claim.name, summary.feed, sha, size, archived_as="",
-                                     ingested_utc=utc_text(now))
-            problems: list[RowProblem] = []
-            if feed is None:
-                patterns = ", ".join(f"{f.name}: {f.pattern}" for f in config.feeds) or "no [[feed]] in site.toml"
-                summary.reason = f"no [[feed]] pattern matches the name {claim.name!r} ({patterns})"
-            else:
-                try:
-                    reader = FeedReader(claim.path, feed)
-                    _load(store, config, reader, file_id, now, progress, summary, problems)
-                    summary.notes = reader.header_notes
-                except FeedError as error:
-                    summary.reason = str(error)
-                if summary.reason is None and summary.accepted + summary.duplicates == 0:
-                    summary.reason = (
-                        "no reading could be read"
-                        + (f" ({summary.rejected} rows rejected)" if summary.rejected else "")
-                        + (f" ({summary.missing} values marked missing)" if summary.missing else "")
-                        + ("" if summary.rejected or summary.missing else " (no data rows)")
-                    )
-            if summary.reason is not None:
-                summary.status = "rejected"
-                folder = workspace.rejected
-            else:
-                folder = workspace.processed
-            planned = _free_name(folder, claim.name)
-            summary.archived_as = _relative(workspace, planned)
-            _fill_line_texts(store, file_id, claim.path, feed, problems)
-            store.finish_file(file_id, summary.status, summary.reason, summary.__dict__, summary.archived_as)
+        try:
+            with store.atomic():
+                planned = _read_into_store(workspace, store, config, claim, feed, sha, size, now, progress,
+                                           summary, problems)  # fmt: skip
+        except _STORE_OR_DISK_ERRORS:
+            raise
+        except Exception as error:  # noqa: BLE001 - one unreadable file must not stop the watch
+            # An error nobody foresaw while reading: its transaction was rolled back; the file
+            # goes to rejected/ with the error as reason, in a transaction of its own.
+            summary = FileSummary(claim.name, "rejected", summary.feed, unexpected=True,
+                                  reason=f"unexpected error while reading the file ({type(error).__name__}: "
+                                         f"{clipped(str(error))}); nothing of it is stored; please report this")  # fmt: skip
+            problems = []
+            with store.atomic():
+                file_id = store.add_file(claim.name, summary.feed, sha, size, archived_as="",
+                                         ingested_utc=utc_text(now))  # fmt: skip
+                planned = _free_name(workspace.rejected, claim.name)
+                summary.archived_as = _relative(workspace, planned)
+                store.finish_file(file_id, summary.status, summary.reason, summary.__dict__, summary.archived_as)
     except BaseException:
         # Not committed: hand the file back to the drop folder untouched, then report.
         _move_no_clobber(claim.path, workspace.incoming, claim.name)
@@ -270,6 +391,41 @@ def _ingest_claimed(workspace: Workspace, store: Store, config: SiteConfig, clai
     _move_to(claim.path, planned)
     _archive_marker(claim, planned.parent)
     return summary
+
+
+def _read_into_store(workspace: Workspace, store: Store, config: SiteConfig, claim: _Claim, feed, sha: str,
+                     size: int, now: datetime, progress: bool, summary: FileSummary,
+                     problems: list[RowProblem]) -> Path:  # fmt: skip
+    """The file's record, readings and rejected rows (inside the caller's transaction); return
+    where the file is to be archived."""
+    file_id = store.add_file(claim.name, summary.feed, sha, size, archived_as="", ingested_utc=utc_text(now))
+    if feed is None:
+        patterns = ", ".join(f"{f.name}: {f.pattern}" for f in config.feeds) or "no [[feed]] in site.toml"
+        summary.reason = f"no [[feed]] pattern matches the name {claim.name!r} ({patterns})"
+    else:
+        try:
+            reader = FeedReader(claim.path, feed, complete=claim.complete)
+            _load(store, config, reader, file_id, now, progress, summary, problems)
+            summary.notes = reader.header_notes
+        except FeedError as error:
+            summary.reason = str(error)
+        if summary.reason is None and summary.accepted + summary.duplicates == 0:
+            summary.reason = (
+                "no reading could be read"
+                + (f" ({summary.rejected} rows rejected)" if summary.rejected else "")
+                + (f" ({summary.missing} values marked missing)" if summary.missing else "")
+                + ("" if summary.rejected or summary.missing else " (no data rows)")
+            )
+    if summary.reason is not None:
+        summary.status = "rejected"
+        folder = workspace.rejected
+    else:
+        folder = workspace.processed
+    planned = _free_name(folder, claim.name)
+    summary.archived_as = _relative(workspace, planned)
+    _fill_line_texts(store, file_id, claim.path, feed, problems)
+    store.finish_file(file_id, summary.status, summary.reason, summary.__dict__, summary.archived_as)
+    return planned
 
 
 def _load(store: Store, config: SiteConfig, reader: FeedReader, file_id: int, now: datetime, progress: bool,
@@ -282,18 +438,21 @@ def _load(store: Store, config: SiteConfig, reader: FeedReader, file_id: int, no
         total=reader.size, unit="B", unit_scale=True, desc=reader.path.name, leave=False,
         disable=True if not progress or reader.size < _PROGRESS_MIN_BYTES else None,
     )  # fmt: skip
+    conflicted: set[tuple[str, str]] = set()  # (instrument, time) given by the file with different values
     with bar:
         for chunk in reader.chunks():
             bar.update(chunk.bytes_read)
             summary.missing += chunk.missing
             pending = list(chunk.problems)
-            _load_block(store, config, chunk.readings, file_id, now, summary, pending)
+            _load_block(store, config, chunk.readings, file_id, now, summary, pending, conflicted)
             _flush_problems(store, file_id, pending, problems, summary)
 
 
 def _load_block(store: Store, config: SiteConfig, rows: pd.DataFrame, file_id: int, now: datetime,
-                summary: FileSummary, problems: list[RowProblem]) -> None:  # fmt: skip
-    """Check and insert the readings of one block; its rejected rows go to ``problems``."""
+                summary: FileSummary, problems: list[RowProblem], conflicted: set[tuple[str, str]]) -> None:  # fmt: skip
+    """Check and insert the readings of one block; its rejected rows go to ``problems``.
+    ``conflicted``: the keys the file gave earlier with different values (none is stored;
+    updated here)."""
     instruments = config.instruments
     if len(rows) == 0:
         return
@@ -306,6 +465,14 @@ def _load_block(store: Store, config: SiteConfig, rows: pd.DataFrame, file_id: i
                                  reasons[~in_window]):  # fmt: skip
         problems.append(RowProblem(int(line), None, reason, iid))
     rows = rows[in_window]
+    if conflicted and len(rows):
+        keys = list(zip(rows["instrument_id"], _utc_text(rows["time_utc"].to_numpy())))
+        again = np.array([key in conflicted for key in keys], dtype=bool)
+        for (iid, when), line in zip([k for k, hit in zip(keys, again) if hit], rows["line"].to_numpy()[again]):
+            problems.append(RowProblem(int(line), None, f"{iid} at {when} is given more than once in this file "
+                                                        "with different values: none of them is stored", iid))  # fmt: skip
+        rows = rows[~again]
+    rows = _settle_repeats(rows, summary, problems, conflicted)
     piezometer_parts, rain_parts = [], []
     for iid, group in rows.groupby("instrument_id", sort=False):
         group = group.sort_values("time_utc", kind="stable")
@@ -320,7 +487,35 @@ def _load_block(store: Store, config: SiteConfig, rows: pd.DataFrame, file_id: i
             rain_parts.append(assess_rain_gauge(group, instrument, store.previous_rain_total(iid, first)))
     for table, parts in (("readings", piezometer_parts), ("rainfall", rain_parts)):
         if parts:
-            _insert(store, table, pd.concat(parts, ignore_index=True), file_id, summary, problems)
+            _insert(store, table, pd.concat(parts, ignore_index=True), file_id, summary, problems, conflicted)
+
+
+def _settle_repeats(rows: pd.DataFrame, summary: FileSummary, problems: list[RowProblem],
+                    conflicted: set[tuple[str, str]]) -> pd.DataFrame:  # fmt: skip
+    """Rows of one block that give the same instrument and time more than once: when they are
+    identical, the first is kept and the others count as duplicates; when their values differ,
+    none can be trusted over the others and every one of them is rejected."""
+    key = ["instrument_id", "time_utc"]
+    repeated = rows.duplicated(key, keep=False).to_numpy()
+    if not repeated.any():
+        return rows
+    values = ["raw_value", "temperature_c", "barometric_kpa"]
+    group = rows[repeated]
+    versions = group.drop_duplicates(key + values).groupby(key, sort=False).size()
+    differing = group.set_index(key).index.isin(versions[versions > 1].index)
+    for (iid, when), rows_of_key in group[differing].groupby(key, sort=False):
+        lines = rows_of_key["line"].tolist()
+        shown = ", ".join(f"{v:g}" for v in rows_of_key["raw_value"].drop_duplicates())
+        when = _utc_text(np.array([np.datetime64(when, "s")]))[0]
+        conflicted.add((iid, when))
+        reason = (f"{iid} at {when} is given {len(lines)} times in this file with "
+                  f"different values ({shown}; lines {', '.join(map(str, lines))}): none of them is stored")  # fmt: skip
+        problems.extend(RowProblem(int(line), None, reason, iid) for line in lines)
+    drop = np.zeros(len(rows), dtype=bool)
+    drop[np.flatnonzero(repeated)[differing]] = True
+    extra = rows.duplicated(key, keep="first").to_numpy() & ~drop
+    summary.duplicates += int(extra.sum())
+    return rows[~(drop | extra)]
 
 
 def _flush_problems(store: Store, file_id: int, pending: list[RowProblem], kept: list[RowProblem],
@@ -329,13 +524,13 @@ def _flush_problems(store: Store, file_id: int, pending: list[RowProblem], kept:
     if not pending:
         return
     pending.sort(key=lambda p: (p.line is None, p.line or 0))
-    store.add_rejected_rows((file_id, p.line, p.instrument_id, p.raw_text, p.reason) for p in pending)
+    store.add_rejected_rows((file_id, p.line, p.instrument_id, clipped(p.raw_text), p.reason) for p in pending)
     summary.rejected += len(pending)
     kept.extend(pending[: max(0, _REASON_FILE_ROWS - len(kept))])
 
 
 def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary: FileSummary,
-            problems: list[RowProblem]) -> None:  # fmt: skip
+            problems: list[RowProblem], conflicted: set[tuple[str, str]]) -> None:  # fmt: skip
     ids = rows["instrument_id"].to_numpy(dtype=object)
     times = _utc_text(rows["time_utc"].to_numpy())
     lines = rows["line"].to_numpy(dtype=np.int64)
@@ -362,7 +557,7 @@ def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary:
     # and conflicts (different value: reported, the stored value is kept).
     ids, times = ids.tolist(), times.tolist()
     stored = pd.DataFrame(
-        store.stored_versions(table, zip(ids, times)),
+        store.stored_versions(table, dict.fromkeys(zip(ids, times))),
         columns=["instrument_id", "time_utc", "stored_raw", "stored_file_id", "stored_line", "stored_file"],
     )
     mine = pd.DataFrame({"instrument_id": ids, "time_utc": times, "raw_value": raw, "line": lines, "flagged": flagged})
@@ -374,7 +569,21 @@ def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary:
     summary.flagged += int((ours & merged["flagged"]).sum())
     summary.duplicates += int(same.sum())
     for r in left_out[~same].itertuples(index=False):
-        where = "earlier in this file" if r.stored_file_id == file_id else f"file {r.stored_file}"
+        if r.stored_file_id == file_id:
+            # Given twice by this file with different values (in different blocks): neither is
+            # stored, as within one block (_settle_repeats).
+            conflicted.add((r.instrument_id, r.time_utc))
+            quality = store.discard_reading(table, r.instrument_id, r.time_utc, file_id)
+            if quality is not None:
+                summary.accepted -= 1
+                summary.flagged -= quality != "ok"
+            reason = (f"{r.instrument_id} at {r.time_utc} is given more than once in this file with different "
+                      f"values ({r.stored_raw:g}, {r.raw_value:g}; lines {r.stored_line}, {r.line}): none of "
+                      "them is stored")  # fmt: skip
+            problems.extend(RowProblem(int(line), None, reason, r.instrument_id)
+                            for line in ((r.stored_line,) if quality is not None else ()) + (r.line,))  # fmt: skip
+            continue
+        where = f"file {r.stored_file}"
         problems.append(
             RowProblem(int(r.line), None,
                        f"conflicts with the stored reading of {r.instrument_id} at {r.time_utc}: stored "
@@ -385,13 +594,13 @@ def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary:
 
 def _fill_line_texts(store: Store, file_id: int, path: Path, feed, kept: list[RowProblem]) -> None:
     """Give the stored rejected rows of a file that were rejected after parsing (quality, time,
-    conflicts) their raw line text: one streaming pass over the file, in batches of rows, so
-    memory does not grow with the number of rejected rows."""
+    conflicts) their raw line text, cut to RAW_TEXT_CHARS: one streaming pass over the file, in
+    batches of rows, so memory does not grow with the number of rejected rows or their length."""
     encoding = feed.encoding if feed else "utf-8"
     last_line, batch = 0, 50_000
-    with path.open("rb") as handle:
-        numbered = enumerate(handle, start=1)
-        number, raw = 0, b""
+    handle = numbered = None
+    number, raw = 0, b""
+    try:
         while True:
             rows = store.conn.execute(
                 "SELECT id, line FROM rejected_rows WHERE file_id = ? AND raw_text IS NULL "
@@ -400,28 +609,35 @@ def _fill_line_texts(store: Store, file_id: int, path: Path, feed, kept: list[Ro
             ).fetchall()
             if not rows:
                 break
+            if handle is None:
+                handle = open_feed_bytes(path)
+                numbered = enumerate(bounded_lines(handle), start=1)
             updates = []
             for row_id, line in rows:
                 while number < line:
-                    number, raw = next(numbered, (line, None))
+                    number, (raw, _) = next(numbered, (line, (None, 0)))
                 if raw is not None and number == line:
-                    updates.append((raw.decode(encoding, errors="replace").rstrip("\r\n"), row_id))
+                    updates.append((clipped(raw.decode(encoding, errors="replace")), row_id))
             store.conn.executemany("UPDATE rejected_rows SET raw_text = ? WHERE id = ?", updates)
             last_line = rows[-1][1]
+    finally:
+        if handle is not None:
+            handle.close()
     texts = _line_texts(path, feed, {p.line for p in kept if p.raw_text is None and p.line is not None})
     kept[:] = [replace(p, raw_text=texts.get(p.line)) if p.raw_text is None else p for p in kept]
 
 
 def _line_texts(path: Path, feed, wanted: set[int]) -> dict[int, str]:
-    """Raw text of the given lines (one streaming pass; only for rows rejected after parsing)."""
+    """Raw text of the given lines, cut to RAW_TEXT_CHARS (one streaming pass; only for rows
+    rejected after parsing)."""
     if not wanted:
         return {}
     texts, last = {}, max(wanted)
     encoding = feed.encoding if feed else "utf-8"
-    with path.open("rb") as handle:
-        for number, raw in enumerate(handle, start=1):
+    with open_feed_bytes(path) as handle:
+        for number, (raw, _) in enumerate(bounded_lines(handle), start=1):
             if number in wanted:
-                texts[number] = raw.decode(encoding, errors="replace").rstrip("\r\n")
+                texts[number] = clipped(raw.decode(encoding, errors="replace"))
             if number >= last:
                 break
     return texts
@@ -484,9 +700,9 @@ def _move_no_clobber(path: Path, folder: Path, name: str) -> Path:
 
 
 def _write_reason(archived: Path, reason: str, problems: list[RowProblem], total: int) -> None:
-    lines = [f"slipwatch rejected {archived.name}: {reason}"]
+    lines = [printable(f"slipwatch rejected {archived.name}: {reason}")]
     for p in problems[:_REASON_FILE_ROWS]:
-        lines.append(f"line {p.line}: {p.reason}")
+        lines.append(printable(f"line {p.line}: {p.reason}"))
     if total > len(problems[:_REASON_FILE_ROWS]):
         lines.append(f"... and {total - len(problems[:_REASON_FILE_ROWS])} more (see the rejected_rows table)")
     reason_file = archived.with_name(archived.name + ".reason.txt")
@@ -537,7 +753,7 @@ class _IngestLock:
         except OSError as error:
             self.handle.close()
             if error.errno in (errno.EAGAIN, errno.EACCES):
-                raise WorkspaceError(
+                raise BusyError(
                     f"another ingest is running in {self.path.parent} (lock {self.path.name}); "
                     "wait for it to finish"
                 ) from None

@@ -702,6 +702,19 @@ class Store:
         self.conn.execute("DELETE FROM _keys")
         return rows
 
+    def discard_reading(self, table: str, instrument_id: str, time_utc: str, file_id: int) -> str | None:
+        """Remove a reading stored by the file being ingested (``file_id``; inside its
+        transaction), when a later row of the same file gives another value for its key; return
+        its quality, or None when no such reading of that file is stored."""
+        id_column = {"readings": "instrument_id", "rainfall": "gauge_id"}.get(table)
+        if id_column is None:
+            raise StoreError(f"no such measurement table {table!r}")
+        row = self.conn.execute(
+            f"DELETE FROM {table} WHERE {id_column} = ? AND time_utc = ? AND source_file_id = ? RETURNING quality",
+            (instrument_id, time_utc, file_id),
+        ).fetchone()
+        return None if row is None else row[0]
+
     def previous_reading(self, instrument_id: str, before_utc: str) -> tuple | None:
         """(time_utc, raw_value, flat_since_utc, head_time_utc, head_m) before a time:
         the last stored reading, the time of the first reading of the run of identical raw

@@ -34,6 +34,7 @@ __all__ = [
     "QUANTITIES",
     "RAIN_CURVES",
     "DATA_LEVEL",
+    "SITE_ALERTS",
     "Level",
     "TriggerSpec",
     "SectionRule",
@@ -63,6 +64,10 @@ RAIN_CURVES: dict[str, IntensityDurationThreshold] = {
 #: suppress nor are suppressed by the owner's levels, since a feed that stopped matters most
 #: while a slope is at its worst.
 DATA_LEVEL = "data"
+
+#: Section id under which the site's own data-quality alerts are stored (the watch itself
+#: failing: an ingest that could not read its files); not a [[section]] id.
+SITE_ALERTS = "(site)"
 
 
 @dataclass(frozen=True)
@@ -135,6 +140,7 @@ class DataAlertSettings:
     flat_line: bool = True
     suspect: bool = True
     assessment: bool = True
+    ingest: bool = True
     on_delay: timedelta = timedelta(0)
     off_delay: timedelta = timedelta(0)
 
@@ -201,6 +207,18 @@ class AlertSettings:
             rules.append(_section_rule(spec, self.levels[spec.level], instrument, self.source))
         rules.extend(self._data_rules(config, section_id, gauge))
         return rules
+
+    def site_rules(self) -> list[SectionRule]:
+        """The data-quality rules of the site as a whole (stored under :data:`SITE_ALERTS`):
+        ``data-ingest``, the watch failing to ingest its feed files."""
+        if not self.data.ingest:
+            return []
+        return [SectionRule(
+            TriggerRule(name="data-ingest", quantity="failed", level=DATA_LEVEL, rank=0, direction=Direction.ABOVE,
+                        trigger=1.0, clear=0.0, on_delay=self.data.on_delay, off_delay=self.data.off_delay),
+            "data", description="the watch itself is failing: the ingest of the feed files failed (the "
+                                "files and errors are listed in the log and by the cycle)",
+        )]  # fmt: skip
 
     def _data_rules(self, config: SiteConfig, section_id: str, gauge: str | None) -> list[SectionRule]:
         data = self.data
@@ -411,7 +429,7 @@ def _section_rule(spec: TriggerSpec, level: Level, instrument: str | None, sourc
 
 def _data(r: TableReader, t: dict, config: SiteConfig) -> DataAlertSettings:
     where = "[data_alerts]"
-    r.keys(t, where, {"stale_hours", "stale_clear_hours", "flat_line", "suspect", "assessment",
+    r.keys(t, where, {"stale_hours", "stale_clear_hours", "flat_line", "suspect", "assessment", "ingest",
                       "on_delay_hours", "off_delay_hours"})  # fmt: skip
     stale = r.number(t, where, "stale_hours", default=config.ingest.stale_hours)
     if stale <= 0:
@@ -430,6 +448,7 @@ def _data(r: TableReader, t: dict, config: SiteConfig) -> DataAlertSettings:
         flat_line=r.get(t, where, "flat_line", bool, default=True),
         suspect=r.get(t, where, "suspect", bool, default=True),
         assessment=r.get(t, where, "assessment", bool, default=True),
+        ingest=r.get(t, where, "ingest", bool, default=True),
         on_delay=delays["on_delay_hours"], off_delay=delays["off_delay_hours"],
     )  # fmt: skip
 

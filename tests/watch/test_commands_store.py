@@ -1,12 +1,13 @@
 """The store commands in-process (click's runner): init, ingest, readings, status, backup."""
 
 import json
-import os
-import time
+from datetime import datetime, timedelta, timezone
 
 from click.testing import CliRunner
 
 from watch.cli import main
+from watch.ingest import record_first_look
+from watch.workspace import Workspace
 
 FEED = "Timestamp,PZ1_kPa,PZ2_digits,PZ2_degC,Rain_tips\n2026-10-01 00:00,50.0,9000,11.0,1\n2026-10-01 00:15,50.5,8990,11.0,0\n"
 
@@ -22,7 +23,8 @@ def _workspace(tmp_path):
 def _drop(root, name, text):
     path = root / "incoming" / name
     path.write_text(text)
-    os.utime(path, (time.time() - 3600,) * 2)
+    # Seen unchanged for an hour already (the ingest takes a file after two looks).
+    record_first_look(Workspace(root), name, datetime.now(timezone.utc) - timedelta(hours=1))
 
 
 def test_init_ingest_readings_status_backup(tmp_path):

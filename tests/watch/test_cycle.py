@@ -14,7 +14,7 @@ import pytest
 from solver.search import SearchSettings
 from watch.analysis import analyse
 from watch.clock import ManualClock
-from watch.cycle import replay_season, run_cycle, search_from_json, search_to_json
+from watch.cycle import SectionResult, replay_season, run_cycle, search_from_json, search_to_json
 from watch.errors import UserError
 from watch.sections import load_section
 from tests.watch.cycle_helpers import announced_alarms, make_workspace
@@ -150,10 +150,9 @@ def test_a_duplicate_delivery_changes_nothing(tmp_path):
     shutil.copy(workspace.processed / "wendlecombe_2026-01_d001.csv", tmp_path / "again.csv")
     resent = workspace.incoming / "wendlecombe_2026-01_resent.csv"
     shutil.copy(tmp_path / "again.csv", resent)
-    import os
-    import time
-
-    os.utime(resent, (time.time() - 3600, time.time() - 3600))
+    clock.advance(timedelta(minutes=5))
+    first = run_cycle(workspace, clock, sections=["WC-040"])  # first look: it waits
+    assert first.files == [] and resent.exists()
     clock.advance(timedelta(minutes=5))
     report = run_cycle(workspace, clock, sections=["WC-040"])
     assert any("already ingested" in line for line in report.files)
@@ -259,3 +258,84 @@ def test_rise_rule_watches_the_least_squares_slope_of_the_window(tmp_path):
         observed = _head_value(store, rule, at.to_pydatetime(), stale_hours=6.0)
     # Heads are stored to 1e-6 m (the feed's six decimals).
     np.testing.assert_allclose(observed, expected, rtol=1e-4, atol=1e-6)
+
+
+# --- the watch keeps going when something fails (issue 14) ---------------------------------------
+
+
+def _stand_in(task):
+    """A calculation that always fails, in place of the real one (the test is about what the
+    cycle does with a failure, not about the factor of safety)."""
+    return SectionResult(task.section_id, "failed", message="stand-in failure")
+
+
+def test_a_failed_ingest_raises_the_site_alert_notified_like_any_other_and_the_cycle_goes_on(tmp_path,
+                                                                                              monkeypatch):  # fmt: skip
+    import watch.cycle
+
+    workspace = make_workspace(tmp_path / "ws")
+    clock = ManualClock(START)
+
+    def broken_ingest(*args, **kwargs):
+        raise RuntimeError("stand-in for an ingest bug")
+
+    monkeypatch.setattr(watch.cycle, "ingest", broken_ingest)
+    report = run_cycle(workspace, clock, sections=["WC-040"], compute=_stand_in)
+    assert report.ingest_failures == ["the ingest failed: RuntimeError: stand-in for an ingest bug"]
+    assert [s.status for s in report.sections] == ["failed"] and not report.ok
+    assert report.site_changes == ["data-ingest: inactive -> pending at 1", "data-ingest: pending -> firing at 1"]
+    with workspace.open_store(read_only=True) as store:
+        (row,) = [r for r in store.outbox() if r["section_id"] == "(site)"]
+    assert (row["kind"], row["level"], row["idempotency_key"]) == ("data", "data", "(site)/data-ingest/1/data")
+    assert "What failed: the ingest failed: RuntimeError: stand-in for an ingest bug." in row["body"]
+    assert "the watch itself is failing" in row["body"]
+    monkeypatch.undo()
+    clock.advance(STEP)
+    again = run_cycle(workspace, clock, sections=["WC-040"], compute=_stand_in)
+    assert again.ingest_failures == [] and again.site_changes == ["data-ingest: firing -> resolved at 0"]
+
+
+def test_an_unforeseen_error_preparing_one_section_fails_that_section_only(tmp_path, monkeypatch):
+    import watch.cycle
+
+    workspace = make_workspace(tmp_path / "ws")
+    real = watch.cycle.water_lines_from_store
+
+    def breaks_for_wc040(store, section, config, at):
+        if section.id == "WC-040":
+            raise KeyError("stand-in for a bug")
+        return real(store, section, config, at)
+
+    monkeypatch.setattr(watch.cycle, "water_lines_from_store", breaks_for_wc040)
+    report = run_cycle(workspace, ManualClock(START), sections=["WC-040", "WC-060"], compute=_stand_in)
+    first, second = report.sections
+    assert first.status == "failed" and "unexpected error KeyError" in first.message
+    assert second.message == "stand-in failure"  # it was prepared and calculated
+    assert "data-assessment: pending -> firing at 1" in first.changes
+
+
+def test_assess_exits_non_zero_when_a_section_failed(tmp_path, monkeypatch):
+    import watch.cycle
+    from click.testing import CliRunner
+
+    from watch.cli import main
+
+    workspace = make_workspace(tmp_path / "ws")
+    monkeypatch.setattr(watch.cycle, "compute_section", _stand_in)
+    result = CliRunner().invoke(main, ["assess", "--section", "WC-040", "-w", str(workspace.root)])
+    assert result.exit_code == 1
+    assert "WC-040: failed" in result.output and "something failed in this cycle" in result.output
+
+
+def test_an_ingest_busy_elsewhere_is_no_failure(tmp_path, monkeypatch):
+    import watch.cycle
+    from watch.errors import BusyError
+
+    def busy(*args, **kwargs):
+        raise BusyError("another ingest is running in ws (lock .ingest.lock); wait for it to finish")
+
+    monkeypatch.setattr(watch.cycle, "ingest", busy)
+    report = run_cycle(make_workspace(tmp_path / "ws"), ManualClock(START), sections=["WC-040"], compute=_stand_in)
+    assert report.ingest_failures == [] and report.site_changes == []
+    assert report.files == ["ingest left to the one running: another ingest is running in ws (lock .ingest.lock); "
+                            "wait for it to finish"]  # fmt: skip

@@ -29,7 +29,7 @@ import watch
 from watch import daemon
 from watch.cli import main
 from watch.clock import ManualClock
-from watch.cycle import CycleReport
+from watch.cycle import CycleReport, SectionOutcome
 from watch.errors import ConfigError
 from watch.workspace import init_workspace
 
@@ -40,7 +40,7 @@ DRIVER = textwrap.dedent(
     """
     import os, sys, time, types
     import watch
-    from watch.cycle import CycleReport
+    from watch.cycle import CycleReport, SectionOutcome
     from watch.store import utc_text
 
     MODE, MARKER = os.environ["FAKE_CYCLE"], os.environ["FAKE_MARKER"]
@@ -207,6 +207,31 @@ def test_a_failing_cycle_is_logged_and_earlier_notifications_still_go_out(tmp_pa
     cycle_report, delivery = daemon.run_once(ws, clock)
     assert cycle_report is None and delivery.messages_sent == 1
     assert "assessment cycle failed: site.toml: [[trigger]] 'x' key 'clear' is missing" in caplog.text
+
+
+@pytest.mark.parametrize("failure", ["cycle raises", "ingest failed", "section failed"])
+def test_run_once_exits_non_zero_when_something_failed(tmp_path, fake_cycle, failure):
+    ws = _workspace(tmp_path)
+
+    def failing(workspace, clock, **kwargs):
+        if failure == "cycle raises":
+            raise RuntimeError("stand-in for a broken cycle")
+        report = CycleReport(at=clock.now(), started=clock.now())
+        if failure == "ingest failed":
+            report.ingest_failures = ["x.csv: FAILED: could not be ingested (stand-in)"]
+        else:
+            report.sections = [SectionOutcome("S-1", "failed", message="stand-in")]
+        return report
+
+    fake_cycle(failing)
+    assert daemon.run_daemon(ws, once=True, clock=ManualClock(START), install_signal_handlers=False) == 1
+    assert "the cycle failed or something in it failed" in _log(ws)
+
+
+def test_run_once_exits_zero_when_all_went_well(tmp_path, fake_cycle):
+    ws = _workspace(tmp_path)
+    fake_cycle(lambda workspace, clock, **kwargs: CycleReport(at=clock.now(), started=clock.now()))
+    assert daemon.run_daemon(ws, once=True, clock=ManualClock(START), install_signal_handlers=False) == 0
 
 
 def test_scheduler_jobs_coalesce_run_one_at_a_time_and_have_a_misfire_grace(tmp_path):

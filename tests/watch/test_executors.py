@@ -15,6 +15,7 @@ import pytest
 from watch.clock import ManualClock
 from watch.cycle import compute_section, run_cycle
 from watch.errors import ConfigError, UserError
+from watch.ingest import record_first_look
 from watch.executors import (
     InProcessExecutor,
     ProcessPoolSectionExecutor,
@@ -44,8 +45,7 @@ def base(tmp_path_factory):
     workspace = make_workspace(tmp_path_factory.mktemp("executors") / "ws")
     target = workspace.incoming / JANUARY.name
     shutil.copy(JANUARY, target)
-    past = FIRST.timestamp() - 3600  # the ingest's minimum file age is wall-clock
-    os.utime(target, (past, past))
+    record_first_look(workspace, JANUARY.name, FIRST - timedelta(hours=1))  # delivered an hour before
     return workspace
 
 
