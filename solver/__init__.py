@@ -26,12 +26,12 @@ from solver.search import (
 from solver.section import Material, Section, section_from_dict, section_to_dict
 from solver.slices import Slices
 from solver.slicing import SliceBatch, slice_circles, slice_polyline, slice_surface
-from solver.surfaces import CircularSurface, PolylineSurface, surface_from_entry_exit
+from solver.surfaces import CircularSurface, PolylineSurface, circle_from_scarp_toe
 
 __all__ = [
     "SolverError", "SectionError", "SurfaceError", "MethodError", "SearchError",
     "Material", "Section", "section_from_dict", "section_to_dict",
-    "CircularSurface", "PolylineSurface", "surface_from_entry_exit",
+    "CircularSurface", "PolylineSurface", "circle_from_scarp_toe",
     "Slices", "SliceBatch", "slice_circles", "slice_polyline", "slice_surface",
     "METHOD_NAMES", "SafetyResult", "factor_of_safety", "ordinary", "bishop_simplified",
     "janbu_simplified", "janbu_correction_factor", "spencer", "morgenstern_price",

@@ -44,6 +44,9 @@ chosen material, so many trial strengths are solved together as one batch of sur
 
 References
 ----------
+Cruden, D.M. and Varnes, D.J. (1996). Landslide types and processes. In Landslides:
+    Investigation and Mitigation, Transportation Research Board Special Report 247, 36-75
+    (the names of the parts of a landslide: main scarp, surface of rupture, toe).
 Duncan, J.M. and Stark, T.D. (1992). Soil strengths from back analysis of slope failures. In
     Stability and Performance of Slopes and Embankments II, ASCE Geotechnical Special
     Publication 31, 890-904.
@@ -82,7 +85,7 @@ from solver.search import (
 from solver.section import DRAINED, DRY, UNDRAINED, Section, section_from_dict, section_to_dict
 from solver.slices import Slices
 from solver.slicing import slice_circles, slice_polyline
-from solver.surfaces import surface_from_entry_exit
+from solver.surfaces import circle_from_scarp_toe
 
 __all__ = [
     "FORMS",
@@ -138,10 +141,10 @@ BACKCALC_MATCH_POINTS = 6
 BACKCALC_REFINE_POINTS = 4
 #: Limit of FoS evaluations of the non-circular optimisation of one match (when asked for).
 BACKCALC_POLYLINE_EVALUATIONS = 400
-#: How far [m] a surveyed entry or exit point may lie from the section's ground line (survey and
+#: How far [m] a surveyed scarp or toe point may lie from the section's ground line (survey and
 #: drawing tolerance; common practice, not a published value).
 BACKCALC_GROUND_TOLERANCE = 0.25
-#: Trial circles through the entry and exit of a bounded slip, spread evenly over the
+#: Trial circles through the scarp and toe of a bounded slip, spread evenly over the
 #: admissible depths (both bounds included).
 BACKCALC_BOUNDED_CIRCLES = 25
 
@@ -243,7 +246,7 @@ class MatchSettings:
         Further points tried by a bounded scalar minimisation of the misfit along phi'
         between the neighbours of the best point (0 switches it off).
     circles : str
-        "grid and radius" or "entry and exit" (:func:`solver.search.search_critical_surface`).
+        "centre lattice" or "scarp-to-toe band" (:func:`solver.search.search_critical_surface`).
     screen_with : str or None
         Faster method that screens the many trial circles (default Bishop's simplified
         method); None screens with the back-analysis method itself.
@@ -258,7 +261,7 @@ class MatchSettings:
 
     points: int = BACKCALC_MATCH_POINTS
     refine: int = BACKCALC_REFINE_POINTS
-    circles: str = "grid and radius"
+    circles: str = "centre lattice"
     screen_with: str | None = "bishop_simplified"
     non_circular: bool = True
     polyline_evaluations: int = BACKCALC_POLYLINE_EVALUATIONS
@@ -330,8 +333,8 @@ class StoodCondition:
 class BoundedSlip:
     """One section through the slip where only its ends and a bound on its depth are known.
 
-    The slip surface is taken as the most critical of the circles through the entry and the
-    exit whose deepest vertical depth below the ground lies between ``min_depth`` and
+    The slip surface is taken as the most critical of the circles through the scarp and the
+    toe whose deepest vertical depth below the ground lies between ``min_depth`` and
     ``max_depth`` (:func:`circles_through_ends`); which circle that is depends on the trial
     strength.
 
@@ -339,10 +342,12 @@ class BoundedSlip:
     ----------
     section : Section
         The section before the slip, its water lines those at the time of failure.
-    entry : (float, float)
-        [m] Surveyed upper end of the slip (back scarp) on the ground, section frame.
-    exit : (float, float)
-        [m] Surveyed lower end (toe or bulge) on the ground, lower than the entry.
+    scarp : (float, float)
+        [m] Surveyed upper end of the slip on the ground (foot of the main scarp, where the
+        surface of rupture meets the original ground; Cruden and Varnes 1996), section frame.
+    toe : (float, float)
+        [m] Surveyed lower end on the ground (toe of the surface of rupture, or the bulge),
+        lower than the scarp.
     max_depth : float
         [m] > 0. Deepest vertical depth of the slip below the ground that the evidence allows
         (e.g. the shear zone of an inclinometer, or the bottom of a trial pit that found it).
@@ -353,18 +358,18 @@ class BoundedSlip:
     n_circles : int
         Trial circles spread over the admissible depths.
     ground_tolerance : float
-        [m] How far the surveyed entry and exit may lie from the ground line.
+        [m] How far the surveyed scarp and toe may lie from the ground line.
 
     Raises
     ------
     ObservedSurfaceError
-        An end off the section or not on its ground line, an exit upslope of (or level with)
-        the entry, or depth bounds that are not 0 <= min_depth < max_depth.
+        An end off the section or not on its ground line, a toe upslope of (or level with)
+        the scarp, or depth bounds that are not 0 <= min_depth < max_depth.
     """
 
     section: Section
-    entry: tuple[float, float]
-    exit: tuple[float, float]
+    scarp: tuple[float, float]
+    toe: tuple[float, float]
     max_depth: float
     min_depth: float = 0.0
     name: str = ""
@@ -384,7 +389,7 @@ class BoundedSlip:
                               f"{self.ground_tolerance!r}")
         ground = self.section.ground
         ends = {}
-        for label in ("entry", "exit"):
+        for label in ("scarp", "toe"):
             x, y = _surveyed_point(label, getattr(self, label))
             if not ground[0, 0] <= x <= ground[-1, 0]:
                 raise ObservedSurfaceError(
@@ -401,12 +406,12 @@ class BoundedSlip:
                 )
             ends[label] = (x, y, level)
             object.__setattr__(self, label, (x, y))
-        if ends["exit"][2] >= ends["entry"][2]:
+        if ends["toe"][2] >= ends["scarp"][2]:
             raise ObservedSurfaceError(
-                f"exit [{ends['exit'][0]:g}, {ends['exit'][1]:g}] is upslope of (or level with) "
-                f"entry [{ends['entry'][0]:g}, {ends['entry'][1]:g}] (ground at "
-                f"{ends['exit'][2]:.2f} m against {ends['entry'][2]:.2f} m): the entry is the "
-                "upper end (back scarp), the exit the lower end (toe)"
+                f"toe [{ends['toe'][0]:g}, {ends['toe'][1]:g}] is upslope of (or level with) "
+                f"scarp [{ends['scarp'][0]:g}, {ends['scarp'][1]:g}] (ground at "
+                f"{ends['toe'][2]:.2f} m against {ends['scarp'][2]:.2f} m): the scarp is the "
+                "upper end of the slip, the toe the lower end"
             )
         object.__setattr__(self, "max_depth", float(self.max_depth))
         object.__setattr__(self, "min_depth", float(self.min_depth))
@@ -521,7 +526,7 @@ class SurfaceFit:
 
 @dataclass(frozen=True)
 class BoundedSurface:
-    """The critical circle through the entry and exit of a bounded slip at one locus point.
+    """The critical circle through the scarp and toe of a bounded slip at one locus point.
 
     Attributes
     ----------
@@ -542,7 +547,7 @@ class BoundedSurface:
         would be more critical: the locus there rests on the bound), "min_depth" likewise for
         the shallowest, "" when the critical circle lies strictly within the bounds.
     points : ndarray (k, 2)
-        [m] The circle between the entry and the exit.
+        [m] The circle between the scarp and the toe.
     """
 
     slip: str
@@ -807,7 +812,7 @@ def _with_trials(rows: Slices, mask, form, c, phi, su, su_reference) -> Slices:
 # Slips known by their ends and a depth bound
 
 
-def circles_through_ends(ground, entry_x, exit_x, *, max_depth, min_depth=0.0,
+def circles_through_ends(ground, scarp_x, toe_x, *, max_depth, min_depth=0.0,
                          n_circles: int = BACKCALC_BOUNDED_CIRCLES):
     r"""Circles through two ground points with their depth below the ground within bounds.
 
@@ -819,7 +824,7 @@ def circles_through_ends(ground, entry_x, exit_x, *, max_depth, min_depth=0.0,
     circles returned are spread evenly in depth over
     :math:`[\max(d_{min}, d_{flattest}), \min(d_{max}, d_{semicircle})]`, both ends
     included, each placed at its depth by bisection of the centre's offset from the chord
-    (:func:`solver.surfaces.surface_from_entry_exit` with the radius
+    (:func:`solver.surfaces.circle_from_scarp_toe` with the radius
     :math:`R = \sqrt{s^2 + (|AB|/2)^2}`). Arcs through A and B deeper than the semicircle
     double back in x and are not slip surfaces.
 
@@ -827,7 +832,7 @@ def circles_through_ends(ground, entry_x, exit_x, *, max_depth, min_depth=0.0,
     ----------
     ground : array (n, 2) or Section
         [m] Ground line (x strictly increasing), or a section.
-    entry_x, exit_x : float
+    scarp_x, toe_x : float
         [m] Offsets of the two ends on the ground (either order).
     max_depth : float
         [m] Largest depth allowed.
@@ -847,7 +852,7 @@ def circles_through_ends(ground, entry_x, exit_x, *, max_depth, min_depth=0.0,
         No circle through the ends has a depth within the bounds.
     """
     points = np.asarray(getattr(ground, "ground", ground), dtype=float)
-    xa, xb = sorted((float(entry_x), float(exit_x)))
+    xa, xb = sorted((float(scarp_x), float(toe_x)))
     ya, yb = np.interp([xa, xb], *points.T)
     half = float(np.hypot(xb - xa, yb - ya)) / 2
     inner = points[(points[:, 0] > xa) & (points[:, 0] < xb), 0]
@@ -855,7 +860,7 @@ def circles_through_ends(ground, entry_x, exit_x, *, max_depth, min_depth=0.0,
     top = np.interp(x, *points.T)
 
     def family(offset):
-        circle = surface_from_entry_exit(points, xa, xb, radius=np.hypot(offset, half))
+        circle = circle_from_scarp_toe(points, xa, xb, radius=np.hypot(offset, half))
         xc, yc, r = (np.atleast_1d(np.asarray(v, dtype=float))
                      for v in (circle.centre_x, circle.centre_y, circle.radius))
         arc = yc[:, None] - np.sqrt(np.maximum(r[:, None] ** 2 - (x - xc[:, None]) ** 2, 0.0))
@@ -901,11 +906,11 @@ class _BoundedSlipModel:
         self.name, self.material, self.section, self.form = slip.name, material, section, form
         self.settings, self.slip = settings, slip
         circles, depth = circles_through_ends(
-            section, slip.entry[0], slip.exit[0], max_depth=slip.max_depth,
+            section, slip.scarp[0], slip.toe[0], max_depth=slip.max_depth,
             min_depth=slip.min_depth, n_circles=slip.n_circles)
         batch = slice_circles(section, circles.centre_x, circles.centre_y, circles.radius,
                               settings.n_slices)
-        where = (f"circles through entry x = {slip.entry[0]:g} m and exit x = {slip.exit[0]:g} m "
+        where = (f"circles through scarp x = {slip.scarp[0]:g} m and toe x = {slip.toe[0]:g} m "
                  f"of {slip.name!r} ({depth.min():.2f} to {depth.max():.2f} m deep)")
         if not batch.valid.any():
             reasons = ", ".join(f"{n} {r}" for r, n in batch.rejected().items())
@@ -957,7 +962,7 @@ class _BoundedSlipModel:
 
     def surface(self, row: int, strength: dict, fos: float) -> BoundedSurface:
         xc, yc, r = self.centre_x[row], self.centre_y[row], self.radius[row]
-        x = np.linspace(*sorted((self.slip.entry[0], self.slip.exit[0])), 120)
+        x = np.linspace(*sorted((self.slip.scarp[0], self.slip.toe[0])), 120)
         y = yc - np.sqrt(np.maximum(r**2 - (x - xc) ** 2, 0.0))
         member = self.family_index[row]
         at_bound = ("max_depth" if member == 0 and self.held[0] else
@@ -1336,7 +1341,7 @@ def _sliding_mass(ground: np.ndarray, surface: np.ndarray):
 
 def _critical_points(surface: RankedSurface, n: int = 120) -> np.ndarray:
     """The critical surface between its ends on the ground, as a polyline."""
-    x0, x1 = sorted((surface.entry_x, surface.exit_x))
+    x0, x1 = sorted((surface.scarp_x, surface.toe_x))
     if surface.kind == "circle":
         x = np.linspace(x0, x1, n)
         y = surface.centre_y - np.sqrt(np.maximum(surface.radius**2 - (x - surface.centre_x) ** 2, 0))
@@ -1443,7 +1448,7 @@ def match_locus(
     if bounded:
         raise BackAnalysisError(
             f"the surface match needs an observed surface (polyline) on every section; "
-            f"{', '.join(repr(b) for b in bounded)} give only entry, exit and a depth bound "
+            f"{', '.join(repr(b) for b in bounded)} give only scarp, toe and a depth bound "
             "(see bounded_surfaces for the depth of their critical surface)"
         )
     settings = settings or BackAnalysisSettings(method=locus.method)
@@ -1814,7 +1819,7 @@ def back_analyse(
 def _bounded_notes(bounded, match_skipped: bool) -> tuple[str, ...]:
     notes = []
     if match_skipped:
-        notes.append("surface match not run: the slip is known only by its entry, exit and a "
+        notes.append("surface match not run: the slip is known only by its scarp, toe and a "
                      "depth bound; the critical circle through them is reported with its depth")
     for bound in ("max_depth", "min_depth"):
         held = [b for b in bounded if b.at_bound == bound]
@@ -1822,7 +1827,7 @@ def _bounded_notes(bounded, match_skipped: bool) -> tuple[str, ...]:
             phis = sorted({round(b.friction_angle, 2) for b in held})
             notes.append(
                 f"at {len(held)} locus point(s) (phi' {phis[0]:g} to {phis[-1]:g} deg) the "
-                f"critical circle through the entry and exit lies at the {bound} bound: a "
+                f"critical circle through the scarp and toe lies at the {bound} bound: a "
                 f"{'deeper' if bound == 'max_depth' else 'shallower'} surface would be more "
                 "critical, so the locus there rests on the bound"
             )

@@ -1,6 +1,6 @@
 """Search for the critical slip surface, and warm re-evaluation of a previous search.
 
-Circular searches generate many trial circles at once (grid and radius, or entry and exit), slice
+Circular searches generate many trial circles at once (a centre lattice, or a scarp-to-toe band), slice
 them all with :func:`solver.slicing.slice_circles` and solve them all with
 :func:`solver.methods.factor_of_safety`, in batches. The best circle is then refined by a
 shrinking pattern search whose trial moves are also solved as one batch, and may be turned into a
@@ -57,7 +57,7 @@ from solver import methods
 from solver.errors import MethodError, SearchError
 from solver.methods import factor_of_safety
 from solver.slicing import slice_circles, slice_polyline
-from solver.surfaces import surface_from_entry_exit
+from solver.surfaces import circle_from_scarp_toe
 
 __all__ = [
     "RankedSurface",
@@ -65,12 +65,12 @@ __all__ = [
     "SearchSettings",
     "SlopeGeometry",
     "WarmResult",
-    "default_entry_exit",
-    "default_grid",
-    "entry_exit",
+    "default_scarp_toe_band",
+    "default_centre_lattice",
+    "scarp_toe_band",
     "every_method",
-    "grid_and_radius",
-    "grid_circles",
+    "centre_lattice",
+    "lattice_circles",
     "optimise_polyline",
     "polyline_from_circle",
     "refine_circle",
@@ -117,7 +117,7 @@ class SearchSettings:
         Number of distinct best surfaces kept in the result (and re-evaluated by
         :func:`warm_reevaluate`).
     min_separation : float
-        [m] Two kept surfaces differ by at least this much in entry or exit offset, so the kept
+        [m] Two kept surfaces differ by at least this much in scarp or toe offset, so the kept
         surfaces describe different mechanisms rather than neighbours of one circle.
     tolerance : float
         Tolerance on the factor of safety passed to an iterative method [-].
@@ -190,9 +190,11 @@ class RankedSurface:
         Circle centre and radius [m], section frame; NaN for polylines.
     points : ndarray (k, 2) or None
         Vertices of a polyline [m], section frame; None for circles.
-    entry_x, exit_x : float
-        Offsets [m] where the surface leaves the ground at the upper end (entry, behind the
-        crest) and at the lower end (exit, towards the toe), section frame.
+    scarp_x, toe_x : float
+        Offsets [m] of the ends of the surface on the ground: the upper end, where the main
+        scarp of the slide would form (behind or on the crest), and the lower end, the toe of the
+        surface of rupture (on the face or beyond the slope's toe); section frame. Landslide
+        nomenclature after Cruden and Varnes (1996).
     depth : float
         Largest vertical depth of the surface below the ground [m] (at slice mid-points).
     area : float
@@ -211,15 +213,15 @@ class RankedSurface:
     centre_y: float
     radius: float
     points: np.ndarray | None
-    entry_x: float
-    exit_x: float
+    scarp_x: float
+    toe_x: float
     depth: float
     area: float
     direction: int | None = None
 
     def describe(self) -> str:
         """One line locating the surface, for reports."""
-        where = f"entry x = {self.entry_x:.2f} m, exit x = {self.exit_x:.2f} m"
+        where = f"scarp at x = {self.scarp_x:.2f} m, toe at x = {self.toe_x:.2f} m"
         if self.kind == "circle":
             return (
                 f"circle centre ({self.centre_x:.2f}, {self.centre_y:.2f}) m, "
@@ -250,9 +252,9 @@ class SearchResult:
         Admissible surfaces that did not compete, counted by reason (too shallow, too small,
         method did not converge).
     stages : tuple of str
-        Search stages run, in order (e.g. "grid and radius", "circle refinement").
+        Search stages run, in order (e.g. "centre lattice", "circle refinement").
     notes : tuple of str
-        Warnings about the search itself, e.g. a best grid centre on the edge of the grid.
+        Warnings about the search itself, e.g. a best lattice centre on the edge of the centre lattice.
     """
 
     surfaces: tuple[RankedSurface, ...]
@@ -335,7 +337,7 @@ class WarmResult:
 # ----------------------------------------------------------------------------------------------
 
 
-def grid_circles(
+def lattice_circles(
     x_range: tuple[float, float],
     y_range: tuple[float, float],
     nx: int,
@@ -344,16 +346,16 @@ def grid_circles(
     tangent_elevations=None,
     radii=None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Trial circles of the grid-and-radius search.
+    """Trial circles of the centre-lattice search.
 
-    A rectangular grid of ``nx * ny`` centres; every centre carries one circle per tangent
+    A rectangular lattice of ``nx * ny`` centres; every centre carries one circle per tangent
     elevation (the elevation its lowest point touches, ``radius = centre_y - tangent``) or one
     per explicit radius. Circles with a radius <= 0 (tangent above the centre) are left out.
 
     Parameters
     ----------
     x_range, y_range : (float, float)
-        [m] Extent of the grid of centres, section frame.
+        [m] Extent of the lattice of centres, section frame.
     nx, ny : int
         Centres along x and y (1 gives the middle of the range).
     tangent_elevations : array_like, optional
@@ -364,12 +366,12 @@ def grid_circles(
     Returns
     -------
     centre_x, centre_y, radius : ndarray (n,)
-        [m] One entry per trial circle, centre-major order.
+        [m] One value per trial circle, centre-major order.
     """
     _require_int("nx", nx, 1)
     _require_int("ny", ny, 1)
     if (tangent_elevations is None) == (radii is None):
-        raise MethodError("give either tangent_elevations or radii for the grid search, not both")
+        raise MethodError("give either tangent_elevations or radii for the centre lattice, not both")
     xs = _spread(x_range, nx, "x_range")
     ys = _spread(y_range, ny, "y_range")
     cx, cy = (a.ravel() for a in np.meshgrid(xs, ys, indexing="ij"))
@@ -380,7 +382,7 @@ def grid_circles(
         levels = np.atleast_1d(np.asarray(tangent_elevations, dtype=float))
         radius = cy[:, None] - levels[None, :]
     if levels.size == 0 or not np.all(np.isfinite(levels)):
-        raise MethodError(f"grid search radii / tangent elevations must be finite, got {levels}")
+        raise MethodError(f"centre lattice radii / tangent elevations must be finite, got {levels}")
     centre_x = np.repeat(cx, levels.size)
     centre_y = np.repeat(cy, levels.size)
     radius = radius.ravel()
@@ -388,13 +390,13 @@ def grid_circles(
     return centre_x[keep], centre_y[keep], radius[keep]
 
 
-def polyline_from_circle(centre_x, centre_y, radius, entry_x, exit_x, entry_y, exit_y, n_vertices):
+def polyline_from_circle(centre_x, centre_y, radius, scarp_x, toe_x, scarp_y, toe_y, n_vertices):
     """Vertices of the arc of a circle between its two ground intersections, evenly spaced in
     angle, as a polyline of ``n_vertices`` points [m] (k, 2), ordered by increasing x."""
     _require_int("n_vertices", n_vertices, 3)
-    x_lo, x_hi = sorted((entry_x, exit_x))
-    y_lo = entry_y if x_lo == entry_x else exit_y
-    y_hi = exit_y if x_lo == entry_x else entry_y
+    x_lo, x_hi = sorted((scarp_x, toe_x))
+    y_lo = scarp_y if x_lo == scarp_x else toe_y
+    y_hi = toe_y if x_lo == scarp_x else scarp_y
     theta_lo = np.arctan2(y_lo - centre_y, x_lo - centre_x)
     theta_hi = np.arctan2(y_hi - centre_y, x_hi - centre_x)
     # Walk from the left point through the bottom of the circle (-pi/2) to the right point.
@@ -472,23 +474,23 @@ def slope_geometry(section, direction: int | None = None) -> SlopeGeometry:
     )
 
 
-def default_grid(section, nx: int = 30, ny: int = 30, n_radii: int = 20, *,
+def default_centre_lattice(section, nx: int = 30, ny: int = 30, n_radii: int = 20, *,
                  direction: int | None = None):
-    """Default grid and radius placement above the slope of ``section``.
+    """Default centre lattice placement above the slope of ``section``.
 
     Centres cover a rectangle above the face: in x from one slope width before the crest to one
     after the toe (the slope width being the larger of the face's run and its height), in y from
     the crest level up to two slope widths above it. The tangent elevations run from just below
     the crest (shallow circles, which ``min_depth`` may filter) down to one slope height below
     the toe, or down to the top of the impenetrable base. Common practice (Duncan, Wright and
-    Brandon 2014, ch. 8); the grid should be checked so that the critical centre is not on its
-    edge, which :func:`grid_and_radius` reports. ``direction`` picks the face as in
+    Brandon 2014, ch. 8); the lattice should be checked so that the critical centre is not on its
+    edge, which :func:`centre_lattice` reports. ``direction`` picks the face as in
     :func:`slope_geometry`.
 
     Returns
     -------
     dict
-        Keyword arguments for :func:`grid_circles`.
+        Keyword arguments for :func:`lattice_circles`.
     """
     g = slope_geometry(section, direction)
     width = max(g.face_length, g.height, 1.0)
@@ -507,12 +509,12 @@ def default_grid(section, nx: int = 30, ny: int = 30, n_radii: int = 20, *,
     )
 
 
-def default_entry_exit(section, n_entry: int = 20, n_exit: int = 20, n_tangents: int = 10,
-                       *, direction: int | None = None):
-    """Default ranges of the entry-and-exit search for ``section``.
+def default_scarp_toe_band(section, n_scarp: int = 20, n_toe: int = 20, n_tangents: int = 10,
+                           *, direction: int | None = None):
+    """Default ranges of the scarp-to-toe band search for ``section``.
 
-    Entry points run from one slope width behind the crest to the middle of the face; exit
-    points from the middle of the face to one slope width beyond the toe (clipped to the ground
+    Scarp points (upper ends) run from one slope width behind the crest to the middle of the
+    face; toe points (lower ends) from the middle of the face to one slope width beyond the toe (clipped to the ground
     line). Tangent elevations run from the toe level down to one slope height below it (or to the
     top of the base). Common practice (Duncan, Wright and Brandon 2014, ch. 8). ``direction``
     picks the face as in :func:`slope_geometry`.
@@ -520,7 +522,7 @@ def default_entry_exit(section, n_entry: int = 20, n_exit: int = 20, n_tangents:
     Returns
     -------
     dict
-        Keyword arguments for :func:`entry_exit`.
+        Keyword arguments for :func:`scarp_toe_band`.
     """
     g = slope_geometry(section, direction)
     width = max(g.face_length, g.height, 1.0)
@@ -529,10 +531,10 @@ def default_entry_exit(section, n_entry: int = 20, n_exit: int = 20, n_tangents:
     beyond = np.clip(g.x_toe + g.facing * width, g.x_min, g.x_max)
     lowest = g.y_toe - g.height if g.base_top is None else g.base_top
     return dict(
-        entry_range=tuple(sorted((float(behind), float(x_mid)))),
-        exit_range=tuple(sorted((float(x_mid), float(beyond)))),
-        n_entry=n_entry,
-        n_exit=n_exit,
+        scarp_range=tuple(sorted((float(behind), float(x_mid)))),
+        toe_range=tuple(sorted((float(x_mid), float(beyond)))),
+        n_scarp=n_scarp,
+        n_toe=n_toe,
         tangent_elevations=np.linspace(g.y_toe - 0.05 * g.height, lowest, n_tangents),
     )
 
@@ -542,7 +544,7 @@ def default_entry_exit(section, n_entry: int = 20, n_exit: int = 20, n_tangents:
 # ----------------------------------------------------------------------------------------------
 
 
-def grid_and_radius(
+def centre_lattice(
     section,
     settings: SearchSettings | None = None,
     *,
@@ -554,12 +556,12 @@ def grid_and_radius(
     radii=None,
     n_radii: int = 20,
 ) -> SearchResult:
-    """Grid-and-radius search for the critical circle.
+    """Centre-lattice search for the critical circle.
 
-    Every centre of an ``nx * ny`` grid carries one circle per tangent elevation (or explicit
+    Every centre of an ``nx * ny`` lattice carries one circle per tangent elevation (or explicit
     radius); all circles are sliced and solved in batches and the lowest factor of safety
     among the admissible, converged circles that pass the size filters wins. Omitted ranges
-    and tangents come from :func:`default_grid`. Where the ground does not say which way the
+    and tangents come from :func:`default_centre_lattice`. Where the ground does not say which way the
     mass moves (both ends level) and ``settings.direction`` is None, both faces are searched,
     each with its own default placement, and the result's notes say which face is critical.
 
@@ -570,7 +572,7 @@ def grid_and_radius(
     settings : SearchSettings, optional
         Method, slices, filters, numerical settings.
     x_range, y_range : (float, float), optional
-        [m] Extent of the grid of centres.
+        [m] Extent of the lattice of centres.
     nx, ny : int
         Centres along x and y.
     tangent_elevations, radii : array_like, optional
@@ -597,12 +599,12 @@ def grid_and_radius(
     for direction in _directions(section, settings):
         grid = dict(x_range=x_range, y_range=y_range, tangent_elevations=tangent_elevations)
         if x_range is None or y_range is None or (tangent_elevations is None and radii is None):
-            default = default_grid(section, nx, ny, n_radii, direction=direction)
+            default = default_centre_lattice(section, nx, ny, n_radii, direction=direction)
             for key in ("x_range", "y_range"):
                 grid[key] = default[key] if grid[key] is None else grid[key]
             if tangent_elevations is None and radii is None:
                 grid["tangent_elevations"] = default["tangent_elevations"]
-        centre_x, centre_y, radius = grid_circles(nx=nx, ny=ny, radii=radii, **grid)
+        centre_x, centre_y, radius = lattice_circles(nx=nx, ny=ny, radii=radii, **grid)
         n_dropped = nx * ny * np.atleast_1d(
             grid["tangent_elevations"] if radii is None else radii).size
         evaluated = _evaluate_circles(section, centre_x, centre_y, radius, settings, direction)
@@ -611,39 +613,40 @@ def grid_and_radius(
         parts.append(evaluated)
         grids[direction] = grid
     result = _finish(section, _concatenate(parts, sum(p.n_trials for p in parts)), settings,
-                     (f"grid and radius ({settings.method})",))
+                     (f"centre lattice ({settings.method})",))
     grid = grids[result.critical.direction]
-    notes = _grid_edge_notes(result.critical, grid["x_range"], grid["y_range"], nx, ny,
+    notes = _lattice_edge_notes(result.critical, grid["x_range"], grid["y_range"], nx, ny,
                              grid["tangent_elevations"], _base_points(section))
     return replace(result, notes=result.notes + notes)
 
 
-def entry_exit(
+def scarp_toe_band(
     section,
     settings: SearchSettings | None = None,
     *,
-    entry_range=None,
-    exit_range=None,
-    n_entry: int = 20,
-    n_exit: int = 20,
+    scarp_range=None,
+    toe_range=None,
+    n_scarp: int = 20,
+    n_toe: int = 20,
     tangent_elevations=None,
     radii=None,
     n_tangents: int = 10,
 ) -> SearchResult:
-    """Entry-and-exit search for the critical circle.
+    """Scarp-to-toe band search for the critical circle.
 
-    Entry points on the upper ground and exit points on the lower ground (evenly spaced over
+    Scarp points (upper ends) on the upper ground and toe points (lower ends) on the lower
+    ground (evenly spaced over
     the given ranges, on the ground line) are joined by circles of each radius, or touching
-    each tangent elevation (:func:`solver.surfaces.surface_from_entry_exit`). Omitted ranges
-    come from :func:`default_entry_exit`.
+    each tangent elevation (:func:`solver.surfaces.circle_from_scarp_toe`). Omitted ranges
+    come from :func:`default_scarp_toe_band`.
 
     Parameters
     ----------
     section : Section
     settings : SearchSettings, optional
-    entry_range, exit_range : (float, float), optional
-        [m] Offsets of the entry (crest side) and exit (toe side) points.
-    n_entry, n_exit : int
+    scarp_range, toe_range : (float, float), optional
+        [m] Offsets of the scarp (upper, crest side) and toe (lower) ends.
+    n_scarp, n_toe : int
         Points in each range.
     tangent_elevations, radii : array_like, optional
         [m] Elevations touched by the circle bottoms, or radii.
@@ -660,33 +663,33 @@ def entry_exit(
         2nd ed. Wiley, ch. 8.
     """
     settings = settings or SearchSettings()
-    _require_int("n_entry", n_entry, 1)
-    _require_int("n_exit", n_exit, 1)
+    _require_int("n_scarp", n_scarp, 1)
+    _require_int("n_toe", n_toe, 1)
     parts = []
     for direction in _directions(section, settings):
-        entries, exits, tangents = entry_range, exit_range, tangent_elevations
+        entries, exits, tangents = scarp_range, toe_range, tangent_elevations
         if entries is None or exits is None or (tangents is None and radii is None):
-            default = default_entry_exit(section, n_entry, n_exit, n_tangents,
+            default = default_scarp_toe_band(section, n_scarp, n_toe, n_tangents,
                                          direction=direction)
-            entries = default["entry_range"] if entries is None else entries
-            exits = default["exit_range"] if exits is None else exits
+            entries = default["scarp_range"] if entries is None else entries
+            exits = default["toe_range"] if exits is None else exits
             if tangents is None and radii is None:
                 tangents = default["tangent_elevations"]
         levels = np.atleast_1d(np.asarray(tangents if radii is None else radii, float))
-        x1 = _spread(entries, n_entry, "entry_range")
-        x2 = _spread(exits, n_exit, "exit_range")
+        x1 = _spread(entries, n_scarp, "scarp_range")
+        x2 = _spread(exits, n_toe, "toe_range")
         x1, x2, level = (a.ravel() for a in np.meshgrid(x1, x2, levels, indexing="ij"))
         key = "radius" if radii is not None else "tangent_elevation"
-        circles = surface_from_entry_exit(section, x1, x2, **{key: level})
+        circles = circle_from_scarp_toe(section, x1, x2, **{key: level})
         cx, cy, r = (np.asarray(v, float)
                      for v in (circles.centre_x, circles.centre_y, circles.radius))
         ok = np.isfinite(r)
         evaluated = _evaluate_circles(section, cx[ok], cy[ok], r[ok], settings, direction)
-        evaluated.rejected["no circle through entry and exit"] += int((~ok).sum())
+        evaluated.rejected["no circle through the scarp and toe points"] += int((~ok).sum())
         evaluated.n_trials += int((~ok).sum())
         parts.append(evaluated)
     return _finish(section, _concatenate(parts, sum(p.n_trials for p in parts)), settings,
-                   (f"entry and exit ({settings.method})",))
+                   (f"scarp-to-toe band ({settings.method})",))
 
 
 def refine_circle(
@@ -839,11 +842,11 @@ def optimise_polyline(
     if start is None:
         raise SearchError("optimise_polyline needs a search result that kept a circle")
     ground = _ground_points(section)
-    entry_y = float(_ground_elevation(section, start.entry_x))
-    exit_y = float(_ground_elevation(section, start.exit_x))
+    scarp_y = float(_ground_elevation(section, start.scarp_x))
+    toe_y = float(_ground_elevation(section, start.toe_x))
     points0 = polyline_from_circle(
         start.centre_x, start.centre_y, start.radius,
-        start.entry_x, start.exit_x, entry_y, exit_y, n_vertices,
+        start.scarp_x, start.toe_x, scarp_y, toe_y, n_vertices,
     )
     span0 = points0[-1, 0] - points0[0, 0]
     fractions = (points0[1:-1, 0] - points0[0, 0]) / span0
@@ -912,7 +915,7 @@ def search_critical_surface(
     section,
     settings: SearchSettings | None = None,
     *,
-    circles: str = "grid and radius",
+    circles: str = "centre lattice",
     screen_with: str | None = None,
     refine: bool = True,
     non_circular: bool = False,
@@ -925,7 +928,7 @@ def search_critical_surface(
     section : Section
     settings : SearchSettings, optional
     circles : str
-        "grid and radius" or "entry and exit".
+        "centre lattice" or "scarp-to-toe band".
     screen_with : str, optional
         Rank the many trial circles by this (faster) method, then re-rank the kept ones by
         ``settings.method`` (:func:`rerank`) before refining; None screens with
@@ -943,7 +946,7 @@ def search_critical_surface(
     SearchResult
     """
     settings = settings or SearchSettings()
-    searches = {"grid and radius": grid_and_radius, "entry and exit": entry_exit}
+    searches = {"centre lattice": centre_lattice, "scarp-to-toe band": scarp_toe_band}
     if circles not in searches:
         raise MethodError(f"unknown circle search {circles!r}; valid: {', '.join(searches)}")
     if screen_with and screen_with != settings.method:
@@ -1062,8 +1065,8 @@ class _Evaluated:
     radius: np.ndarray
     points: np.ndarray | None
     fos: np.ndarray
-    entry_x: np.ndarray
-    exit_x: np.ndarray
+    scarp_x: np.ndarray
+    toe_x: np.ndarray
     depth: np.ndarray
     area: np.ndarray
     direction: np.ndarray  # (n,) +1 / -1 of movement along x
@@ -1136,7 +1139,7 @@ def _solve_batch(batch, settings, centre_x, centre_y, radius, points, direction)
         return _Evaluated(
             centre_x=empty, centre_y=empty, radius=empty,
             points=None if points is None else np.asarray(points)[:0],
-            fos=empty, entry_x=empty, exit_x=empty, depth=empty, area=empty,
+            fos=empty, scarp_x=empty, toe_x=empty, depth=empty, area=empty,
             direction=np.empty(0, dtype=int),
             n_trials=len(centre_x), n_valid=0, rejected=rejected, filtered=filtered,
         )
@@ -1148,7 +1151,7 @@ def _solve_batch(batch, settings, centre_x, centre_y, radius, points, direction)
     if not settings.admissible_only:
         doubtful[:] = False
     depth, area = _surface_measures(slices)
-    entry_x, exit_x = np.asarray(batch.entry_x, float), np.asarray(batch.exit_x, float)
+    scarp_x, toe_x = np.asarray(batch.scarp_x, float), np.asarray(batch.toe_x, float)
     shallow = depth < settings.min_depth
     small = area < settings.min_area
     filtered[NO_FOS] += int((~has_fos).sum())
@@ -1165,8 +1168,8 @@ def _solve_batch(batch, settings, centre_x, centre_y, radius, points, direction)
         radius=np.asarray(radius)[rows],
         points=None if points is None else np.asarray(points)[rows],
         fos=fos[keep],
-        entry_x=entry_x[keep],
-        exit_x=exit_x[keep],
+        scarp_x=scarp_x[keep],
+        toe_x=toe_x[keep],
         depth=depth[keep],
         area=area[keep],
         direction=np.full(int(keep.sum()), direction, dtype=int),
@@ -1243,8 +1246,8 @@ def _concatenate(parts, n_trials) -> _Evaluated:
         radius=cat("radius"),
         points=cat("points") if has_points else None,
         fos=cat("fos"),
-        entry_x=cat("entry_x"),
-        exit_x=cat("exit_x"),
+        scarp_x=cat("scarp_x"),
+        toe_x=cat("toe_x"),
         depth=cat("depth"),
         area=cat("area"),
         direction=cat("direction").astype(int),
@@ -1280,8 +1283,8 @@ def _candidates_of(evaluated: _Evaluated, method: str) -> list[RankedSurface]:
                 centre_y=float(evaluated.centre_y[i]),
                 radius=float(evaluated.radius[i]),
                 points=None if evaluated.points is None else evaluated.points[i],
-                entry_x=float(evaluated.entry_x[i]),
-                exit_x=float(evaluated.exit_x[i]),
+                scarp_x=float(evaluated.scarp_x[i]),
+                toe_x=float(evaluated.toe_x[i]),
                 depth=float(evaluated.depth[i]),
                 area=float(evaluated.area[i]),
                 direction=int(evaluated.direction[i]),
@@ -1291,15 +1294,15 @@ def _candidates_of(evaluated: _Evaluated, method: str) -> list[RankedSurface]:
 
 
 def _distinct_best(evaluated: _Evaluated, settings: SearchSettings) -> np.ndarray:
-    """Indices of the best ``keep`` surfaces, each at least ``min_separation`` away (in entry or
-    exit offset) from every better one."""
+    """Indices of the best ``keep`` surfaces, each at least ``min_separation`` away (in scarp or
+    toe offset) from every better one."""
     order = np.argsort(evaluated.fos, kind="stable")
     chosen: list[int] = []
     for i in order:
         if chosen:
-            d_entry = np.abs(evaluated.entry_x[chosen] - evaluated.entry_x[i])
-            d_exit = np.abs(evaluated.exit_x[chosen] - evaluated.exit_x[i])
-            if np.any(np.maximum(d_entry, d_exit) < settings.min_separation):
+            d_scarp = np.abs(evaluated.scarp_x[chosen] - evaluated.scarp_x[i])
+            d_toe = np.abs(evaluated.toe_x[chosen] - evaluated.toe_x[i])
+            if np.any(np.maximum(d_scarp, d_toe) < settings.min_separation):
                 continue
         chosen.append(int(i))
         if len(chosen) == settings.keep:
@@ -1342,7 +1345,7 @@ def _merge(section, result, candidates, settings, tally: _Tally, stage) -> Searc
     kept: list[RankedSurface] = []
     for surface in surfaces:
         if all(
-            max(abs(surface.entry_x - k.entry_x), abs(surface.exit_x - k.exit_x))
+            max(abs(surface.scarp_x - k.scarp_x), abs(surface.toe_x - k.toe_x))
             >= settings.min_separation
             for k in kept
         ):
@@ -1405,7 +1408,7 @@ def _polyline_surface(points, direction=None) -> RankedSurface:
 def _select(evaluated: _Evaluated, rows) -> _Evaluated:
     values = {
         name: getattr(evaluated, name)[rows]
-        for name in ("centre_x", "centre_y", "radius", "fos", "entry_x", "exit_x", "depth", "area",
+        for name in ("centre_x", "centre_y", "radius", "fos", "scarp_x", "toe_x", "depth", "area",
                      "direction")
     }
     points = None if evaluated.points is None else evaluated.points[rows]
@@ -1444,17 +1447,18 @@ def _same_surface(a: RankedSurface, b: RankedSurface) -> bool:
     return a.points.shape == b.points.shape and bool(np.all(a.points == b.points))
 
 
-def _grid_edge_notes(best, x_range, y_range, nx, ny, tangent_elevations, base) -> tuple:
-    """Warn when the best circle of a grid sits on its edge: the critical circle may then lie
-    outside the grid (Duncan, Wright and Brandon 2014, ch. 8)."""
+def _lattice_edge_notes(best, x_range, y_range, nx, ny, tangent_elevations, base) -> tuple:
+    """Warn when the best circle of a centre lattice sits on its edge: the critical circle may
+    then lie outside the lattice (Duncan, Wright and Brandon 2014, ch. 8)."""
     notes = []
     close = 1e-9 * max(1.0, abs(best.centre_x), abs(best.centre_y))
     on_x = nx > 1 and min(abs(best.centre_x - v) for v in x_range) <= close
     on_y = ny > 1 and min(abs(best.centre_y - v) for v in y_range) <= close
     if on_x or on_y:
         notes.append(
-            f"the best grid centre ({best.centre_x:.2f}, {best.centre_y:.2f}) m lies on the edge "
-            "of the grid; the critical circle may lie outside it: enlarge or move the grid"
+            f"the best lattice centre ({best.centre_x:.2f}, {best.centre_y:.2f}) m lies on the "
+            "edge of the centre lattice; the critical circle may lie outside it: enlarge or move "
+            "the lattice"
         )
     if tangent_elevations is not None and np.size(tangent_elevations) > 1:
         lowest = float(np.min(tangent_elevations))
@@ -1474,7 +1478,7 @@ def _no_surface_message(n_trials, rejected: Counter, filtered: Counter) -> str:
         parts.append(f"rejected by the slicing: {_reasons(rejected)}")
     if filtered:
         parts.append(f"admissible but not competing: {_reasons(filtered)}")
-    parts.append("move or enlarge the search grid, or lower min_depth / min_area")
+    parts.append("move or enlarge the centre lattice, or lower min_depth / min_area")
     return "; ".join(parts)
 
 

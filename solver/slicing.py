@@ -117,18 +117,18 @@ class SliceBatch:
         Trial index of each row of ``slices``.
     reason : ndarray of object (n_trials,)
         "" for valid surfaces, else a short reason (the module constants NO_CUT, LEAVES, ...).
-    entry_x, exit_x : ndarray (n_valid,)
-        [m] Upslope (crest-side) and downslope (toe-side) ends of the sliding mass, in the
-        section's own x. The upslope end is at the crack when there is a tension crack. For a
-        mirrored section entry_x > exit_x.
+    scarp_x, toe_x : ndarray (n_valid,)
+        [m] Upslope (scarp) and downslope (toe) ends of the sliding mass, in the section's own
+        x. The upslope end is at the crack when there is a tension crack. For a mirrored section
+        scarp_x > toe_x.
     """
 
     slices: Slices
     valid: np.ndarray
     index: np.ndarray
     reason: np.ndarray
-    entry_x: np.ndarray
-    exit_x: np.ndarray
+    scarp_x: np.ndarray
+    toe_x: np.ndarray
 
     @property
     def n_trials(self) -> int:
@@ -209,8 +209,8 @@ def slice_polyline(
         The cross-section.
     points : array (k, 2) or (n, k, 2)
         [m] Vertices of one polyline or of a stack of polylines with the same vertex count,
-        section's own x, strictly increasing. The ends must lie on or above the ground; entry
-        and exit are where the polyline crosses the ground.
+        section's own x, strictly increasing. The ends must lie on or above the ground; the
+        ends of the sliding mass (scarp and toe) are where the polyline crosses the ground.
     n_slices, direction, min_area
         As for :func:`slice_circles`. Every vertex is also a slice boundary.
 
@@ -584,7 +584,7 @@ def _interp_rows(x, points):
 def _slice(frame: _Frame, surface, reason, n_slices, min_area, buried_reason,
            weight_centroid=True) -> SliceBatch:
     n = len(surface)
-    entry, exit_ = _entry_exit(frame, surface, reason, buried_reason)
+    entry, exit_ = _ends_on_ground(frame, surface, reason, buried_reason)
     crack_force = np.zeros(n)
     crack_y = np.zeros(n)
     if frame.crack_depth > 0:
@@ -630,12 +630,12 @@ def _slice(frame: _Frame, surface, reason, n_slices, min_area, buried_reason,
         valid=valid,
         index=rows,
         reason=reason,
-        entry_x=frame.sign * entry[rows],
-        exit_x=frame.sign * exit_[rows],
+        scarp_x=frame.sign * entry[rows],
+        toe_x=frame.sign * exit_[rows],
     )
 
 
-def _entry_exit(frame: _Frame, surface, reason, buried_reason):
+def _ends_on_ground(frame: _Frame, surface, reason, buried_reason):
     """Ends of the sliding mass (n,) [m]; rejects surfaces whose mass is not one interval
     strictly inside the section and the surface's own extent."""
     n = len(surface)

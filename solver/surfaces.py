@@ -70,10 +70,10 @@ class PolylineSurface:
         return hash(self.points.tobytes())
 
 
-def surface_from_entry_exit(
+def circle_from_scarp_toe(
     ground,
-    entry_x,
-    exit_x,
+    scarp_x,
+    toe_x,
     *,
     radius=None,
     tangent_elevation=None,
@@ -84,8 +84,10 @@ def surface_from_entry_exit(
     ----------
     ground : array (n, 2) or Section
         [m] Ground surface points (x strictly increasing), or a section (its ground is used).
-    entry_x, exit_x : float or array
-        [m] Offsets where the slip surface meets the ground (either order).
+    scarp_x, toe_x : float or array
+        [m] Offsets where the slip surface meets the ground, at its upper end (where the main
+        scarp forms) and its lower end (the toe of the surface of rupture; Cruden and Varnes
+        1996), in either order.
     radius : float or array, optional
         [m] Radius, at least half the distance between the two points. The centre is taken
         above the chord, so the surface is the shorter arc below it.
@@ -107,8 +109,8 @@ def surface_from_entry_exit(
     if (radius is None) == (tangent_elevation is None):
         raise SurfaceError("give exactly one of radius and tangent_elevation")
     points = np.asarray(getattr(ground, "ground", ground), dtype=float)
-    scalar = all(np.ndim(v) == 0 for v in (entry_x, exit_x, radius, tangent_elevation))
-    xa, xb = np.broadcast_arrays(np.asarray(entry_x, dtype=float), np.asarray(exit_x, dtype=float))
+    scalar = all(np.ndim(v) == 0 for v in (scarp_x, toe_x, radius, tangent_elevation))
+    xa, xb = np.broadcast_arrays(np.asarray(scarp_x, dtype=float), np.asarray(toe_x, dtype=float))
     xa, xb = np.minimum(xa, xb), np.maximum(xa, xb)
     outside = (xa < points[0, 0]) | (xb > points[-1, 0]) | (xa == xb)
     ya = np.interp(xa, *points.T)
@@ -146,7 +148,7 @@ def surface_from_entry_exit(
     if scalar and bool(bad):
         if bool(outside):
             problem = (
-                f"entry_x = {entry_x!r} and exit_x = {exit_x!r} m must be two different "
+                f"scarp_x = {scarp_x!r} and toe_x = {toe_x!r} m must be two different "
                 f"offsets on the ground (x = {points[0, 0]:g} to {points[-1, 0]:g} m)"
             )
         raise SurfaceError(f"no circle through the ground at these points: {problem}")

@@ -92,8 +92,8 @@ class AnalysisResult:
         c = self.critical
         surface = {
             "kind": c.kind,
-            "entry_x_m": c.entry_x,
-            "exit_x_m": c.exit_x,
+            "scarp_x_m": c.scarp_x,
+            "toe_x_m": c.toe_x,
             "depth_m": c.depth,
             "area_m2": c.area,
         }

@@ -75,7 +75,7 @@ WATER_SOURCES = ("readings", "design lines")
 
 _TABLES = {
     "slip": {"id", "section", "failed_at", "description", "section_file"},
-    "surface": {"points", "entry", "exit", "max_depth", "min_depth"},
+    "surface": {"points", "scarp", "toe", "max_depth", "min_depth"},
     "water": {"at_failure", "line"},
     "back_analysis": {
         "material", "form", "stood", "cohesion", "friction_angles", "method", "cohesion_range",
@@ -83,6 +83,9 @@ _TABLES = {
         "match_points", "refine_points", "non_circular",
     },
 }  # fmt: skip
+#: Keys of earlier versions of the case file, refused with the name that replaced them (the
+#: slip ends are named after the parts of a landslide, Cruden and Varnes 1996).
+_RENAMED = {"surface": {"entry": "scarp", "exit": "toe"}}
 _ARRAYS = {
     "observation": {"kind", "offset", "elevation", "note"},
     "cross_section": {"section", "points"},
@@ -123,7 +126,7 @@ class SlipCase:
     cohesion_range: tuple[float, float] = BACKCALC_COHESION_RANGE
     friction_range: tuple[float, float] = BACKCALC_FRICTION_RANGE
     undrained_range: tuple[float, float] = BACKCALC_UNDRAINED_RANGE
-    # [surface] entry/exit/max_depth/min_depth: {"entry": (x, y), "exit": (x, y),
+    # [surface] scarp/toe/max_depth/min_depth: {"scarp": (x, y), "toe": (x, y),
     # "max_depth_m": float, "min_depth_m": float}, or None when [surface] points is given.
     bounds: dict | None = None
 
@@ -309,7 +312,7 @@ def run_case(
         water[f"{section_id} at failure {utc_text(case.failed_at)}"] = described
         if surfaces[section_id] is None:
             b = case.bounds
-            slips.append(BoundedSlip(at_failure, b["entry"], b["exit"], b["max_depth_m"],
+            slips.append(BoundedSlip(at_failure, b["scarp"], b["toe"], b["max_depth_m"],
                                      b["min_depth_m"], section_id))
         else:
             slips.append(ObservedSlip(at_failure, surfaces[section_id], section_id))
@@ -477,8 +480,8 @@ def result_to_dict(outcome: CaseResult) -> dict:
                                {case.section_id: case.surface, **dict(case.cross_sections)}.items()
                                if s is not None},
         "observed_bounds": None if case.bounds is None else {
-            "section_id": case.section_id, "entry_m": list(case.bounds["entry"]),
-            "exit_m": list(case.bounds["exit"]), "max_depth_m": case.bounds["max_depth_m"],
+            "section_id": case.section_id, "scarp_m": list(case.bounds["scarp"]),
+            "toe_m": list(case.bounds["toe"]), "max_depth_m": case.bounds["max_depth_m"],
             "min_depth_m": case.bounds["min_depth_m"]},
         "bounded_surfaces": [
             {"section_id": b.slip, "friction_angle_deg": _num(b.friction_angle),
@@ -588,7 +591,7 @@ def format_report(outcome: CaseResult) -> str:
                          + (" (refined)" if m.refined else ""))
     if result.bounded:
         lines.append("")
-        lines.append("Critical circle through the entry and exit at each locus point (depth "
+        lines.append("Critical circle through the scarp and toe at each locus point (depth "
                      "below the ground against the bounds):")
         for b in result.bounded:
             held = f", at the {b.at_bound} bound" if b.at_bound else ""
@@ -704,7 +707,7 @@ def plot_back_analysis(outcome: CaseResult, path: Path | str, dpi: int = 150) ->
         # point as the "observed" surface, with the ends marked.
         own = [b for b in result.bounded if b.slip == case.section_id]
         observed = (own[len(own) // 2].points if own else
-                    np.array([case.bounds["entry"], case.bounds["exit"]], dtype=float))
+                    np.array([case.bounds["scarp"], case.bounds["toe"]], dtype=float))
     ground = section.ground
     y_floor = min(ground[:, 1].min(), observed[:, 1].min()) - 2.0
     handles = draw_strata(bottom, section, y_floor)
@@ -719,9 +722,9 @@ def plot_back_analysis(outcome: CaseResult, path: Path | str, dpi: int = 150) ->
     (drawn,) = bottom.plot(*observed.T, color=_OBSERVED_COLOUR, linewidth=3.0, label=label)
     handles.append(drawn)
     if case.bounds is not None:
-        (drawn,) = bottom.plot(*np.array([case.bounds["entry"], case.bounds["exit"]]).T,
+        (drawn,) = bottom.plot(*np.array([case.bounds["scarp"], case.bounds["toe"]]).T,
                                color=_OBSERVED_COLOUR, marker="v", markersize=9,
-                               linestyle="none", label="Observed entry and exit")
+                               linestyle="none", label="Observed scarp and toe")
         handles.append(drawn)
     if result.best is not None:
         fit = next(f for f in result.best.fits if f.slip == case.section_id)
@@ -752,6 +755,11 @@ def _table(data: dict, key: str, where: str) -> dict:
     table = data.get(key, {})
     if not isinstance(table, dict):
         raise ConfigError(f"{where}: [{key}] must be a table")
+    renamed = {old: new for old, new in _RENAMED.get(key, {}).items() if old in table}
+    if renamed:
+        raise ConfigError(f"{where}: [{key}] " + ", ".join(
+            f"{old} is now called {new}" for old, new in sorted(renamed.items()))
+            + " (the upper and lower ends of the slip on the ground); rename the key(s)")
     unknown = set(table) - _TABLES[key]
     if unknown:
         raise ConfigError(f"{where}: [{key}] unknown key(s) {', '.join(sorted(unknown))} "
@@ -780,20 +788,20 @@ def _need(item: dict, key: str, where: str):
 
 
 def _surface(table: dict, where: str) -> tuple[np.ndarray | None, dict | None]:
-    """[surface]: points, or entry + exit + max_depth (+ min_depth); never both."""
-    ends = {"entry", "exit", "max_depth", "min_depth"} & set(table)
+    """[surface]: points, or scarp + toe + max_depth (+ min_depth); never both."""
+    ends = {"scarp", "toe", "max_depth", "min_depth"} & set(table)
     if "points" in table:
         if ends:
-            raise ConfigError(f"{where}: give either points or entry, exit and max_depth, not "
+            raise ConfigError(f"{where}: give either points or scarp, toe and max_depth, not "
                               f"both (found points and {', '.join(sorted(ends))})")
         return _points(table["points"], f"{where} points"), None
     if not ends:
-        raise ConfigError(f"{where} needs points, or entry, exit and max_depth")
-    for key in ("entry", "exit", "max_depth"):
+        raise ConfigError(f"{where} needs points, or scarp, toe and max_depth")
+    for key in ("scarp", "toe", "max_depth"):
         if key not in table:
             raise ConfigError(f"{where} needs {key} with {', '.join(sorted(ends))} (or give "
                               "points instead)")
-    entry, exit_ = (_point(table[k], f"{where} {k}") for k in ("entry", "exit"))
+    scarp, toe = (_point(table[k], f"{where} {k}") for k in ("scarp", "toe"))
     max_depth = _number(table["max_depth"], f"{where} max_depth")
     if max_depth <= 0:
         raise ConfigError(f"{where} max_depth = {max_depth:g} m must be > 0 (the deepest the slip "
@@ -802,7 +810,7 @@ def _surface(table: dict, where: str) -> tuple[np.ndarray | None, dict | None]:
     if min_depth >= max_depth:
         raise ConfigError(f"{where} min_depth = {min_depth:g} m must be below max_depth = "
                           f"{max_depth:g} m")
-    return None, {"entry": entry, "exit": exit_, "max_depth_m": max_depth,
+    return None, {"scarp": scarp, "toe": toe, "max_depth_m": max_depth,
                   "min_depth_m": min_depth}
 
 

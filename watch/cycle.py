@@ -808,8 +808,13 @@ def _surface_dict(surface: RankedSurface) -> dict:
     return values
 
 
+#: Surface keys written by earlier versions (before the slip ends were named scarp and toe),
+#: read from searches cached in existing stores.
+_EARLIER_SURFACE_KEYS = {"entry_x": "scarp_x", "exit_x": "toe_x"}
+
+
 def _surface_from_dict(values: dict) -> RankedSurface:
-    values = dict(values)
+    values = {_EARLIER_SURFACE_KEYS.get(key, key): value for key, value in values.items()}
     values["points"] = None if values["points"] is None else np.asarray(values["points"], dtype=float)
     for key in _CIRCLE_KEYS:
         values[key] = math.nan if values[key] is None else values[key]

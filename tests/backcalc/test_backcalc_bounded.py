@@ -1,5 +1,5 @@
-"""Tests of the bounded form of the observed slip: only its entry and exit on the ground and a
-bound on its depth (solver.backcalc.BoundedSlip), and its case-file form ([surface] entry, exit,
+"""Tests of the bounded form of the observed slip: only its scarp and toe on the ground and a
+bound on its depth (solver.backcalc.BoundedSlip), and its case-file form ([surface] scarp, toe,
 max_depth; watch.backcalc).
 
 The slope is a synthetic homogeneous test slope (not a published case). The checks rest on
@@ -67,16 +67,16 @@ def known():
     # critical circle (Duncan, Wright and Brandon 2014, definition of F).
     cohesion = COHESION / f0
     friction = math.degrees(math.atan(math.tan(math.radians(FRICTION)) / f0))
-    entry = (critical.entry_x, float(np.interp(critical.entry_x, *np.array(GROUND).T)))
-    exit_ = (critical.exit_x, float(np.interp(critical.exit_x, *np.array(GROUND).T)))
-    depth = circle_depth(GROUND, critical.entry_x, critical.exit_x, critical.centre_x,
+    scarp = (critical.scarp_x, float(np.interp(critical.scarp_x, *np.array(GROUND).T)))
+    toe = (critical.toe_x, float(np.interp(critical.toe_x, *np.array(GROUND).T)))
+    depth = circle_depth(GROUND, critical.scarp_x, critical.toe_x, critical.centre_x,
                          critical.centre_y, critical.radius)
-    return dict(section=section, cohesion=cohesion, friction=friction, entry=entry, exit=exit_,
+    return dict(section=section, cohesion=cohesion, friction=friction, scarp=scarp, toe=toe,
                 depth=depth)
 
 
 def test_locus_passes_through_the_known_pair(known):
-    slip = BoundedSlip(known["section"], known["entry"], known["exit"],
+    slip = BoundedSlip(known["section"], known["scarp"], known["toe"],
                        max_depth=known["depth"] + 0.3)
     locus = fos_unity_locus(slip, "Clay", friction_angles=[known["friction"]])
     # Rounding allowance: the family holds circles within (depth range)/24 of the critical one,
@@ -94,9 +94,9 @@ def test_a_bound_that_excludes_the_critical_circle_lowers_the_locus(known):
     # allows; excluding the critical circle leaves only less critical ones, so at the known
     # pair F > 1 on all of them, and since F rises with c' the root F = 1 lies at a lower c'.
     # (A surface forced shallower than the critical one fails only if the soil was weaker.)
-    tight = BoundedSlip(known["section"], known["entry"], known["exit"],
+    tight = BoundedSlip(known["section"], known["scarp"], known["toe"],
                         max_depth=0.85 * known["depth"])
-    loose = BoundedSlip(known["section"], known["entry"], known["exit"],
+    loose = BoundedSlip(known["section"], known["scarp"], known["toe"],
                         max_depth=known["depth"] + 0.3)
     phis = [known["friction"], 15.0, 20.0]
     low = fos_unity_locus(tight, "Clay", friction_angles=phis)
@@ -131,9 +131,9 @@ def test_circles_through_ends_pass_through_both_ends_within_the_bounds(max_depth
 
 def test_bad_ends_and_bounds_give_clear_errors():
     section = homogeneous()
-    with pytest.raises(ObservedSurfaceError, match=r"entry \[8, 22\] is not on the ground"):
+    with pytest.raises(ObservedSurfaceError, match=r"scarp \[8, 22\] is not on the ground"):
         BoundedSlip(section, (8.0, 22.0), (32.0, 10.0), max_depth=5.0)
-    with pytest.raises(ObservedSurfaceError, match=r"exit \[8, 20\] is upslope of"):
+    with pytest.raises(ObservedSurfaceError, match=r"toe \[8, 20\] is upslope of"):
         BoundedSlip(section, (32.0, 10.0), (8.0, 20.0), max_depth=5.0)
     with pytest.raises(ObservedSurfaceError, match="is upslope of \\(or level with\\)"):
         BoundedSlip(section, (2.0, 20.0), (8.0, 20.0), max_depth=5.0)
@@ -142,14 +142,14 @@ def test_bad_ends_and_bounds_give_clear_errors():
             BoundedSlip(section, (8.0, 20.0), (32.0, 10.0), max_depth=bad)
     with pytest.raises(ObservedSurfaceError, match="min_depth = 5 m must be .* below max_depth"):
         BoundedSlip(section, (8.0, 20.0), (32.0, 10.0), max_depth=4.0, min_depth=5)
-    with pytest.raises(ObservedSurfaceError, match=r"entry \[60, 10\] lies off section 'H'"):
+    with pytest.raises(ObservedSurfaceError, match=r"scarp \[60, 10\] lies off section 'H'"):
         BoundedSlip(section, (60.0, 10.0), (32.0, 10.0), max_depth=4.0)
     with pytest.raises(ObservedSurfaceError, match="has a depth between min_depth = 20"):
         circles_through_ends(GROUND, 8.0, 32.0, max_depth=30.0, min_depth=20.0)
 
 
 def test_back_analysis_reports_depths_and_skips_the_surface_match(known):
-    slip = BoundedSlip(known["section"], known["entry"], known["exit"],
+    slip = BoundedSlip(known["section"], known["scarp"], known["toe"],
                        max_depth=0.85 * known["depth"])
     with pytest.raises(BackAnalysisError, match="surface match needs an observed surface"):
         match_locus(slip, fos_unity_locus(slip, "Clay", friction_angles=[20.0]))
@@ -186,28 +186,35 @@ def write(tmp_path, surface):
     return path
 
 
-def test_case_file_takes_entry_exit_and_depth_bounds(tmp_path):
-    case = load_case(write(tmp_path, "entry = [12.0, 74.0]\nexit = [33.4, 64.3]\n"
+def test_case_file_takes_scarp_toe_and_depth_bounds(tmp_path):
+    case = load_case(write(tmp_path, "scarp = [12.0, 74.0]\ntoe = [33.4, 64.3]\n"
                                      "max_depth = 4.0\nmin_depth = 2.5"))
     assert case.surface is None
-    assert case.bounds == {"entry": (12.0, 74.0), "exit": (33.4, 64.3), "max_depth_m": 4.0,
+    assert case.bounds == {"scarp": (12.0, 74.0), "toe": (33.4, 64.3), "max_depth_m": 4.0,
                            "min_depth_m": 2.5}
-    assert load_case(write(tmp_path, "entry = [12, 74]\nexit = [33.4, 64.3]\nmax_depth = 4"))\
+    assert load_case(write(tmp_path, "scarp = [12, 74]\ntoe = [33.4, 64.3]\nmax_depth = 4"))\
         .bounds["min_depth_m"] == 0.0
 
 
 @pytest.mark.parametrize("surface, message", [
-    ("points = [[12.0, 74.0], [33.4, 64.3]]\nmax_depth = 4.0", "either points or entry"),
-    ("entry = [12.0, 74.0]\nmax_depth = 4.0", "needs exit"),
-    ("entry = [12.0, 74.0]\nexit = [33.4, 64.3]\nmax_depth = 0", "max_depth = 0 m must be > 0"),
-    ("entry = [12.0, 74.0]\nexit = [33.4, 64.3]\nmax_depth = 3\nmin_depth = 3",
+    ("points = [[12.0, 74.0], [33.4, 64.3]]\nmax_depth = 4.0", "either points or scarp"),
+    ("scarp = [12.0, 74.0]\nmax_depth = 4.0", "needs toe"),
+    ("scarp = [12.0, 74.0]\ntoe = [33.4, 64.3]\nmax_depth = 0", "max_depth = 0 m must be > 0"),
+    ("scarp = [12.0, 74.0]\ntoe = [33.4, 64.3]\nmax_depth = 3\nmin_depth = 3",
      "min_depth = 3 m must be below max_depth"),
-    ("entry = [12.0]\nexit = [33.4, 64.3]\nmax_depth = 3", "entry must be one \\[x, y\\] pair"),
-    ("", "needs points, or entry, exit and max_depth"),
+    ("scarp = [12.0]\ntoe = [33.4, 64.3]\nmax_depth = 3", "scarp must be one \\[x, y\\] pair"),
+    ("", "needs points, or scarp, toe and max_depth"),
 ])
 def test_case_file_errors_for_the_bounded_surface(tmp_path, surface, message):
     with pytest.raises(ConfigError, match=message):
         load_case(write(tmp_path, surface))
+
+
+def test_case_file_refuses_the_old_end_keys_and_names_the_new_ones(tmp_path):
+    # The ends are named after the parts of a landslide (Cruden and Varnes 1996): an old case
+    # file must not be read silently with its ends dropped.
+    with pytest.raises(ConfigError, match="entry is now called scarp, exit is now called toe"):
+        load_case(write(tmp_path, "entry = [12.0, 74.0]\nexit = [33.4, 64.3]\nmax_depth = 4.0"))
 
 
 def test_bounded_case_runs_on_the_demo_section(tmp_path):
@@ -222,7 +229,7 @@ def test_bounded_case_runs_on_the_demo_section(tmp_path):
     workspace = init_workspace(tmp_path / "ws", repo / "config" / "site.toml")
     for section in (repo / "config" / "sections").glob("*.toml"):
         shutil.copy(section, workspace.sections / section.name)
-    path = write(tmp_path, "entry = [12.0, 74.0]\nexit = [33.4, 64.3]\nmax_depth = 4.0")
+    path = write(tmp_path, "scarp = [12.0, 74.0]\ntoe = [33.4, 64.3]\nmax_depth = 4.0")
     path.write_text(path.read_text().replace(
         "[back_analysis]", '[water]\nat_failure = "design lines"\n\n[back_analysis]')
         + "friction_angles = [10.0, 15.0, 5.0]\nwater_change_m = 0\nunit_weight_change_kn_m3 = 0\n",

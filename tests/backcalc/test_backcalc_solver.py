@@ -120,7 +120,7 @@ def test_round_trip_recovers_known_parameters_and_a_different_surface_fits_worse
     f0 = found.fos
     c_true = 10.0 / f0
     phi_true = np.degrees(np.arctan(np.tan(np.radians(25.0)) / f0))
-    x = np.linspace(found.entry_x, found.exit_x, 60)
+    x = np.linspace(found.scarp_x, found.toe_x, 60)
     y = found.centre_y - np.sqrt(found.radius**2 - (x - found.centre_x) ** 2)
     y[0], y[-1] = np.interp([x[0], x[-1]], *np.array(GROUND).T) + 1e-6
     observed = np.column_stack([x, y])

@@ -33,9 +33,9 @@ import numpy as np  # noqa: E402
 from solver.methods import bishop_screening  # noqa: E402
 from solver.search import (  # noqa: E402
     SearchSettings,
-    default_grid,
-    grid_and_radius,
-    grid_circles,
+    default_centre_lattice,
+    centre_lattice,
+    lattice_circles,
     refine_circle,
     warm_reevaluate,
 )
@@ -113,12 +113,12 @@ def main() -> None:
     section = three_layer_section()
     settings = SearchSettings(method="bishop_simplified", n_slices=30, tolerance=1e-4,
                               min_depth=1.0)
-    grid = default_grid(section, nx=30, ny=30, n_radii=20)
-    circles = grid_circles(grid["x_range"], grid["y_range"], grid["nx"], grid["ny"],
+    grid = default_centre_lattice(section, nx=30, ny=30, n_radii=20)
+    circles = lattice_circles(grid["x_range"], grid["y_range"], grid["nx"], grid["ny"],
                            tangent_elevations=grid["tangent_elevations"])
     n_circles = circles[0].size
 
-    search_time, result = timed(lambda: grid_and_radius(section, settings, **grid))
+    search_time, result = timed(lambda: centre_lattice(section, settings, **grid))
 
     # Where the time goes: slicing and the method alone, on the same circles in the same
     # batches and with the same calls as the search (which screens with bishop_screening).
@@ -146,7 +146,7 @@ def main() -> None:
         kernel_time += seconds
 
     tracemalloc.start()
-    grid_and_radius(section, settings, **grid)
+    centre_lattice(section, settings, **grid)
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
     peak_mb = peak / 1e6

@@ -113,12 +113,12 @@ def test_horizontal_water_thrust_on_the_ground_is_hydrostatic():
     batch = slice_circles(_section(level), *CIRCLE, 60)
     slices = batch.slices
     on = slices.active[0]
-    g_entry = float(np.interp(batch.entry_x[0], *np.array(GROUND).T))
-    g_exit = float(np.interp(batch.exit_x[0], *np.array(GROUND).T))
+    g_entry = float(np.interp(batch.scarp_x[0], *np.array(GROUND).T))
+    g_exit = float(np.interp(batch.toe_x[0], *np.array(GROUND).T))
     expected = 0.5 * GAMMA_W * ((level - g_entry) ** 2 - (level - g_exit) ** 2)
     assert slices.top_water_horizontal[0, on].sum() == pytest.approx(expected, rel=1e-9)
     assert expected < 0
-    x = np.linspace(batch.entry_x[0], batch.exit_x[0], 200001)
+    x = np.linspace(batch.scarp_x[0], batch.toe_x[0], 200001)
     water_area = np.trapezoid(level - np.interp(x, *np.array(GROUND).T), x)
     vertical = (slices.weight - slices.seismic_weight)[0, on].sum()
     assert vertical == pytest.approx(GAMMA_W * water_area, rel=1e-6)

@@ -15,7 +15,7 @@ import pytest
 
 from solver.errors import MethodError
 from solver.methods import bishop_screening, bishop_simplified, factor_of_safety
-from solver.search import SearchSettings, _screen, grid_circles
+from solver.search import SearchSettings, _screen, lattice_circles
 from solver.section import section_from_dict
 from solver.slicing import slice_circles
 
@@ -54,7 +54,7 @@ SECTIONS = {
 
 def _circles():
     # Low centres give steep toe circles, where m_alpha falls and iterations fail.
-    return grid_circles((25.0, 60.0), (12.0, 45.0), 12, 12,
+    return lattice_circles((25.0, 60.0), (12.0, 45.0), 12, 12,
                         tangent_elevations=np.linspace(3.0, 15.0, 8))
 
 

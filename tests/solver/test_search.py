@@ -18,10 +18,10 @@ from solver.errors import MethodError, SearchError
 from solver.methods import factor_of_safety
 from solver.search import (
     SearchSettings,
-    default_grid,
-    entry_exit,
-    grid_and_radius,
-    grid_circles,
+    default_centre_lattice,
+    scarp_toe_band,
+    centre_lattice,
+    lattice_circles,
     optimise_polyline,
     polyline_from_circle,
     refine_circle,
@@ -88,7 +88,7 @@ def _drained_slope(water_y=15.0, cohesion=5.0, phi=28.0):
 
 def test_taylor_sixty_degree_slope_toe_circle():
     section = _undrained([[0, H], [40, H], [40 + H / np.tan(np.radians(60)), 0], [100, 0]])
-    result = refine_circle(section, grid_and_radius(section, EXACT))
+    result = refine_circle(section, centre_lattice(section, EXACT))
     # Taylor (1937), chart of stability numbers: m = 0.191 for beta = 60 deg (from memory).
     assert _stability_number(result.fos) == pytest.approx(0.191, rel=0.03)
     assert result.critical.kind == "circle"
@@ -111,12 +111,12 @@ def test_taylor_vertical_cut_toe_circle():
             {"material": "Firm"},
         ],
     )
-    grid = grid_and_radius(section, EXACT, x_range=(40, 70), y_range=(10, 40), nx=30, ny=30,
+    grid = centre_lattice(section, EXACT, x_range=(40, 70), y_range=(10, 40), nx=30, ny=30,
                            tangent_elevations=np.linspace(-10, 0, 20))
     result = refine_circle(section, grid)
     # Taylor (1937): m = 0.261 for a vertical slope (toe circle), from memory of the chart.
     assert _stability_number(result.fos) == pytest.approx(0.261, rel=0.03)
-    assert result.critical.exit_x == pytest.approx(40.01, abs=0.05)
+    assert result.critical.toe_x == pytest.approx(40.01, abs=0.05)
 
 
 def test_taylor_flat_slope_on_deep_base_midpoint_circle():
@@ -125,7 +125,7 @@ def test_taylor_flat_slope_on_deep_base_midpoint_circle():
     base = -(depth_factor - 1) * H
     section = _undrained([[-1000, H], [0, H], [run, 0], [run + 1000, 0]],
                          base=[[-1000, base], [run + 1000, base]])
-    result = refine_circle(section, grid_and_radius(section, EXACT))
+    result = refine_circle(section, centre_lattice(section, EXACT))
     # Taylor (1937): m -> 0.181 for beta < 53 deg as D grows (mid-point circle), from memory.
     assert _stability_number(result.fos) == pytest.approx(0.181, rel=0.03)
     # The mid-point circle: centre above the middle of the slope, tangent to the base.
@@ -136,20 +136,20 @@ def test_taylor_flat_slope_on_deep_base_midpoint_circle():
 def test_ordinary_and_bishop_agree_for_phi_zero():
     section = _undrained([[0, H], [40, H], [40 + H / np.tan(np.radians(60)), 0], [100, 0]])
     grid = dict(nx=12, ny=12, n_radii=8)
-    ordinary = grid_and_radius(section, EXACT, **grid)
-    bishop = grid_and_radius(section, SearchSettings(method="bishop_simplified", min_depth=0),
+    ordinary = centre_lattice(section, EXACT, **grid)
+    bishop = centre_lattice(section, SearchSettings(method="bishop_simplified", min_depth=0),
                              **grid)
     # Bishop (1955): with tan(phi') = 0, m_alpha = cos(alpha) and Bishop's equation reduces to
     # the ordinary method's.
     assert bishop.fos == pytest.approx(ordinary.fos, rel=1e-6)
 
 
-def test_entry_exit_search_finds_the_same_critical_circle():
+def test_scarp_toe_band_search_finds_the_same_critical_circle():
     section = _undrained([[0, H], [40, H], [40 + H / np.tan(np.radians(60)), 0], [100, 0]])
-    result = refine_circle(section, entry_exit(section, EXACT, n_entry=25, n_exit=25))
+    result = refine_circle(section, scarp_toe_band(section, EXACT, n_scarp=25, n_toe=25))
     # Taylor (1937): m = 0.191 for beta = 60 deg (from memory).
     assert _stability_number(result.fos) == pytest.approx(0.191, rel=0.03)
-    assert result.stages[0].startswith("entry and exit")
+    assert result.stages[0].startswith("scarp-to-toe band")
 
 
 # ------------------------------------------------------------------------------------------
@@ -161,8 +161,8 @@ def test_grid_search_returns_the_lowest_circle_of_its_grid():
     settings = SearchSettings(min_depth=0.0, admissible_only=False)
     grid = dict(x_range=(30, 60), y_range=(22, 40), nx=8, ny=7,
                 tangent_elevations=np.linspace(12, 6.5, 6))
-    result = grid_and_radius(section, settings, **grid)
-    circles = grid_circles(**grid)
+    result = centre_lattice(section, settings, **grid)
+    circles = lattice_circles(**grid)
     batch = slice_circles(section, *circles, n_slices=settings.n_slices)
     solved = factor_of_safety(batch.slices, "bishop_simplified")
     fos = np.where(solved.converged, solved.fos, np.inf)
@@ -174,7 +174,7 @@ def test_grid_search_returns_the_lowest_circle_of_its_grid():
 def test_refinement_never_returns_a_higher_fos_than_the_grid():
     section = _drained_slope()
     for nx in (4, 7):
-        grid = grid_and_radius(section, nx=nx, ny=nx, n_radii=5)
+        grid = centre_lattice(section, nx=nx, ny=nx, n_radii=5)
         refined = refine_circle(section, grid)
         assert refined.fos <= grid.fos
         assert refined.n_trials > grid.n_trials
@@ -185,7 +185,7 @@ def test_rejections_are_counted_by_reason():
     section = _drained_slope()
     settings = SearchSettings(min_depth=0.0)
     # Centres from far below the ground to well above it: many circles cannot be slip surfaces.
-    result = grid_and_radius(section, settings, x_range=(20, 60), y_range=(0, 40), nx=9, ny=9,
+    result = centre_lattice(section, settings, x_range=(20, 60), y_range=(0, 40), nx=9, ny=9,
                              radii=[2.0, 8.0, 20.0, 60.0])
     assert result.n_trials == 9 * 9 * 4
     assert result.n_valid + result.n_rejected == result.n_trials
@@ -196,7 +196,7 @@ def test_rejections_are_counted_by_reason():
 
 def test_tangents_above_the_centre_are_counted_as_rejected():
     section = _drained_slope()
-    result = grid_and_radius(section, x_range=(35, 45), y_range=(10, 30), nx=3, ny=3,
+    result = centre_lattice(section, x_range=(35, 45), y_range=(10, 30), nx=3, ny=3,
                              tangent_elevations=[5.0, 20.0])
     # Centres at y = 10 and 20 cannot touch y = 20 from above with a positive radius.
     assert result.rejected["tangent above the centre"] == 6
@@ -207,7 +207,7 @@ def test_grid_without_any_valid_circle_raises_search_error_with_counts():
     section = _drained_slope()
     with pytest.raises(SearchError, match=r"no valid slip surface among 12 trial surfaces; "
                                           r"rejected by the slicing: 12 "):
-        grid_and_radius(section, x_range=(200, 210), y_range=(50, 60), nx=2, ny=2,
+        centre_lattice(section, x_range=(200, 210), y_range=(50, 60), nx=2, ny=2,
                         radii=[1.0, 2.0, 3.0])
 
 
@@ -216,8 +216,8 @@ def test_min_depth_keeps_skin_slips_from_winning():
     # (Duncan, Wright and Brandon 2014, ch. 6: F = tan(phi') / tan(beta) for c' = 0, dry).
     section = _drained_slope(water_y=5.0, cohesion=0.0, phi=35.0)
     grid = dict(nx=12, ny=12, n_radii=12)
-    shallow = grid_and_radius(section, SearchSettings(min_depth=0.0), **grid)
-    deep = grid_and_radius(section, SearchSettings(min_depth=3.0), **grid)
+    shallow = centre_lattice(section, SearchSettings(min_depth=0.0), **grid)
+    deep = centre_lattice(section, SearchSettings(min_depth=3.0), **grid)
     assert shallow.critical.depth < 3.0
     assert deep.critical.depth >= 3.0
     assert deep.fos >= shallow.fos
@@ -227,16 +227,16 @@ def test_min_depth_keeps_skin_slips_from_winning():
 def test_kept_surfaces_are_distinct():
     section = _drained_slope()
     settings = SearchSettings(keep=5, min_separation=2.0)
-    result = grid_and_radius(section, settings, nx=10, ny=10, n_radii=8)
+    result = centre_lattice(section, settings, nx=10, ny=10, n_radii=8)
     assert len(result.surfaces) == 5
     for i, a in enumerate(result.surfaces):
         for b in result.surfaces[i + 1:]:
-            assert max(abs(a.entry_x - b.entry_x), abs(a.exit_x - b.exit_x)) >= 2.0
+            assert max(abs(a.scarp_x - b.scarp_x), abs(a.toe_x - b.toe_x)) >= 2.0
 
 
 def test_rerank_solves_kept_surfaces_by_another_method():
     section = _drained_slope()
-    screened = grid_and_radius(section, nx=8, ny=8, n_radii=6)
+    screened = centre_lattice(section, nx=8, ny=8, n_radii=6)
     ranked = rerank(section, screened, "spencer")
     assert ranked.method == "spencer"
     assert all(s.method == "spencer" for s in ranked.surfaces)
@@ -248,10 +248,10 @@ def test_rerank_solves_kept_surfaces_by_another_method():
 def test_search_in_either_direction_gives_the_same_fos():
     ground = [[0, H], [40, H], [40 + H / np.tan(np.radians(60)), 0], [100, 0]]
     mirrored = [[-x, y] for x, y in reversed(ground)]
-    right = grid_and_radius(_undrained(ground), EXACT, nx=10, ny=10, n_radii=10)
-    left = grid_and_radius(_undrained(mirrored), EXACT, nx=10, ny=10, n_radii=10)
+    right = centre_lattice(_undrained(ground), EXACT, nx=10, ny=10, n_radii=10)
+    left = centre_lattice(_undrained(mirrored), EXACT, nx=10, ny=10, n_radii=10)
     assert left.fos == pytest.approx(right.fos, rel=1e-6)
-    assert left.critical.entry_x == pytest.approx(-right.critical.entry_x, abs=1e-6)
+    assert left.critical.scarp_x == pytest.approx(-right.critical.scarp_x, abs=1e-6)
     assert slope_geometry(_undrained(mirrored)).facing == -1
 
 
@@ -262,11 +262,11 @@ def test_scaling_the_strength_scales_the_critical_fos(k):
     # circle by k (exactly, for phi = 0), so the grid minimum scales by k and the same circle
     # wins.
     ground = [[0, H], [40, H], [40 + H / np.tan(np.radians(60)), 0], [100, 0]]
-    base = grid_and_radius(_undrained(ground), EXACT, nx=6, ny=6, n_radii=5)
+    base = centre_lattice(_undrained(ground), EXACT, nx=6, ny=6, n_radii=5)
     scaled_section = _undrained(ground, materials=[
         {"name": "Clay", "model": "undrained", "unit_weight": GAMMA,
          "undrained_strength": k * SU}])
-    scaled = grid_and_radius(scaled_section, EXACT, nx=6, ny=6, n_radii=5)
+    scaled = centre_lattice(scaled_section, EXACT, nx=6, ny=6, n_radii=5)
     assert scaled.fos == pytest.approx(k * base.fos, rel=1e-9)
     assert scaled.critical.radius == base.critical.radius
 
@@ -276,18 +276,18 @@ def test_scaling_the_strength_scales_the_critical_fos(k):
 
 
 def test_grid_circles_radii_from_tangent_elevations():
-    cx, cy, r = grid_circles((0, 10), (20, 30), 3, 2, tangent_elevations=[0.0, 5.0])
+    cx, cy, r = lattice_circles((0, 10), (20, 30), 3, 2, tangent_elevations=[0.0, 5.0])
     assert cx.size == 3 * 2 * 2
     np.testing.assert_allclose(r, cy - np.tile([0.0, 5.0], 6), rtol=1e-12)
 
 
 def test_grid_circles_needs_radii_or_tangents():
     with pytest.raises(MethodError, match="either tangent_elevations or radii"):
-        grid_circles((0, 1), (0, 1), 2, 2)
+        lattice_circles((0, 1), (0, 1), 2, 2)
     with pytest.raises(MethodError, match=r"nx must be an integer >= 1, got 0"):
-        grid_circles((0, 1), (0, 1), 0, 2, radii=[1.0])
+        lattice_circles((0, 1), (0, 1), 0, 2, radii=[1.0])
     with pytest.raises(MethodError, match=r"x_range must be two finite numbers"):
-        grid_circles((5, 1), (0, 1), 2, 2, radii=[1.0])
+        lattice_circles((5, 1), (0, 1), 2, 2, radii=[1.0])
 
 
 @given(
@@ -307,7 +307,7 @@ def test_polyline_from_circle_lies_on_the_arc(centre_x, centre_y, radius, a, b, 
 
 def test_default_grid_lies_above_the_slope():
     section = _drained_slope()
-    grid = default_grid(section)
+    grid = default_centre_lattice(section)
     assert grid["x_range"][0] < 30 < 50 < grid["x_range"][1]
     assert grid["y_range"][0] >= 20
     assert min(grid["tangent_elevations"]) < 10
@@ -328,7 +328,7 @@ def test_bad_settings_raise_method_error():
 
 def test_polyline_optimisation_does_not_raise_the_fos_and_stays_admissible():
     section = _drained_slope()
-    circles = refine_circle(section, grid_and_radius(section, nx=10, ny=10, n_radii=8))
+    circles = refine_circle(section, centre_lattice(section, nx=10, ny=10, n_radii=8))
     spencer_circles = rerank(section, circles, "spencer")
     result = optimise_polyline(section, circles, method="spencer", n_vertices=8,
                                max_evaluations=400)
@@ -345,7 +345,7 @@ def test_polyline_optimisation_does_not_raise_the_fos_and_stays_admissible():
 
 def test_polyline_optimisation_rejects_bad_limits():
     section = _drained_slope()
-    circles = grid_and_radius(section, nx=5, ny=5, n_radii=4)
+    circles = centre_lattice(section, nx=5, ny=5, n_radii=4)
     with pytest.raises(MethodError, match=r"max_inclination must be between 0 and 90 deg, got 95"):
         optimise_polyline(section, circles, max_inclination=95)
     with pytest.raises(MethodError, match=r"optimiser must be 'Nelder-Mead' or 'Powell'"):
@@ -402,24 +402,24 @@ def test_search_result_counts_add_up(searched):
     _, previous = searched
     assert isinstance(previous.rejected, Counter)
     assert previous.n_trials >= previous.n_valid + previous.n_rejected - 0
-    assert previous.stages[0].startswith("grid and radius")
+    assert previous.stages[0].startswith("centre lattice")
 
 
 def test_best_centre_on_the_grid_edge_is_noted():
     section = _undrained([[0, H], [40, H], [40 + H / np.tan(np.radians(60)), 0], [100, 0]])
     # The critical centre of this slope is near (45.6, 14.7) m (Taylor's toe circle); a grid
     # to its left must end up with its best centre on its right-hand edge.
-    narrow = grid_and_radius(section, EXACT, x_range=(30, 38), y_range=(12, 20), nx=5, ny=5,
+    narrow = centre_lattice(section, EXACT, x_range=(30, 38), y_range=(12, 20), nx=5, ny=5,
                              tangent_elevations=np.linspace(-2, 0, 3))
-    assert any("lies on the edge of the grid" in note for note in narrow.notes)
+    assert any("lies on the edge of the centre lattice" in note for note in narrow.notes)
     assert refine_circle(section, narrow).notes == narrow.notes
 
 
-def test_entry_exit_on_a_slope_facing_the_other_way():
+def test_scarp_toe_band_on_a_slope_facing_the_other_way():
     ground = [[0, H], [40, H], [40 + H / np.tan(np.radians(60)), 0], [100, 0]]
     mirrored = [[-x, y] for x, y in reversed(ground)]
-    right = entry_exit(_undrained(ground), EXACT, n_entry=10, n_exit=10)
-    left = entry_exit(_undrained(mirrored), EXACT, n_entry=10, n_exit=10)
+    right = scarp_toe_band(_undrained(ground), EXACT, n_scarp=10, n_toe=10)
+    left = scarp_toe_band(_undrained(mirrored), EXACT, n_scarp=10, n_toe=10)
     assert left.fos == pytest.approx(right.fos, rel=1e-6)
 
 
@@ -462,7 +462,7 @@ def _embankment():
 def test_search_of_a_symmetric_embankment_finds_the_same_fos_on_both_faces():
     # By symmetry about x = 0 the best circle of each face has the same F (the grids are
     # mirror images up to round-off).
-    result = grid_and_radius(_embankment(), SearchSettings(), nx=12, ny=12, n_radii=8)
+    result = centre_lattice(_embankment(), SearchSettings(), nx=12, ny=12, n_radii=8)
     best = {d: min(s.fos for s in result.surfaces if s.direction == d) for d in (1, -1)}
     assert best[1] == pytest.approx(best[-1], rel=1e-9)
     assert result.fos == pytest.approx(best[1], rel=1e-9)
@@ -470,11 +470,11 @@ def test_search_of_a_symmetric_embankment_finds_the_same_fos_on_both_faces():
     assert any(f"both faces were searched: the critical surface moves towards {towards}" in n
                for n in result.notes)
     # The critical circle lies over the face it moves away from the crest of.
-    assert result.critical.direction * result.critical.exit_x > 0
+    assert result.critical.direction * result.critical.toe_x > 0
 
 
 def test_one_face_of_an_embankment_can_be_chosen():
-    result = grid_and_radius(_embankment(), SearchSettings(direction=-1), nx=8, ny=8,
+    result = centre_lattice(_embankment(), SearchSettings(direction=-1), nx=8, ny=8,
                              n_radii=6)
     assert {s.direction for s in result.surfaces} == {-1}
     assert not any("both faces" in n for n in result.notes)
@@ -509,5 +509,5 @@ def test_acads_example_1a():
         "stratum": [{"material": "soil"}],
     })
     settings = SearchSettings(method="bishop_simplified", min_depth=0.0)
-    result = refine_circle(section, grid_and_radius(section, settings))
+    result = refine_circle(section, centre_lattice(section, settings))
     assert result.fos == pytest.approx(1.00, rel=0.03)

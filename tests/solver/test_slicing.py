@@ -37,7 +37,7 @@ from solver.slicing import (
     slice_polyline,
     slice_surface,
 )
-from solver.surfaces import CircularSurface, PolylineSurface, surface_from_entry_exit
+from solver.surfaces import CircularSurface, PolylineSurface, circle_from_scarp_toe
 
 LOW = -100.0  # [m] far below every test section, to close "region below a line" polygons
 
@@ -262,7 +262,7 @@ def test_every_geometry_break_is_a_slice_boundary():
     row = 0
     bounds = set(np.round(slices.x_left[row][slices.active[row]], 9)) | {
         round(float(slices.x_right[row][slices.active[row]][-1]), 9)}
-    entry, exit_ = batch.entry_x[row], batch.exit_x[row]
+    entry, exit_ = batch.scarp_x[row], batch.toe_x[row]
     expected = [20.0, 45.0, 30.0, 40.0, 31.5, 33.25]  # ground, bottom, water vertices; strip
     for x in expected:
         if entry < x < exit_:
@@ -287,7 +287,7 @@ def test_circle_chord_area_converges_to_circular_segment():
     theta = 2 * math.acos((yc - 10.0) / r)
     exact = r * r * (theta - math.sin(theta)) / 2
     assert batch.slices.weight.sum() / 18.0 == pytest.approx(exact, rel=1e-6)
-    assert batch.entry_x[0] == pytest.approx(xc - math.sqrt(r * r - 16.0), rel=1e-12)
+    assert batch.scarp_x[0] == pytest.approx(xc - math.sqrt(r * r - 16.0), rel=1e-12)
 
 
 @settings(max_examples=40, deadline=None)
@@ -350,7 +350,7 @@ def test_mirrored_section_gives_the_same_slices(make):
     for total in (lambda s: s.weight.sum(axis=1), lambda s: (s.pore_pressure * s.width).sum(axis=1),
                   lambda s: np.abs(s.alpha).sum(axis=1), lambda s: s.surcharge.sum(axis=1)):
         np.testing.assert_allclose(total(b), total(a), rtol=1e-9)
-    np.testing.assert_allclose(mirrored.entry_x, -plain.entry_x, rtol=1e-12)
+    np.testing.assert_allclose(mirrored.scarp_x, -plain.scarp_x, rtol=1e-12)
     np.testing.assert_allclose(b.centre_x, a.centre_x, rtol=1e-12)
 
 
@@ -421,7 +421,7 @@ def test_ponded_water_adds_its_weight():
         "ground"]["points"], "pond": True}})
     a = slice_circles(dry_top, 25.0, 30.0, 21.0)
     b = slice_circles(ponded, 25.0, 30.0, 21.0)
-    entry, exit_ = a.entry_x[0], a.exit_x[0]
+    entry, exit_ = a.scarp_x[0], a.toe_x[0]
     pond = shapely.box(entry, 10.0, exit_, 13.0).difference(
         below(homogeneous_dict()["ground"]["points"]))
     # Hand check: ponded water weighs gamma_w times its area (shapely) over the mass.
@@ -471,7 +471,7 @@ def test_surcharge_total_is_pressure_times_loaded_width_inside_the_mass():
     data = homogeneous_dict(surcharge=[{"x_from": 2.0, "x_to": 8.0, "pressure": 20.0},
                                        {"x_from": 12.0, "x_to": 14.5, "pressure": 7.5}])
     batch = slice_circles(section_from_dict(data), 22.0, 28.0, 19.0)
-    entry = batch.entry_x[0]
+    entry = batch.scarp_x[0]
     assert 2.0 < entry < 8.0
     # Hand check: strip load p over the part of the strip that lies on the mass.
     expected = 20.0 * (8.0 - entry) + 7.5 * 2.5
@@ -485,7 +485,7 @@ def test_tension_crack_cuts_off_the_top_of_the_mass():
     # The crack bottom is where the circle lies 2 m below the level crest (y = 20 m):
     # 28 - sqrt(19^2 - (x - 22)^2) = 18.
     x_crack = 22.0 - math.sqrt(19.0**2 - 10.0**2)
-    assert batch.entry_x[0] == pytest.approx(x_crack, rel=1e-12)
+    assert batch.scarp_x[0] == pytest.approx(x_crack, rel=1e-12)
     assert s.x_left[0, 0] == pytest.approx(x_crack, rel=1e-12)
     # Hydrostatic thrust 0.5 gamma_w z_w^2 at z_w / 3 above the crack bottom.
     assert s.crack_water_force[0] == pytest.approx(0.5 * GAMMA_W * 1.5**2, rel=1e-12)
@@ -538,7 +538,7 @@ def test_polyline_moment_centre_is_the_circle_through_ends_and_deepest_vertex():
     section = section_from_dict(homogeneous_dict())
     # Vertices on a circle through two ground points: the polyline ends on the ground, so the
     # circle through its ends and any other vertex is that circle (three points fix a circle).
-    circle = surface_from_entry_exit(section, 5.0, 40.0, radius=25.0)
+    circle = circle_from_scarp_toe(section, 5.0, 40.0, radius=25.0)
     x = np.array([5.0, 8.0, 15.0, 22.0, 30.0, 36.0, 40.0])
     y = circle.centre_y - np.sqrt(circle.radius**2 - (x - circle.centre_x) ** 2)
     batch = slice_polyline(section, np.column_stack([x, y]))
@@ -618,7 +618,7 @@ def test_polyline_end_on_the_ground_is_accepted():
     points = np.array([[5, 20.0], [15, 12.0], [35, 9.0], [40, 10.0]])  # both ends on the ground
     batch = slice_polyline(section, points)
     assert batch.valid[0]
-    assert (batch.entry_x[0], batch.exit_x[0]) == (5.0, 40.0)
+    assert (batch.scarp_x[0], batch.toe_x[0]) == (5.0, 40.0)
 
 
 def test_slice_surface_raises_with_the_reason():
@@ -644,13 +644,13 @@ def test_bad_settings_are_refused():
 
 
 # ---------------------------------------------------------------------------------------------
-# Circles from entry and exit points
+# Circles from scarp and toe points
 # ---------------------------------------------------------------------------------------------
 
 
 def test_circle_through_entry_and_exit_with_a_radius():
     section = section_from_dict(homogeneous_dict())
-    circle = surface_from_entry_exit(section, 5.0, 40.0, radius=25.0)
+    circle = circle_from_scarp_toe(section, 5.0, 40.0, radius=25.0)
     for x in (5.0, 40.0):
         y = float(section.ground_elevation(x))
         # The circle passes through both ground points (distance to the centre = R).
@@ -658,12 +658,12 @@ def test_circle_through_entry_and_exit_with_a_radius():
                                                                                      rel=1e-12)
     batch = slice_circles(section, circle.centre_x, circle.centre_y, circle.radius)
     assert batch.valid[0]
-    assert (batch.entry_x[0], batch.exit_x[0]) == pytest.approx((5.0, 40.0), rel=1e-9)
+    assert (batch.scarp_x[0], batch.toe_x[0]) == pytest.approx((5.0, 40.0), rel=1e-9)
 
 
 def test_circle_through_entry_and_exit_with_a_tangent_elevation():
     section = section_from_dict(homogeneous_dict())
-    circle = surface_from_entry_exit(section.ground, 5.0, 40.0, tangent_elevation=6.0)
+    circle = circle_from_scarp_toe(section.ground, 5.0, 40.0, tangent_elevation=6.0)
     assert circle.centre_y - circle.radius == pytest.approx(6.0, rel=1e-12)
     for x in (5.0, 40.0):
         y = float(section.ground_elevation(x))
@@ -671,7 +671,7 @@ def test_circle_through_entry_and_exit_with_a_tangent_elevation():
             circle.radius, rel=1e-12)
     assert 5.0 < circle.centre_x < 40.0
     # Vectorised: arrays in, arrays out; impossible combinations become NaN.
-    family = surface_from_entry_exit(section, [5.0, 5.0], [40.0, 40.0],
+    family = circle_from_scarp_toe(section, [5.0, 5.0], [40.0, 40.0],
                                      tangent_elevation=[6.0, 25.0])
     assert np.isfinite(family.centre_x[0]) and np.isnan(family.centre_x[1])
 
@@ -679,13 +679,13 @@ def test_circle_through_entry_and_exit_with_a_tangent_elevation():
 def test_impossible_circles_are_refused():
     section = section_from_dict(homogeneous_dict())
     with pytest.raises(SurfaceError, match="radius = 1.0 m is shorter than half the chord"):
-        surface_from_entry_exit(section, 5.0, 40.0, radius=1.0)
+        circle_from_scarp_toe(section, 5.0, 40.0, radius=1.0)
     with pytest.raises(SurfaceError, match="tangent_elevation = 25.0 m must lie below"):
-        surface_from_entry_exit(section, 5.0, 40.0, tangent_elevation=25.0)
+        circle_from_scarp_toe(section, 5.0, 40.0, tangent_elevation=25.0)
     with pytest.raises(SurfaceError, match="exactly one of radius and tangent_elevation"):
-        surface_from_entry_exit(section, 5.0, 40.0)
-    with pytest.raises(SurfaceError, match="entry_x = 5.0 and exit_x = 60.0 m must be"):
-        surface_from_entry_exit(section, 5.0, 60.0, radius=40.0)
+        circle_from_scarp_toe(section, 5.0, 40.0)
+    with pytest.raises(SurfaceError, match="scarp_x = 5.0 and toe_x = 60.0 m must be"):
+        circle_from_scarp_toe(section, 5.0, 60.0, radius=40.0)
 
 
 def test_circle_drawing_points_lie_on_the_circle():

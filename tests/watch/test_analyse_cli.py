@@ -83,7 +83,7 @@ def test_analyse_prints_every_method_and_the_critical_surface(section_file):
         assert name in result.output
     assert "(governing)" in result.output
     assert "Critical surface" in result.output and "circle centre" in result.output
-    assert "entry x =" in result.output and "exit x =" in result.output
+    assert "scarp at x =" in result.output and "toe at x =" in result.output
     assert "Caution" in result.output
 
 
@@ -96,7 +96,7 @@ def test_analyse_json_parses_and_matches_the_library(section_file):
     assert {m["method"] for m in data["fos_by_method"]} == set(METHOD_NAMES)
     surface = data["critical_surface"]
     assert surface["kind"] == "circle"
-    assert 0 <= surface["entry_x_m"] < surface["exit_x_m"] <= 80
+    assert 0 <= surface["scarp_x_m"] < surface["toe_x_m"] <= 80
     assert surface["depth_m"] >= 1.0  # [search] min_depth
     library = analyse_section(section_file)
     assert data["fos"] == pytest.approx(library.fos, rel=1e-12)
