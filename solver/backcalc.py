@@ -1352,17 +1352,28 @@ def _critical_points(surface: RankedSurface, n: int = 120) -> np.ndarray:
     return np.column_stack([x, np.interp(x, *points.T)])
 
 
-def _search_settings(section: Section, settings: BackAnalysisSettings, match: MatchSettings):
+def _search_settings(section: Section, settings: BackAnalysisSettings, match: MatchSettings,
+                     direction: int | None = None):
     options = section.search or {}
     min_depth = match.min_depth
     if min_depth is None:
         min_depth = options.get("min_depth", SearchSettings.min_depth)
     return SearchSettings(method=settings.method, n_slices=options.get("slices", settings.n_slices),
-                          min_depth=min_depth)
+                          min_depth=min_depth, direction=direction)
 
 
-def _critical_surface(section: Section, settings: BackAnalysisSettings, match: MatchSettings):
-    search = _search_settings(section, settings, match)
+def _movement(surface: np.ndarray) -> int:
+    """Direction of movement along x (+1, -1) of a slip surface: from its higher end on the
+    ground towards its lower end (the face the slip came down)."""
+    return 1 if surface[0, 1] >= surface[-1, 1] else -1
+
+
+def _critical_surface(section: Section, settings: BackAnalysisSettings, match: MatchSettings,
+                      direction: int | None = None):
+    """The critical surface of ``section``; on the face whose slides move in ``direction``
+    when given (a slip is compared with the critical surface of the face it came down, not
+    with that of another face of the section)."""
+    search = _search_settings(section, settings, match, direction)
     screen = match.screen_with if match.screen_with != settings.method else None
     result = search_critical_surface(section, search, circles=match.circles, screen_with=screen)
     if match.non_circular:
@@ -1374,7 +1385,7 @@ def _critical_surface(section: Section, settings: BackAnalysisSettings, match: M
 def _fit(model: _SlipModel, strength: dict, settings, match) -> SurfaceFit:
     section = _section_with(model, strength)
     try:
-        critical = _critical_surface(section, settings, match)
+        critical = _critical_surface(section, settings, match, _movement(model.surface))
     except SearchError as error:
         raise BackAnalysisError(
             f"no critical surface found on {model.name!r} with {_describe(strength, model.form)}: "

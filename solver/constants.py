@@ -32,10 +32,16 @@ SEARCH_SLICES = 30
 #: A project default, not a published value (set 0 to let every surface compete).
 SEARCH_MIN_DEPTH = 1.0
 
-#: Distinct best surfaces kept by a search and re-evaluated warm, and how far apart [m] (in
-#: entry or exit offset) two kept surfaces must be.
+#: Distinct best surfaces kept by a search on each face and re-evaluated warm, and how far apart
+#: [m] (in scarp or toe offset) two kept surfaces of a face must be.
 SEARCH_KEEP = 10
 SEARCH_MIN_SEPARATION = 0.5
+
+#: A section has a face towards +x (or -x) where its ground falls in that direction by at least
+#: this fraction of its whole relief (highest minus lowest ground point); every such face is
+#: searched. Smaller falls (a kerb, a ditch lip, a gentle rise of the floodplain) are not slope
+#: faces. A project setting, not a published value; [search] face names a face explicitly.
+SEARCH_FACE_MIN_HEIGHT_FRACTION = 0.1
 
 #: Trial surfaces sliced and solved together (bounds the memory of big searches).
 SEARCH_BATCH_SIZE = 4096

@@ -41,6 +41,7 @@ from solver.constants import (
     FOS_TOLERANCE,
     MAX_ITERATIONS,
     SEARCH_BATCH_SIZE,
+    SEARCH_FACE_MIN_HEIGHT_FRACTION,
     SEARCH_FULL_SEARCH_TOLERANCE,
     SEARCH_KEEP,
     SEARCH_MAX_ANGLE_CHANGE_DEG,
@@ -56,10 +57,12 @@ from solver.constants import (
 from solver import methods
 from solver.errors import MethodError, SearchError
 from solver.methods import factor_of_safety
+from solver.section import FACES
 from solver.slicing import slice_circles, slice_polyline
 from solver.surfaces import circle_from_scarp_toe
 
 __all__ = [
+    "FACES",
     "RankedSurface",
     "SearchResult",
     "SearchSettings",
@@ -69,13 +72,16 @@ __all__ = [
     "default_centre_lattice",
     "scarp_toe_band",
     "every_method",
+    "face_name",
     "centre_lattice",
     "lattice_circles",
     "optimise_polyline",
+    "placement_from_section",
     "polyline_from_circle",
     "refine_circle",
     "rerank",
     "search_critical_surface",
+    "slope_faces",
     "slope_geometry",
     "warm_reevaluate",
 ]
@@ -86,6 +92,11 @@ NO_FOS = "no positive factor of safety (driving load not positive or iteration b
 #: Reasons recorded for admissible surfaces removed by the size filters.
 TOO_SHALLOW = "shallower than min_depth"
 TOO_SMALL = "sliding mass smaller than min_area"
+
+#: Default centre lattice: centres along x and along y, and tangent levels (section file
+#: [search] centres and tangent_levels).
+_DEFAULT_CENTRES = 30
+_DEFAULT_TANGENT_LEVELS = 20
 
 #: Penalty added to the objective of the polyline optimisation for an inadmissible polyline; far
 #: above any factor of safety, so the optimiser retreats from it.
@@ -114,11 +125,11 @@ class SearchSettings:
     min_area : float
         [m2] Smallest admissible area of the sliding mass. 0 lets every surface compete.
     keep : int
-        Number of distinct best surfaces kept in the result (and re-evaluated by
-        :func:`warm_reevaluate`).
+        Number of distinct best surfaces kept in the result on each face searched (and
+        re-evaluated by :func:`warm_reevaluate`, so that a change on any face is seen).
     min_separation : float
-        [m] Two kept surfaces differ by at least this much in scarp or toe offset, so the kept
-        surfaces describe different mechanisms rather than neighbours of one circle.
+        [m] Two kept surfaces of a face differ by at least this much in scarp or toe offset, so
+        the kept surfaces describe different mechanisms rather than neighbours of one circle.
     tolerance : float
         Tolerance on the factor of safety passed to an iterative method [-].
     max_iterations : int
@@ -134,10 +145,9 @@ class SearchSettings:
     batch_size : int
         Trial surfaces sliced and solved together; bounds the memory of big searches.
     direction : {None, +1, -1}
-        Direction of movement along x of the surfaces searched. None (default) takes it from
-        the ground (from its higher end towards its lower end) and, where both ends of the
-        ground are at the same elevation (an embankment, a cutting between level ground),
-        searches both faces; +1 or -1 searches only the face whose mass moves that way.
+        Direction of movement along x of the surfaces searched. None (default) searches every
+        face of the section (:func:`slope_faces`: an embankment, a ridge or a spoil heap has
+        two); +1 or -1 searches only the face whose mass moves that way (:data:`FACES`).
     """
 
     method: str = "bishop_simplified"
@@ -254,7 +264,17 @@ class SearchResult:
     stages : tuple of str
         Search stages run, in order (e.g. "centre lattice", "circle refinement").
     notes : tuple of str
-        Warnings about the search itself, e.g. a best lattice centre on the edge of the centre lattice.
+        Warnings about the search itself, e.g. a best lattice centre on the edge of the centre
+        lattice.
+    faces : tuple of int
+        Directions of movement (+1, -1) of the faces searched (:func:`slope_faces`); each kept
+        surface belongs to one of them.
+    lattice_edge : tuple of int
+        Faces (directions) whose best circle of a centre lattice has its centre on the edge of
+        the lattice: the critical circle may lie outside it.
+    lowest_tangent : tuple of int
+        Faces whose best circle of a centre lattice touches its lowest tangent level (above
+        the base): deeper circles may be more critical.
     """
 
     surfaces: tuple[RankedSurface, ...]
@@ -266,6 +286,19 @@ class SearchResult:
     filtered: Counter = field(default_factory=Counter)
     stages: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
+    faces: tuple[int, ...] = ()
+    lattice_edge: tuple[int, ...] = ()
+    lowest_tangent: tuple[int, ...] = ()
+
+    @property
+    def by_face(self) -> dict:
+        """The critical surface of each face searched, {direction: RankedSurface or None},
+        lowest factor of safety first; None for a face where no surface was admissible. The
+        governing surface (:attr:`critical`) is the first."""
+        best = {}
+        for surface in self.surfaces:  # ranked, lowest FoS first
+            best.setdefault(surface.direction, surface)
+        return best | {d: None for d in self.faces if d not in best}
 
     @property
     def critical(self) -> RankedSurface:
@@ -446,20 +479,71 @@ class SlopeGeometry:
         return abs(self.x_toe - self.x_crest)
 
 
+def _face(ground, direction: int):
+    """The face of the ground whose mass moves in ``direction``: (x, y) of the ground in the
+    movement frame (the face descends towards +x) and the indices of its crest and toe.
+
+    The face is the largest fall of the ground in that direction, from the highest point
+    before it (crest level) to its lowest point (toe level); the crest is the last point near
+    crest level and the toe the first point near toe level after it ("near": within 2 % of
+    the fall). Its height is 0 where the ground never falls that way.
+    """
+    x, y = ground[:, 0], ground[:, 1]
+    if direction < 0:
+        x, y = -x[::-1], y[::-1]
+    highest_before = np.maximum.accumulate(y)
+    fall = highest_before - y
+    j = int(np.argmax(fall))
+    y_high, y_low = highest_before[j], y[j]
+    band = 0.02 * max(y_high - y_low, 1e-9)
+    i_crest = int(np.nonzero(y[: j + 1] >= y_high - band)[0].max())
+    i_toe = i_crest + int(np.nonzero(y[i_crest:] <= y_low + band)[0].min())
+    return x, y, i_crest, i_toe
+
+
+def slope_faces(section, min_height_fraction: float = SEARCH_FACE_MIN_HEIGHT_FRACTION):
+    """Directions of movement (+1, -1) of the faces of ``section``, highest face first.
+
+    The ground has a face towards +x (-x) where it falls in that direction by at least
+    ``min_height_fraction`` of its whole relief: one face for a natural slope or one side of a
+    cutting, two for an embankment, a ridge, a spoil heap or a cutting with both sides. Level
+    ground has no fall either way; both directions are then returned.
+
+    Parameters
+    ----------
+    section : Section or array (n, 2)
+        The section, or its ground points [m].
+    min_height_fraction : float
+        Smallest fall that counts as a face, as a fraction of the relief [-].
+
+    Returns
+    -------
+    tuple of int
+    """
+    ground = _ground_points(section)
+    heights = {}
+    for direction in (1, -1):
+        _, y, i_crest, i_toe = _face(ground, direction)
+        heights[direction] = float(y[i_crest] - y[i_toe])
+    relief = float(np.ptp(ground[:, 1]))
+    if relief <= 0:
+        return (1, -1)
+    faces = [d for d in (1, -1) if heights[d] > 0 and heights[d] >= min_height_fraction * relief]
+    return tuple(sorted(faces, key=lambda d: -heights[d]))
+
+
+def face_name(direction: int) -> str:
+    """The name of the face (:data:`FACES`) whose slides move in ``direction`` (+1 or -1)."""
+    return next(name for name, d in FACES.items() if d == direction)
+
+
 def slope_geometry(section, direction: int | None = None) -> SlopeGeometry:
     """Crest, toe and facing of the slope of ``section`` (see :class:`SlopeGeometry`): of the
     face whose mass moves in ``direction`` (+1 towards +x, -1 towards -x), by default the
-    one the ground descends to (towards +x when its ends are level)."""
+    highest face (:func:`slope_faces`)."""
     ground = _ground_points(section)
-    x, y = ground[:, 0], ground[:, 1]
-    facing = (1 if y[0] >= y[-1] else -1) if direction is None else int(direction)
-    if facing < 0:
-        x, y = -x[::-1], y[::-1]
-    y_high, y_low = y.max(), y.min()
-    band = 0.02 * max(y_high - y_low, 1e-9)
-    i_crest = int(np.nonzero(y >= y_high - band)[0].max())
-    after = np.nonzero((y <= y_low + band) & (np.arange(y.size) >= i_crest))[0]
-    i_toe = int(after.min()) if after.size else y.size - 1
+    facing = slope_faces(section)[0] if direction is None else int(direction)
+    x, y, i_crest, i_toe = _face(ground, facing)
     x_crest, x_toe = facing * x[i_crest], facing * x[i_toe]
     base = _base_points(section)
     return SlopeGeometry(
@@ -474,7 +558,8 @@ def slope_geometry(section, direction: int | None = None) -> SlopeGeometry:
     )
 
 
-def default_centre_lattice(section, nx: int = 30, ny: int = 30, n_radii: int = 20, *,
+def default_centre_lattice(section, nx: int = _DEFAULT_CENTRES, ny: int = _DEFAULT_CENTRES,
+                           n_radii: int = _DEFAULT_TANGENT_LEVELS, *,
                  direction: int | None = None):
     """Default centre lattice placement above the slope of ``section``.
 
@@ -550,11 +635,11 @@ def centre_lattice(
     *,
     x_range=None,
     y_range=None,
-    nx: int = 30,
-    ny: int = 30,
+    nx: int = _DEFAULT_CENTRES,
+    ny: int = _DEFAULT_CENTRES,
     tangent_elevations=None,
     radii=None,
-    n_radii: int = 20,
+    n_radii: int = _DEFAULT_TANGENT_LEVELS,
 ) -> SearchResult:
     """Centre-lattice search for the critical circle.
 
@@ -614,10 +699,18 @@ def centre_lattice(
         grids[direction] = grid
     result = _finish(section, _concatenate(parts, sum(p.n_trials for p in parts)), settings,
                      (f"centre lattice ({settings.method})",))
-    grid = grids[result.critical.direction]
-    notes = _lattice_edge_notes(result.critical, grid["x_range"], grid["y_range"], nx, ny,
-                             grid["tangent_elevations"], _base_points(section))
-    return replace(result, notes=result.notes + notes)
+    notes, on_edge, on_lowest = (), (), ()
+    for direction, best in result.by_face.items():
+        if best is None:
+            continue
+        grid = grids[direction]
+        edge, lowest = _lattice_edges(best, grid["x_range"], grid["y_range"], nx, ny,
+                                      grid["tangent_elevations"], _base_points(section))
+        on_edge += (direction,) * edge
+        on_lowest += (direction,) * lowest
+        notes += _lattice_edge_notes(best, grid, edge, lowest, len(grids) > 1)
+    return replace(result, notes=result.notes + notes, lattice_edge=on_edge,
+                   lowest_tangent=on_lowest)
 
 
 def scarp_toe_band(
@@ -716,7 +809,8 @@ def refine_circle(
     result : SearchResult
         A circular search (its settings are reused).
     starts : int
-        Number of kept circles refined (guards against a local minimum near the best one).
+        Number of kept circles refined on each face (guards against a local minimum near the
+        best one).
     initial_step : float, optional
         [m] First step h; default 5 % of the radius of each start circle.
     step_tolerance : float
@@ -740,7 +834,10 @@ def refine_circle(
     if initial_step is not None and not initial_step > step_tolerance:
         raise MethodError(f"initial_step must exceed step_tolerance, got {initial_step!r} m")
     settings = result.settings
-    circles = [s for s in result.surfaces if s.kind == "circle"][:starts]
+    circles = []
+    for direction in dict.fromkeys(s.direction for s in result.surfaces):
+        circles += [s for s in result.surfaces
+                    if s.kind == "circle" and s.direction == direction][:starts]
     if not circles:
         raise SearchError("refine_circle needs a search result that kept at least one circle")
     pattern = np.array([p for p in product((-1, 0, 1), repeat=3) if any(p)], dtype=float)
@@ -786,7 +883,7 @@ def optimise_polyline(
 ) -> SearchResult:
     """Non-circular search: turn the critical circle into a polyline and move its vertices.
 
-    The arc of the best circle between its ground intersections becomes ``n_vertices`` points.
+    This is done from the best circle of each face searched. The arc of the circle between its ground intersections becomes ``n_vertices`` points.
     The free parameters are the offsets of the two end points (which stay on the ground) and
     the elevations of the interior vertices (whose offsets keep their fractions of the span), so
     x stays strictly increasing. They are moved by :func:`scipy.optimize.minimize` on the factor
@@ -838,9 +935,28 @@ def optimise_polyline(
     if optimiser not in ("Nelder-Mead", "Powell"):
         raise MethodError(f"optimiser must be 'Nelder-Mead' or 'Powell', got {optimiser!r}")
     settings = replace(result.settings, method=method)
-    start = next((s for s in result.surfaces if s.kind == "circle"), None)
-    if start is None:
+    # The best circle of each face (the kept surfaces are ranked, lowest FoS first).
+    starts = [next((s for s in result.surfaces
+                    if s.kind == "circle" and s.direction == d), None) for d in result.by_face]
+    starts = [s for s in starts if s is not None]
+    if not starts:
         raise SearchError("optimise_polyline needs a search result that kept a circle")
+    candidates = list(result.surfaces)
+    tally = _Tally()
+    for start in starts:
+        points = _optimise_from(section, start, settings, n_vertices, max_inclination,
+                                max_angle_change, optimiser, max_evaluations, tally)
+        if points is not None:
+            candidates.append(_polyline_surface(points, start.direction))
+    return _merge(
+        section, result, candidates, settings, tally, f"non-circular optimisation ({method})"
+    )
+
+
+def _optimise_from(section, start, settings, n_vertices, max_inclination, max_angle_change,
+                   optimiser, max_evaluations, tally):
+    """The polyline optimised from the circle ``start`` (:func:`optimise_polyline`), or None
+    when the optimiser found no admissible one."""
     ground = _ground_points(section)
     scarp_y = float(_ground_elevation(section, start.scarp_x))
     toe_y = float(_ground_elevation(section, start.toe_x))
@@ -854,7 +970,6 @@ def optimise_polyline(
     # The arc itself must be admissible, whatever the limits asked for.
     limit_incl = max(np.radians(max_inclination), np.abs(theta0).max() + 1e-9)
     limit_turn = max(np.radians(max_angle_change), np.diff(theta0).max() + 1e-9)
-    tally = _Tally()
 
     def points_of(p):
         x_lo, x_hi = p[0], p[1]
@@ -891,12 +1006,9 @@ def optimise_polyline(
     else:
         options = {"maxfev": max_evaluations, "direc": scale * np.eye(p0.size), "xtol": 1e-3}
     solution = optimize.minimize(objective, p0, method=optimiser, options=options)
-    candidates = list(result.surfaces)
     if solution.fun < _PENALTY:
-        candidates.append(_polyline_surface(points_of(solution.x), start.direction))
-    return _merge(
-        section, result, candidates, settings, tally, f"non-circular optimisation ({method})"
-    )
+        return points_of(solution.x)
+    return None
 
 
 def rerank(section, result: SearchResult, method: str) -> SearchResult:
@@ -911,6 +1023,30 @@ def rerank(section, result: SearchResult, method: str) -> SearchResult:
     return _merge(section, result, list(result.surfaces), settings, _Tally(), f"ranked by {method}")
 
 
+def placement_from_section(search: dict) -> dict:
+    """The centre-lattice placement (keyword arguments of :func:`centre_lattice`) set by a
+    section file's ``[search]`` table (docs/formats.md, section 1): ``centre_x_range`` and
+    ``centre_y_range`` [m] (x_range, y_range), ``centres`` [along x, along y] (nx, ny),
+    ``tangent_range`` [m] and ``tangent_levels`` (tangent levels evenly spread over the range,
+    or the count of the default levels). Keys left out keep the default placement
+    (:func:`default_centre_lattice`); on a section with two faces the given ranges serve both
+    faces searched, so give them with ``face``, or wide enough to cover both."""
+    placement = {}
+    if "centre_x_range" in search:
+        placement["x_range"] = tuple(float(v) for v in search["centre_x_range"])
+    if "centre_y_range" in search:
+        placement["y_range"] = tuple(float(v) for v in search["centre_y_range"])
+    if "centres" in search:
+        placement["nx"], placement["ny"] = (int(v) for v in search["centres"])
+    levels = int(search.get("tangent_levels", _DEFAULT_TANGENT_LEVELS))
+    if "tangent_range" in search:
+        low, high = (float(v) for v in search["tangent_range"])
+        placement["tangent_elevations"] = np.linspace(high, low, levels)
+    elif "tangent_levels" in search:
+        placement["n_radii"] = levels
+    return placement
+
+
 def search_critical_surface(
     section,
     settings: SearchSettings | None = None,
@@ -920,8 +1056,9 @@ def search_critical_surface(
     refine: bool = True,
     non_circular: bool = False,
     non_circular_method: str | None = None,
+    placement: dict | None = None,
 ) -> SearchResult:
-    """The full search with default placements: circles, refinement, optional polyline.
+    """The full search: circles, refinement, optional polyline.
 
     Parameters
     ----------
@@ -940,6 +1077,10 @@ def search_critical_surface(
     non_circular_method : str, optional
         Method of the non-circular stage (and of the final ranking); default
         ``settings.method``.
+    placement : dict, optional
+        Keyword arguments of the circle search that place its trial circles (for the centre
+        lattice: x_range, y_range, nx, ny, tangent_elevations, n_radii; see
+        :func:`placement_from_section`); omitted ones come from the default placement.
 
     Returns
     -------
@@ -949,11 +1090,12 @@ def search_critical_surface(
     searches = {"centre lattice": centre_lattice, "scarp-to-toe band": scarp_toe_band}
     if circles not in searches:
         raise MethodError(f"unknown circle search {circles!r}; valid: {', '.join(searches)}")
+    placement = placement or {}
     if screen_with and screen_with != settings.method:
-        result = searches[circles](section, replace(settings, method=screen_with))
+        result = searches[circles](section, replace(settings, method=screen_with), **placement)
         result = rerank(section, result, settings.method)
     else:
-        result = searches[circles](section, settings)
+        result = searches[circles](section, settings, **placement)
     if refine:
         result = refine_circle(section, result)
     if non_circular:
@@ -1093,15 +1235,11 @@ class _Tally:
 
 
 def _directions(section, settings) -> tuple[int, ...]:
-    """Directions of movement (+1, -1) to search: the settings' one, else the ground's (from
-    its higher end to its lower one), else both when its ends are level."""
+    """Directions of movement (+1, -1) to search: the settings' one, else every face of the
+    section (:func:`slope_faces`)."""
     if settings.direction is not None:
         return (settings.direction,)
-    ground = _ground_points(section)
-    left, right = ground[0, 1], ground[-1, 1]
-    if left == right:
-        return (1, -1)
-    return (1,) if left > right else (-1,)
+    return slope_faces(section)
 
 
 def _evaluate_circles(section, centre_x, centre_y, radius, settings, direction=None):
@@ -1294,20 +1432,22 @@ def _candidates_of(evaluated: _Evaluated, method: str) -> list[RankedSurface]:
 
 
 def _distinct_best(evaluated: _Evaluated, settings: SearchSettings) -> np.ndarray:
-    """Indices of the best ``keep`` surfaces, each at least ``min_separation`` away (in scarp or
-    toe offset) from every better one."""
+    """Indices of the best ``keep`` surfaces of each face, each at least ``min_separation``
+    away (in scarp or toe offset) from every better one of its face; lowest FoS first."""
     order = np.argsort(evaluated.fos, kind="stable")
-    chosen: list[int] = []
+    chosen: dict[int, list[int]] = {}
     for i in order:
-        if chosen:
-            d_scarp = np.abs(evaluated.scarp_x[chosen] - evaluated.scarp_x[i])
-            d_toe = np.abs(evaluated.toe_x[chosen] - evaluated.toe_x[i])
+        mine = chosen.setdefault(int(evaluated.direction[i]), [])
+        if len(mine) == settings.keep:
+            continue
+        if mine:
+            d_scarp = np.abs(evaluated.scarp_x[mine] - evaluated.scarp_x[i])
+            d_toe = np.abs(evaluated.toe_x[mine] - evaluated.toe_x[i])
             if np.any(np.maximum(d_scarp, d_toe) < settings.min_separation):
                 continue
-        chosen.append(int(i))
-        if len(chosen) == settings.keep:
-            break
-    return np.array(chosen, dtype=int)
+        mine.append(int(i))
+    rows = np.array([i for mine in chosen.values() for i in mine], dtype=int)
+    return rows[np.argsort(evaluated.fos[rows], kind="stable")]
 
 
 def _finish(section, evaluated: _Evaluated, settings, stages) -> SearchResult:
@@ -1329,7 +1469,7 @@ def _finish(section, evaluated: _Evaluated, settings, stages) -> SearchResult:
         rejected=+evaluated.rejected,
         filtered=+evaluated.filtered,
         stages=tuple(stages),
-        notes=_face_notes(section, settings, surfaces, ()),
+        faces=_directions(section, settings),
     )
 
 
@@ -1344,14 +1484,13 @@ def _merge(section, result, candidates, settings, tally: _Tally, stage) -> Searc
         )
     kept: list[RankedSurface] = []
     for surface in surfaces:
-        if all(
+        mine = [k for k in kept if k.direction == surface.direction]
+        if len(mine) < settings.keep and all(
             max(abs(surface.scarp_x - k.scarp_x), abs(surface.toe_x - k.toe_x))
             >= settings.min_separation
-            for k in kept
+            for k in mine
         ):
             kept.append(surface)
-        if len(kept) == settings.keep:
-            break
     return SearchResult(
         surfaces=tuple(kept),
         method=settings.method,
@@ -1361,7 +1500,10 @@ def _merge(section, result, candidates, settings, tally: _Tally, stage) -> Searc
         rejected=+(result.rejected + tally.rejected),
         filtered=+(result.filtered + tally.filtered),
         stages=result.stages + (stage,),
-        notes=_face_notes(section, settings, kept, result.notes),
+        notes=result.notes,
+        faces=result.faces or _directions(section, settings),
+        lattice_edge=result.lattice_edge,
+        lowest_tangent=result.lowest_tangent,
     )
 
 
@@ -1416,27 +1558,6 @@ def _select(evaluated: _Evaluated, rows) -> _Evaluated:
                       rejected=evaluated.rejected, filtered=evaluated.filtered, **values)
 
 
-#: Start of the note that says which face of a two-faced section is critical.
-_FACES_NOTE = "the ends of the ground are level, so both faces were searched"
-
-
-def _face_notes(section, settings, surfaces, notes) -> tuple:
-    """``notes`` with the note on the critical face (replacing an earlier one) when the
-    search covered both faces."""
-    notes = tuple(n for n in notes if not n.startswith(_FACES_NOTE))
-    if len(_directions(section, settings)) < 2 or not surfaces:
-        return notes
-    critical = surfaces[0]
-    other = [s.fos for s in surfaces if s.direction != critical.direction]
-    towards = {1: "+x", -1: "-x"}
-    note = (f"{_FACES_NOTE}: the critical surface moves towards {towards[critical.direction]}"
-            f" (F = {critical.fos:.3f}); ")
-    note += (f"the best kept surface moving towards {towards[-critical.direction]} has "
-             f"F = {min(other):.3f}" if other else
-             f"no surface moving towards {towards[-critical.direction]} was kept")
-    return notes + (note,)
-
-
 def _same_surface(a: RankedSurface, b: RankedSurface) -> bool:
     if None not in (a.direction, b.direction) and a.direction != b.direction:
         return False
@@ -1447,28 +1568,49 @@ def _same_surface(a: RankedSurface, b: RankedSurface) -> bool:
     return a.points.shape == b.points.shape and bool(np.all(a.points == b.points))
 
 
-def _lattice_edge_notes(best, x_range, y_range, nx, ny, tangent_elevations, base) -> tuple:
-    """Warn when the best circle of a centre lattice sits on its edge: the critical circle may
-    then lie outside the lattice (Duncan, Wright and Brandon 2014, ch. 8)."""
-    notes = []
+def _lattice_edges(best, x_range, y_range, nx, ny, tangent_elevations, base):
+    """Whether the best circle of a centre lattice has its centre on the lattice's edge, and
+    whether it touches the lowest tangent level (above the base): the critical circle may then
+    lie outside what was searched (Duncan, Wright and Brandon 2014, ch. 8)."""
     close = 1e-9 * max(1.0, abs(best.centre_x), abs(best.centre_y))
     on_x = nx > 1 and min(abs(best.centre_x - v) for v in x_range) <= close
     on_y = ny > 1 and min(abs(best.centre_y - v) for v in y_range) <= close
-    if on_x or on_y:
-        notes.append(
-            f"the best lattice centre ({best.centre_x:.2f}, {best.centre_y:.2f}) m lies on the "
-            "edge of the centre lattice; the critical circle may lie outside it: enlarge or move "
-            "the lattice"
-        )
+    on_lowest = False
     if tangent_elevations is not None and np.size(tangent_elevations) > 1:
         lowest = float(np.min(tangent_elevations))
-        if abs(best.centre_y - best.radius - lowest) <= close and (
+        on_lowest = abs(best.centre_y - best.radius - lowest) <= close and (
             base is None or lowest < float(base[:, 1].min()) - 1e-6
-        ):
-            notes.append(
-                f"the best circle touches the lowest tangent elevation ({lowest:.2f} m); "
-                "deeper circles may be more critical: lower the tangents"
-            )
+        )
+    return bool(on_x or on_y), bool(on_lowest)
+
+
+#: The section-file keys (docs/formats.md, [search]) that move the centre lattice and its
+#: tangent levels; named by the warnings so that the engineer knows what to change.
+_LATTICE_KEYS = "[search] centre_x_range and centre_y_range"
+_TANGENT_KEY = "[search] tangent_range"
+
+
+def _lattice_edge_notes(best, grid, on_edge, on_lowest, name_face) -> tuple:
+    """The warnings, for people, of :func:`_lattice_edges` (the flags travel as data in
+    :attr:`SearchResult.lattice_edge` and :attr:`SearchResult.lowest_tangent`)."""
+    notes = []
+    if on_edge:
+        (x_lo, x_hi), (y_lo, y_hi) = grid["x_range"], grid["y_range"]
+        notes.append(
+            f"the best lattice centre ({best.centre_x:.2f}, {best.centre_y:.2f}) m lies on the "
+            f"edge of the centre lattice (x {x_lo:.2f} to {x_hi:.2f} m, y {y_lo:.2f} to "
+            f"{y_hi:.2f} m); the critical circle may lie outside it: widen or move the lattice "
+            f"({_LATTICE_KEYS} of the section file)"
+        )
+    if on_lowest:
+        lowest = float(np.min(grid["tangent_elevations"]))
+        notes.append(
+            f"the best circle touches the lowest tangent level ({lowest:.2f} m); deeper "
+            f"circles may be more critical: lower the tangent levels ({_TANGENT_KEY} of the "
+            "section file)"
+        )
+    if name_face:
+        notes = [f"{face_name(best.direction)} face: {note}" for note in notes]
     return tuple(notes)
 
 
@@ -1478,7 +1620,8 @@ def _no_surface_message(n_trials, rejected: Counter, filtered: Counter) -> str:
         parts.append(f"rejected by the slicing: {_reasons(rejected)}")
     if filtered:
         parts.append(f"admissible but not competing: {_reasons(filtered)}")
-    parts.append("move or enlarge the centre lattice, or lower min_depth / min_area")
+    parts.append(f"widen or move the centre lattice ({_LATTICE_KEYS}, {_TANGENT_KEY} of the "
+                 "section file), or lower [search] min_depth")
     return "; ".join(parts)
 
 

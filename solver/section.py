@@ -32,6 +32,11 @@ import shapely
 
 from solver.errors import SectionError
 
+#: The faces of a section by name, with the direction of movement (along x) of their slides:
+#: the "right" face descends towards +x (its slides move to the right of the drawing), the
+#: "left" face towards -x. Section files name them in ``[search] face``.
+FACES = {"right": 1, "left": -1}
+
 DRAINED = "drained"
 UNDRAINED = "undrained"
 #: Value of ``Material.water`` for a material without pore pressure from a water line.
@@ -636,7 +641,8 @@ _TABLES = {
     "base": {"points"},
     "seismic": {"kh"},
     "tension_crack": {"depth", "water_depth"},
-    "search": {"method", "min_depth", "slices"},
+    "search": {"method", "min_depth", "slices", "face", "centre_x_range", "centre_y_range",
+               "centres", "tangent_range", "tangent_levels"},
 }
 _ARRAYS = {
     "material": {
@@ -828,11 +834,37 @@ def _search(table: Mapping[str, Any]) -> dict:
         raise SectionError(f"search: method = {search['method']!r} must be a method name")
     if "min_depth" in search and _finite(search["min_depth"], "search: min_depth") < 0:
         raise SectionError(f"search: min_depth = {search['min_depth']!r} m must be >= 0")
-    if "slices" in search:
-        slices = search["slices"]
-        if isinstance(slices, bool) or not isinstance(slices, int) or slices < 1:
-            raise SectionError(f"search: slices = {slices!r} must be a positive integer")
+    for key in ("slices", "tangent_levels"):
+        if key in search:
+            _count(search[key], f"search: {key}")
+    if "centres" in search:
+        centres = search["centres"]
+        if not isinstance(centres, (list, tuple)) or len(centres) != 2:
+            raise SectionError(f"search: centres = {centres!r} must be [along x, along y], two "
+                               "positive integers")
+        for value in centres:
+            _count(value, "search: centres")
+    if "face" in search and search["face"] not in FACES:
+        raise SectionError(f"search: face = {search['face']!r} must be one of "
+                           f"{', '.join(repr(f) for f in FACES)} (leave it out to search every "
+                           "face)")
+    for key in ("centre_x_range", "centre_y_range", "tangent_range"):
+        if key in search:
+            values = search[key]
+            if not isinstance(values, (list, tuple)) or len(values) != 2:
+                raise SectionError(f"search: {key} = {values!r} must be two numbers [m], low "
+                                   "then high")
+            low, high = (_finite(v, f"search: {key}") for v in values)
+            if not low <= high:
+                raise SectionError(f"search: {key} = {values!r} m must be low then high")
+            search[key] = [low, high]
     return search
+
+
+def _count(value, where: str) -> int:
+    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+        raise SectionError(f"{where} = {value!r} must be a positive integer")
+    return value
 
 
 def _table(data: Mapping[str, Any], key: str) -> dict:

@@ -18,9 +18,12 @@ from solver.search import (
     SearchResult,
     SearchSettings,
     every_method,
+    face_name,
+    placement_from_section,
     search_critical_surface,
 )
 from solver.methods import WARNING_FLAGS
+from solver.section import FACES
 from solver.slicing import slice_surface
 from solver.surfaces import CircularSurface, PolylineSurface
 from watch.caution import CAUTION
@@ -89,25 +92,19 @@ class AnalysisResult:
 
     def to_dict(self) -> dict:
         """Plain JSON-friendly dictionary (canonical names with units)."""
-        c = self.critical
-        surface = {
-            "kind": c.kind,
-            "scarp_x_m": c.scarp_x,
-            "toe_x_m": c.toe_x,
-            "depth_m": c.depth,
-            "area_m2": c.area,
-        }
-        if c.kind == "circle":
-            surface.update(centre_x_m=c.centre_x, centre_y_m=c.centre_y, radius_m=c.radius)
-        else:
-            surface["points_m"] = np.asarray(c.points).tolist()
         return {
             "section_id": self.section_id,
             "section_name": self.section_name,
             "source": self.source,
             "method": self.method,
             "fos": self.fos,
-            "critical_surface": surface,
+            "critical_surface": _surface_dict(self.critical),
+            "faces": [
+                {"face": face_name(direction), "governing": surface is self.critical,
+                 "fos": None if surface is None else surface.fos,
+                 "critical_surface": None if surface is None else _surface_dict(surface)}
+                for direction, surface in self.search.by_face.items()
+            ],
             "fos_by_method": [
                 {
                     "method": m.method,
@@ -128,10 +125,28 @@ class AnalysisResult:
                 "filtered": dict(self.search.filtered),
                 "kept_fos": [s.fos for s in self.search.surfaces],
                 "notes": list(self.search.notes),
+                "best_centre_on_lattice_edge": [face_name(d) for d in self.search.lattice_edge],
+                "best_circle_on_lowest_tangent": [face_name(d)
+                                                  for d in self.search.lowest_tangent],
             },
             "plot": self.plot or None,
             "caution": self.caution,
         }
+
+
+def _surface_dict(c: RankedSurface) -> dict:
+    surface = {
+        "kind": c.kind,
+        "scarp_x_m": c.scarp_x,
+        "toe_x_m": c.toe_x,
+        "depth_m": c.depth,
+        "area_m2": c.area,
+    }
+    if c.kind == "circle":
+        surface.update(centre_x_m=c.centre_x, centre_y_m=c.centre_y, radius_m=c.radius)
+    else:
+        surface["points_m"] = np.asarray(c.points).tolist()
+    return surface
 
 
 def analyse_section(
@@ -169,13 +184,14 @@ def analyse(section, method: str | None = None, *, non_circular: bool = False, s
     governing = method or options.get("method", DEFAULT_METHOD)
     settings = SearchSettings(method=governing,
                               n_slices=options.get("slices", SearchSettings.n_slices),
-                              min_depth=options.get("min_depth", SearchSettings.min_depth))
+                              min_depth=options.get("min_depth", SearchSettings.min_depth),
+                              direction=FACES.get(options.get("face")))
     # Screening the thousands of grid circles with Bishop's simplified method keeps the
     # complete methods (much slower per surface) for the kept circles and the refinement.
     screen = None if governing in _FAST_METHODS else "bishop_simplified"
     result = search_critical_surface(
         section, settings, screen_with=screen, non_circular=non_circular,
-        non_circular_method=governing,
+        non_circular_method=governing, placement=placement_from_section(options),
     )
     critical = result.critical
     slices = slice_surface(section, surface_of(critical), settings.n_slices,
@@ -206,12 +222,15 @@ def analyse(section, method: str | None = None, *, non_circular: bool = False, s
 
 
 def plot_analysis(result: AnalysisResult, path: Path) -> Path:
-    """Draw the section, its critical surface and slices to the PNG ``path``."""
+    """Draw the section, its critical surface and slices to the PNG ``path``, with the
+    critical surface of each other face searched."""
     surface = surface_of(result.critical)
     slices = slice_surface(result.section, surface, result.search.settings.n_slices,
                            direction=result.critical.direction)
+    others = [(surface_of(s), s.fos) for s in result.search.by_face.values()
+              if s is not None and s is not result.critical]
     return plot_section(result.section, path, surface=surface, fos=result.fos,
-                        method=result.method, slices=slices)
+                        method=result.method, slices=slices, alternatives=others)
 
 
 def surface_of(surface: RankedSurface):
@@ -234,6 +253,16 @@ def format_report(result: AnalysisResult) -> str:
     ]
     lines += [f"  rejected: {n} {reason}" for reason, n in s.rejected.most_common()]
     lines += [f"  not competing: {n} {reason}" for reason, n in s.filtered.most_common()]
+    faces = s.by_face
+    if len(faces) > 1:
+        lines.append("Critical surface of each face:")
+        for direction, surface in faces.items():
+            towards = "+x" if direction > 0 else "-x"
+            found = ("no admissible surface" if surface is None else
+                     f"F = {surface.fos:.3f} ({s.method}), {surface.describe()}")
+            mark = "  (governs)" if surface is result.critical else ""
+            lines.append(f"  {face_name(direction)} face (slides towards {towards}): {found}"
+                         f"{mark}")
     lines += [f"Note: {note}" for note in s.notes]
     lines.append("Factor of safety of the critical surface by method:")
     for m in result.by_method:

@@ -558,6 +558,10 @@ def _cached_search_json(store: Store, section_id: str, version_id, at: datetime,
         return None
     if abs(at - parse_utc_text(row["time_utc"])) >= timedelta(hours=every_hours):
         return None  # scheduled full search
+    if "faces" not in json.loads(row["search_json"]):
+        # Cached by a version that searched one face of some two-faced sections (and named the
+        # slip ends otherwise): search again so that every face is watched.
+        return None
     return row["search_json"]
 
 
@@ -783,6 +787,9 @@ def search_to_json(result: SearchResult) -> str:
         "filtered": dict(result.filtered),
         "stages": list(result.stages),
         "notes": list(result.notes),
+        "faces": list(result.faces),
+        "lattice_edge": list(result.lattice_edge),
+        "lowest_tangent": list(result.lowest_tangent),
     }, default=_plain)  # fmt: skip
 
 
@@ -793,6 +800,8 @@ def search_from_json(text: str) -> SearchResult:
         surfaces=surfaces, method=data["method"], settings=SearchSettings(**data["settings"]),
         n_trials=data["n_trials"], n_valid=data["n_valid"], rejected=Counter(data["rejected"]),
         filtered=Counter(data["filtered"]), stages=tuple(data["stages"]), notes=tuple(data["notes"]),
+        faces=tuple(data["faces"]), lattice_edge=tuple(data["lattice_edge"]),
+        lowest_tangent=tuple(data["lowest_tangent"]),
     )  # fmt: skip
 
 
@@ -808,13 +817,8 @@ def _surface_dict(surface: RankedSurface) -> dict:
     return values
 
 
-#: Surface keys written by earlier versions (before the slip ends were named scarp and toe),
-#: read from searches cached in existing stores.
-_EARLIER_SURFACE_KEYS = {"entry_x": "scarp_x", "exit_x": "toe_x"}
-
-
 def _surface_from_dict(values: dict) -> RankedSurface:
-    values = {_EARLIER_SURFACE_KEYS.get(key, key): value for key, value in values.items()}
+    values = dict(values)
     values["points"] = None if values["points"] is None else np.asarray(values["points"], dtype=float)
     for key in _CIRCLE_KEYS:
         values[key] = math.nan if values[key] is None else values[key]

@@ -120,6 +120,72 @@ def test_analyse_method_option_overrides_the_section(section_file):
     assert any("spencer" in stage for stage in data["search"]["stages"])
 
 
+# An invented embankment: 6 m of fill, a 1V:4H west (left) face and a 1V:2H east (right) face,
+# the ground ends 0.3 m apart (the case of the review in issue 16).
+EMBANKMENT = """
+[section]
+id = "DEMO-EMB"
+name = "Invented embankment"
+
+[ground]
+points = [[0, 0.0], [30, 0.0], [54, 6.0], [74, 6.0], [86, 0.0], [116, 0.3]]
+
+[[material]]
+name = "Fill"
+model = "drained"
+unit_weight = 19.0
+cohesion = 5.0
+friction_angle = 25.0
+water = "none"
+
+[[stratum]]
+material = "Fill"
+
+[search]
+method = "bishop_simplified"
+min_depth = 1.0
+"""
+
+
+def test_analyse_reports_the_critical_surface_of_each_face(tmp_path):
+    path = tmp_path / "emb.toml"
+    path.write_text(EMBANKMENT)
+    runner = CliRunner()
+    data = json.loads(runner.invoke(main, ["analyse", str(path), "--json"]).output)
+    faces = {f["face"]: f for f in data["faces"]}
+    assert set(faces) == {"left", "right"}
+    # The steep right (east) face governs; the flat left face is reported beside it.
+    assert faces["right"]["governing"] and not faces["left"]["governing"]
+    assert data["fos"] == faces["right"]["fos"] < faces["left"]["fos"]
+    assert faces["right"]["critical_surface"]["toe_x_m"] > 74
+    text = runner.invoke(main, ["analyse", str(path)]).output
+    assert "Critical surface of each face:" in text
+    assert "right face (slides towards +x): F = " in text and "(governs)" in text
+    # [search] face restricts the search to one face; the result is that face's own.
+    left_only = tmp_path / "left.toml"
+    left_only.write_text(EMBANKMENT + 'face = "left"\n')
+    left = json.loads(runner.invoke(main, ["analyse", str(left_only), "--json"]).output)
+    assert [f["face"] for f in left["faces"]] == ["left"]
+    assert left["fos"] == pytest.approx(faces["left"]["fos"], rel=5e-3)
+
+
+def test_the_centre_lattice_is_set_in_the_section_file_and_its_warning_names_the_keys(
+        section_file):
+    narrow = section_file.read_text() + ("centre_x_range = [30.0, 36.0]\n"
+                                         "centre_y_range = [20.0, 26.0]\ncentres = [4, 4]\n"
+                                         "tangent_levels = 6\n")
+    section_file.write_text(narrow)
+    result = CliRunner().invoke(main, ["analyse", str(section_file), "--json"])
+    assert result.exit_code == 0, result.output
+    data = json.loads(result.output)
+    assert data["search"]["trials"] >= 4 * 4 * 6
+    assert data["search"]["best_centre_on_lattice_edge"] == ["right"]
+    edge = [n for n in data["search"]["notes"] if "edge of the centre lattice" in n]
+    assert len(edge) == 1
+    assert "(x 30.00 to 36.00 m, y 20.00 to 26.00 m)" in edge[0]
+    assert "[search] centre_x_range and centre_y_range" in edge[0]
+
+
 def test_analyse_plot_writes_a_png(section_file, tmp_path):
     plot = tmp_path / "demo_7.png"
     result = CliRunner().invoke(main, ["analyse", str(section_file), "--plot", str(plot)])

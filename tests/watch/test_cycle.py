@@ -183,6 +183,38 @@ def test_cached_search_round_trips_through_json():
     assert json.loads(search_to_json(back)) == json.loads(search_to_json(search))
 
 
+def test_the_cached_search_of_an_embankment_keeps_both_faces():
+    # Issue 16, item 1: the warm state must hold the surfaces of every face, so that a water
+    # rise on the face that is not critical now is seen by the warm re-evaluation.
+    section = load_section(ROOT / "config" / "sections" / "fe_210.toml")
+    search = analyse(section).search
+    back = search_from_json(search_to_json(search))
+    assert set(back.faces) == {1, -1}
+    assert {s.direction for s in back.surfaces} == {1, -1}
+    assert {d: s.fos for d, s in back.by_face.items()} == pytest.approx(
+        {d: s.fos for d, s in search.by_face.items()}, rel=1e-12)
+
+
+def test_a_search_cached_before_faces_were_recorded_is_searched_again():
+    import watch.cycle as cycle
+
+    section = load_section(ROOT / "config" / "sections" / "wc_040.toml")
+    current = json.loads(search_to_json(analyse(section).search))
+
+    class Store:
+        def __init__(self, data):
+            self.row = {"section_version_id": 7, "time_utc": "2026-01-14T06:00:00Z",
+                        "search_json": json.dumps(data)}
+
+        def cached_search(self, section_id):
+            return self.row
+
+    assert cycle._cached_search_json(Store(current), "WC-040", 7, START, 24) is not None
+    earlier = {k: v for k, v in current.items()
+               if k not in ("faces", "lattice_edge", "lowest_tangent")}
+    assert cycle._cached_search_json(Store(earlier), "WC-040", 7, START, 24) is None
+
+
 def test_a_failure_while_writing_leaves_no_section_half_written(tmp_path, monkeypatch):
     """Sections are written in groups, one transaction each: a fault while writing the third
     section rolls back the whole group (no assessment without its alerts, none twice), and the
