@@ -144,6 +144,12 @@ BACKCALC_POLYLINE_EVALUATIONS = 400
 #: How far [m] a surveyed scarp or toe point may lie from the section's ground line (survey and
 #: drawing tolerance; common practice, not a published value).
 BACKCALC_GROUND_TOLERANCE = 0.25
+#: How far [m] an end of a surveyed slip surface (a polyline) may lie from the section's ground
+#: line and still be taken onto it. A surveyed level is good to about a centimetre (total
+#: station or RTK GNSS; common practice, from memory), and the ground line is itself straight
+#: between surveyed points, so a smaller difference says nothing about the slip: the end is moved
+#: onto the ground. A larger one below the ground is an error to be looked at, not moved.
+BACKCALC_SURVEY_SNAP = 0.01
 #: Trial circles through the scarp and toe of a bounded slip, spread evenly over the
 #: admissible depths (both bounds included).
 BACKCALC_BOUNDED_CIRCLES = 25
@@ -291,14 +297,24 @@ class ObservedSlip:
     section : Section
         The section before the slip, its water lines those at the time of failure.
     surface : ndarray (k, 2)
-        [m] Observed slip surface, x strictly increasing, both ends on or above the ground.
+        [m] Observed slip surface, x strictly increasing, both ends on or above the ground; an
+        end within ``snap`` of the ground is moved onto it.
     name : str
         Label in reports (default: the section id).
+    snap : float
+        [m] Tolerance of the ends on the ground (:data:`BACKCALC_SURVEY_SNAP`).
+
+    Raises
+    ------
+    ObservedSurfaceError
+        Too few or non-finite points, x not increasing, or an end off the section or below
+        the ground by more than ``snap`` (the message names the end and its x).
     """
 
     section: Section
     surface: np.ndarray
     name: str = ""
+    snap: float = BACKCALC_SURVEY_SNAP
 
     def __post_init__(self) -> None:
         points = np.array(self.surface, dtype=float)
@@ -314,10 +330,40 @@ class ObservedSlip:
                 f"observed surface: x must increase strictly, but x = {points[i, 0]:g} is "
                 f"followed by x = {points[i + 1, 0]:g} m"
             )
-        points.setflags(write=False)
-        object.__setattr__(self, "surface", points)
         if not self.name:
             object.__setattr__(self, "name", self.section.id)
+        if not (_is_number(self.snap) and self.snap >= 0):
+            raise MethodError(f"snap must be a number >= 0 m, got {self.snap!r}")
+        _ends_onto_ground(points, self.section, self.name, self.snap)
+        points.setflags(write=False)
+        object.__setattr__(self, "surface", points)
+
+
+def _ends_onto_ground(points: np.ndarray, section: Section, name: str, snap: float) -> None:
+    """Move the ends of a surveyed surface (k, 2) that lie within ``snap`` [m] of the ground
+    onto it, in place; refuse an end off the section or deeper below the ground, naming it."""
+    ground = section.ground
+    levels = np.interp(points[[0, -1], 0], *ground.T)
+    if levels[0] == levels[1]:
+        labels = ("left end", "right end")
+    else:
+        upper = 0 if levels[0] > levels[1] else 1
+        labels = tuple("upper end (scarp)" if i == upper else "lower end (toe)" for i in (0, 1))
+    for row, label, level in zip((0, -1), labels, levels):
+        x, y = points[row]
+        where = f"observed surface of {name!r}: its {label} [{x:g}, {y:g}]"
+        if not ground[0, 0] <= x <= ground[-1, 0]:
+            raise ObservedSurfaceError(f"{where} lies off section {section.id!r} (x = "
+                                       f"{ground[0, 0]:g} to {ground[-1, 0]:g} m)")
+        if abs(y - level) <= snap:
+            points[row, 1] = level
+        elif y < level:
+            raise ObservedSurfaceError(
+                f"{where} is {level - y:.3f} m below the ground at x = {x:g} m (ground at "
+                f"y = {level:.3f} m); the ends of a surveyed slip surface must lie on or above "
+                f"the ground (ends within {snap:g} m of it are taken onto it): give the point "
+                "where the slip meets the ground"
+            )
 
 
 @dataclass(frozen=True, eq=False)

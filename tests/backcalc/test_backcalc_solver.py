@@ -223,10 +223,36 @@ def test_surface_above_the_ground_is_rejected():
         fos_unity_locus(ObservedSlip(layered(), above), "Weak", friction_angles=[20.0])
 
 
-def test_surface_ending_below_the_ground_is_rejected():
+def test_surface_ending_below_the_ground_is_rejected_naming_the_end_and_its_x():
     buried = [[12.0, 15.0], [20.0, 9.5], [33.0, 10.0]]
-    with pytest.raises(ObservedSurfaceError, match="ends must lie on or above the ground"):
-        fos_unity_locus(ObservedSlip(layered(), buried), "Weak", friction_angles=[20.0])
+    # Ground at x = 12 m: 20 - (12 - 10) / 2 = 19 m, so the upper end is 4 m below it.
+    with pytest.raises(ObservedSurfaceError, match=r"its upper end \(scarp\) \[12, 15\] is "
+                       r"4.000 m below the ground at x = 12 m"):
+        ObservedSlip(layered(), buried)
+    toe_buried = [[8.0, 20.0], [20.0, 9.5], [33.0, 9.9]]
+    with pytest.raises(ObservedSurfaceError, match=r"its lower end \(toe\) \[33, 9.9\] is "
+                       r"0.100 m below the ground at x = 33 m"):
+        ObservedSlip(layered(), toe_buried)
+    with pytest.raises(ObservedSurfaceError, match=r"its lower end \(toe\) \[55, 10\] lies off "
+                       r"section 'L' \(x = 0 to 50 m\)"):
+        ObservedSlip(layered(), [[8.0, 20.0], [20.0, 9.5], [55.0, 10.0]])
+
+
+def test_surveyed_ends_within_a_centimetre_of_the_ground_are_taken_onto_it():
+    # An end 0.5 mm below the ground (survey and drawing round-off) is moved onto the ground,
+    # so the slip is analysed as surveyed; 2 cm is more than BACKCALC_SURVEY_SNAP = 0.01 m.
+    rounded = np.array(COMPOSITE)
+    rounded[0, 1] -= 0.0005
+    rounded[-1, 1] += 0.0004
+    slip = ObservedSlip(layered(), rounded)
+    np.testing.assert_array_equal(slip.surface, np.array(COMPOSITE))
+    exact = fos_unity_locus(ObservedSlip(layered(), COMPOSITE), "Weak", friction_angles=[20.0])
+    snapped = fos_unity_locus(slip, "Weak", friction_angles=[20.0])
+    np.testing.assert_allclose(snapped.cohesion, exact.cohesion, rtol=1e-12)
+    deeper = np.array(COMPOSITE)
+    deeper[0, 1] -= 0.02
+    with pytest.raises(ObservedSurfaceError, match="0.020 m below the ground at x = 8 m"):
+        ObservedSlip(layered(), deeper)
 
 
 def test_surface_missing_the_material_is_rejected():
