@@ -7,16 +7,16 @@ from click.testing import CliRunner
 from watch.cli import main
 
 
-def _all_commands(group: click.Group, prefix=()):
+def all_commands(group: click.Group, prefix=()):
     for name, command in group.commands.items():
         yield prefix + (name,), command
         if isinstance(command, click.Group):
-            yield from _all_commands(command, prefix + (name,))
+            yield from all_commands(command, prefix + (name,))
 
 
 def test_every_command_has_help_with_an_example():
     runner = CliRunner()
-    for path, command in _all_commands(main):
+    for path, command in all_commands(main):
         result = runner.invoke(main, [*path, "--help"])
         assert result.exit_code == 0, (path, result.output)
         assert command.help, f"command {' '.join(path)} has no help text"

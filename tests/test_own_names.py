@@ -10,7 +10,6 @@ import json
 import re
 from pathlib import Path
 
-import click
 from click.testing import CliRunner
 
 import solver
@@ -18,6 +17,7 @@ import solver.search
 import solver.surfaces
 from solver.search import SearchSettings, search_critical_surface
 
+from tests.test_cli import all_commands
 from tests.watch.test_analyse_cli import SECTION
 from watch.cli import main
 from watch.sections import load_section
@@ -31,13 +31,6 @@ OLD_LABELS = re.compile(r"grid[\s_-]+and[\s_-]+radius|entry[\s_-]+(and[\s_-]+)?e
 
 def _old_labels(text: str) -> list[str]:
     return [m.group(0) for m in OLD_LABELS.finditer(text)]
-
-
-def _commands(group: click.Group, prefix=()):
-    for name, command in group.commands.items():
-        yield prefix + (name,), command
-        if isinstance(command, click.Group):
-            yield from _commands(command, prefix + (name,))
 
 
 def test_the_pattern_catches_the_old_labels():
@@ -57,7 +50,7 @@ def test_docs_do_not_use_the_old_stage_labels():
 
 def test_cli_help_does_not_use_the_old_stage_labels():
     runner = CliRunner()
-    for path, _ in [((), main), *_commands(main)]:
+    for path, _ in [((), main), *all_commands(main)]:
         result = runner.invoke(main, [*path, "--help"])
         assert result.exit_code == 0, (path, result.output)
         assert _old_labels(result.output) == [], path
