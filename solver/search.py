@@ -1,7 +1,7 @@
 """Search for the critical slip surface, and warm re-evaluation of a previous search.
 
-Circular searches generate many trial circles at once (a centre lattice, or a scarp-to-toe band), slice
-them all with :func:`solver.slicing.slice_circles` and solve them all with
+Circular searches generate many trial circles at once (a centre lattice, or a scarp-to-toe
+band) on every face of the section, slice them all with :func:`solver.slicing.slice_circles` and solve them all with
 :func:`solver.methods.factor_of_safety`, in batches. The best circle is then refined by a
 shrinking pattern search whose trial moves are also solved as one batch, and may be turned into a
 polyline whose vertices are moved with :func:`scipy.optimize.minimize` (non-circular search).
@@ -404,7 +404,8 @@ def lattice_circles(
     _require_int("nx", nx, 1)
     _require_int("ny", ny, 1)
     if (tangent_elevations is None) == (radii is None):
-        raise MethodError("give either tangent_elevations or radii for the centre lattice, not both")
+        raise MethodError("give either tangent_elevations or radii for the centre lattice, "
+                          "not both")
     xs = _spread(x_range, nx, "x_range")
     ys = _spread(y_range, ny, "y_range")
     cx, cy = (a.ravel() for a in np.meshgrid(xs, ys, indexing="ij"))
@@ -560,7 +561,7 @@ def slope_geometry(section, direction: int | None = None) -> SlopeGeometry:
 
 def default_centre_lattice(section, nx: int = _DEFAULT_CENTRES, ny: int = _DEFAULT_CENTRES,
                            n_radii: int = _DEFAULT_TANGENT_LEVELS, *,
-                 direction: int | None = None):
+                           direction: int | None = None):
     """Default centre lattice placement above the slope of ``section``.
 
     Centres cover a rectangle above the face: in x from one slope width before the crest to one
@@ -599,8 +600,8 @@ def default_scarp_toe_band(section, n_scarp: int = 20, n_toe: int = 20, n_tangen
     """Default ranges of the scarp-to-toe band search for ``section``.
 
     Scarp points (upper ends) run from one slope width behind the crest to the middle of the
-    face; toe points (lower ends) from the middle of the face to one slope width beyond the toe (clipped to the ground
-    line). Tangent elevations run from the toe level down to one slope height below it (or to the
+    face; toe points (lower ends) from the middle of the face to one slope width beyond the toe
+    (clipped to the ground line). Tangent elevations run from the toe level down to one slope height below it (or to the
     top of the base). Common practice (Duncan, Wright and Brandon 2014, ch. 8). ``direction``
     picks the face as in :func:`slope_geometry`.
 
@@ -646,9 +647,9 @@ def centre_lattice(
     Every centre of an ``nx * ny`` lattice carries one circle per tangent elevation (or explicit
     radius); all circles are sliced and solved in batches and the lowest factor of safety
     among the admissible, converged circles that pass the size filters wins. Omitted ranges
-    and tangents come from :func:`default_centre_lattice`. Where the ground does not say which way the
-    mass moves (both ends level) and ``settings.direction`` is None, both faces are searched,
-    each with its own default placement, and the result's notes say which face is critical.
+    and tangents come from :func:`default_centre_lattice`. Unless ``settings.direction`` names
+    one, every face of the section is searched (:func:`slope_faces`), each with its own default
+    placement; :attr:`SearchResult.by_face` gives the critical surface of each.
 
     Parameters
     ----------
@@ -728,10 +729,11 @@ def scarp_toe_band(
     """Scarp-to-toe band search for the critical circle.
 
     Scarp points (upper ends) on the upper ground and toe points (lower ends) on the lower
-    ground (evenly spaced over
-    the given ranges, on the ground line) are joined by circles of each radius, or touching
-    each tangent elevation (:func:`solver.surfaces.circle_from_scarp_toe`). Omitted ranges
-    come from :func:`default_scarp_toe_band`.
+    ground (evenly spaced over the given ranges, on the ground line) are joined by circles of
+    each radius, or touching each tangent elevation
+    (:func:`solver.surfaces.circle_from_scarp_toe`). Omitted ranges come from
+    :func:`default_scarp_toe_band`, for every face of the section unless
+    ``settings.direction`` names one.
 
     Parameters
     ----------
@@ -883,7 +885,8 @@ def optimise_polyline(
 ) -> SearchResult:
     """Non-circular search: turn the critical circle into a polyline and move its vertices.
 
-    This is done from the best circle of each face searched. The arc of the circle between its ground intersections becomes ``n_vertices`` points.
+    This is done from the best circle of each face searched. The arc of the circle between its
+    ground intersections becomes ``n_vertices`` points.
     The free parameters are the offsets of the two end points (which stay on the ground) and
     the elevations of the interior vertices (whose offsets keep their fractions of the span), so
     x stays strictly increasing. They are moved by :func:`scipy.optimize.minimize` on the factor
