@@ -23,6 +23,7 @@ from solver.search import (
     centre_lattice,
     lattice_circles,
     optimise_polyline,
+    placement_from_section,
     polyline_from_circle,
     refine_circle,
     rerank,
@@ -621,3 +622,22 @@ def test_acads_example_1a():
     settings = SearchSettings(method="bishop_simplified", min_depth=0.0)
     result = refine_circle(section, centre_lattice(section, settings))
     assert result.fos == pytest.approx(1.00, rel=0.03)
+
+
+def test_placement_from_section_maps_the_search_keys():
+    placement = placement_from_section({
+        "method": "spencer", "centre_x_range": [20, 60], "centre_y_range": [62, 100],
+        "centres": [12, 8], "tangent_range": [38.0, 61.0], "tangent_levels": 5})
+    assert placement["x_range"] == (20.0, 60.0) and placement["y_range"] == (62.0, 100.0)
+    assert (placement["nx"], placement["ny"]) == (12, 8)
+    np.testing.assert_allclose(placement["tangent_elevations"], [61.0, 55.25, 49.5, 43.75, 38.0],
+                               rtol=1e-12)
+    assert placement_from_section({"tangent_levels": 7}) == {"n_radii": 7}
+    assert placement_from_section({"method": "spencer"}) == {}
+    # The lattice given is the lattice searched: every trial circle has its centre in it.
+    section = _undrained([[0, H], [40, H], [40 + H / np.tan(np.radians(60)), 0], [100, 0]])
+    result = search_critical_surface(section, EXACT, refine=False, placement=placement_from_section(
+        {"centre_x_range": [40, 50], "centre_y_range": [12, 18], "centres": [3, 3],
+         "tangent_levels": 4}))
+    assert result.n_trials == 3 * 3 * 4
+    assert 40 <= result.critical.centre_x <= 50 and 12 <= result.critical.centre_y <= 18
