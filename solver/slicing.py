@@ -268,8 +268,19 @@ def slice_surface(
     else:
         raise SurfaceError(f"unknown slip surface type {type(surface).__name__}")
     if not batch.valid[0]:
-        raise SurfaceError(f"{what} {batch.reason[0]} of section {section.id!r}")
+        detail = ""
+        if batch.reason[0] == BURIED_POLYLINE:
+            detail = _buried_ends(section, surface.points)
+        raise SurfaceError(f"{what} {batch.reason[0]} of section {section.id!r}{detail}")
     return batch.slices
+
+
+def _buried_ends(section: Section, points: np.ndarray) -> str:
+    """Which end of a polyline lies below the ground, at which x and how deep (for messages)."""
+    ends = np.asarray(points, dtype=float)[[0, -1]]
+    depth = section.ground_elevation(ends[:, 0]) - ends[:, 1]
+    return "".join(f": its {side} end at x = {x:g} m is {d:.3f} m below the ground"
+                   for side, (x, _), d in zip(("left", "right"), ends, depth) if d > _TOL)
 
 
 # --------------------------------------------------------------------------------------------

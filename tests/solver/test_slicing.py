@@ -625,7 +625,10 @@ def test_slice_surface_raises_with_the_reason():
     section = section_from_dict(homogeneous_dict())
     with pytest.raises(SurfaceError, match="does not cut the ground surface twice"):
         slice_surface(section, CircularSurface(22.0, 40.0, 5.0))
-    with pytest.raises(SurfaceError, match="polyline ends below the ground"):
+    # Ground at x = 45 m is at y = 10 m: the right end is 0.5 m below it, and the message says
+    # which end and where (issue 16, item 7).
+    with pytest.raises(SurfaceError, match="polyline ends below the ground surface of section "
+                       "'.*': its right end at x = 45 m is 0.500 m below the ground$"):
         slice_surface(section, PolylineSurface([[2, 21.0], [15, 12.0], [35, 9.0], [45, 9.5]]))
     slices = slice_surface(section, CircularSurface(22.0, 28.0, 19.0))
     assert slices.n_surfaces == 1
