@@ -27,6 +27,7 @@ WORKSPACE_ENV = "SLIPWATCH_WORKSPACE"
 _COMMAND_MODULES = [
     "watch.commands_demo",
     "watch.commands_store",
+    "watch.commands_corrections",
     "watch.commands_analyse",
     "watch.commands_forecast",
     "watch.commands_daemon",

@@ -30,10 +30,10 @@ def _at_option(function):
 
 
 def _moment(text: str | None, option: str) -> datetime | None:
-    from watch.commands_store import _utc_option
+    from watch.commands_store import utc_option
     from watch.store import parse_utc_text
 
-    value = _utc_option(text, option)
+    value = utc_option(text, option)
     return None if value is None else parse_utc_text(value)
 
 

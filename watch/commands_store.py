@@ -82,7 +82,8 @@ def ingest(files: tuple[Path, ...], workspace: Path, progress: bool, as_json: bo
 @click.option("--csv", "as_csv", is_flag=True, help="Write CSV to standard output.")
 @json_option
 def readings(instrument: str, workspace: Path, start: str | None, end: str | None, as_csv: bool, as_json: bool) -> None:
-    """Export the stored readings of one piezometer or rain gauge, in time order.
+    """Export the stored readings of one piezometer or rain gauge, in time order. A corrected
+    reading lists the values it replaced (who, when, why) in its ``superseded`` column.
 
     \b
     Example:
@@ -93,14 +94,14 @@ def readings(instrument: str, workspace: Path, start: str | None, end: str | Non
     ws = open_workspace(workspace)
     ws.config().instrument(instrument)  # unknown id: the error lists the known ones
     with ws.open_store(read_only=True) as store:
-        rows = store.readings(instrument, _utc_option(start, "--from"), _utc_option(end, "--to"))
+        rows = store.readings_with_corrections(instrument, utc_option(start, "--from"), utc_option(end, "--to"))
     if as_json:
         echo_json(rows)
     elif as_csv or rows:
         columns = list(rows[0]) if rows else ["instrument_id", "time_utc"]
         writer = csv.DictWriter(sys.stdout, fieldnames=columns, lineterminator="\n")
         writer.writeheader()
-        writer.writerows(rows)
+        writer.writerows({**row, "superseded": _superseded_text(row["superseded"])} for row in rows)
     else:
         click.echo(f"no readings of {instrument} stored in that period")
 
@@ -159,7 +160,18 @@ def status(workspace: Path, as_json: bool) -> None:
     click.echo(CAUTION)
 
 
-def _utc_option(text: str | None, option: str) -> str | None:
+def _superseded_text(replaced: list[dict]) -> str:
+    """The values a reading replaced, in one CSV cell (oldest first, '; ' between them)."""
+    return "; ".join(
+        f"raw {old['raw_value']:g} ({old['quality']}) from {old['source_file']} line {old['source_line']}, "
+        f"replaced {old['corrected_utc']} by {old['corrected_by']} from {old['replaced_by_file']} line "
+        f"{old['replaced_by_line']}: {old['reason']}"
+        for old in replaced
+    )
+
+
+def utc_option(text: str | None, option: str) -> str | None:
+    """The store's UTC text of an ISO 8601 option value (UTC unless it carries an offset)."""
     if text is None:
         return None
     try:

@@ -1,15 +1,17 @@
 """The site file (``site.toml``, docs/formats.md section 2) loaded into frozen dataclasses.
 
-Every check names the file and the key, so a technician can find the line to fix. Tables of the
-site file that other parts of slipwatch own (alerts, notifications, ...) are left alone here;
-inside the tables read here, unknown keys are errors, because a misspelt ``valid_range`` that
-were silently ignored would switch off a quality check.
+Every check names the file and the key, so a technician can find the line to fix. Unknown
+tables and keys are errors with a did-you-mean hint, because a misspelt ``valid_range`` or
+``[[trigger]]`` that were silently ignored would switch off a quality check or an alarm. The
+top-level tables that other parts of slipwatch read (alerts, notifications, the service) are
+named here in ``SITE_TABLES``; their contents are checked by their owners, which
+``watch.workspace.Workspace.config`` runs whenever the site file is loaded.
 """
 
 from __future__ import annotations
 
 import codecs
-
+import difflib
 import math
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
@@ -17,6 +19,8 @@ from functools import cached_property
 from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+import pandas as pd
 
 from watch.errors import ConfigError
 from watch.groundwater import DEFAULT_SIDE_RULE, SideRule
@@ -26,6 +30,7 @@ __all__ = [
     "PIEZOMETER_READINGS",
     "RAIN_REPORTING",
     "FEED_LAYOUTS",
+    "SITE_TABLES",
     "SiteConfig",
     "SectionRef",
     "WaterLineSettings",
@@ -49,6 +54,13 @@ PIEZOMETER_READINGS = {
 #: Reporting types of a rain gauge.
 RAIN_REPORTING = ("interval_mm", "cumulative_mm", "tips")
 FEED_LAYOUTS = ("wide", "long")
+#: Every top-level table of the site file and the module that reads it.
+SITE_TABLES = {
+    "site": "watch.config", "section": "watch.config", "piezometer": "watch.config",
+    "rain_gauge": "watch.config", "feed": "watch.config", "ingest": "watch.config",
+    "notify": "watch.notify", "daemon": "watch.daemon", "level": "watch.triggers",
+    "trigger": "watch.triggers", "data_alerts": "watch.triggers", "cycle": "watch.triggers",
+}  # fmt: skip
 
 
 @dataclass(frozen=True)
@@ -169,6 +181,13 @@ class FeedSpec:
     temperature_column: str | None = None
     # both layouts: one barometer column shared by the logger's instruments
     barometric_column: str | None = None
+    # long layout: the instruments this logger may deliver (a wide feed names them in columns)
+    instruments: tuple[str, ...] = ()
+
+    @property
+    def delivers(self) -> frozenset[str]:
+        """Ids of the instruments this feed may deliver; rows of any other are rejected."""
+        return frozenset(self.columns.values()) if self.layout == "wide" else frozenset(self.instruments)
 
 
 @dataclass(frozen=True)
@@ -258,6 +277,7 @@ def load_site_config(path: Path | str) -> SiteConfig:
 def parse_site_config(data: dict, source: str = "site.toml", path: Path | None = None) -> SiteConfig:
     """Check the parsed TOML ``data`` of a site file and build a SiteConfig."""
     r = TableReader(source)
+    r.keys(data, "the top level", set(SITE_TABLES), what="table")
     site = r.table(data, "site", "[site]", required=True)
     r.keys(site, "[site]", {"id", "name", "owner", "time_zone"})
     time_zone = r.get(site, "[site]", "time_zone", str, default="UTC")
@@ -453,7 +473,7 @@ def _feed(r: TableReader, t: dict, i: int) -> FeedSpec:
     keys = {
         "name", "pattern", "layout", "skip_rows", "time_column", "time_format", "time_zone",
         "delimiter", "decimal", "missing", "encoding", "columns", "temperature_columns",
-        "instrument_column", "value_column", "temperature_column", "barometric_column",
+        "instrument_column", "value_column", "temperature_column", "barometric_column", "instruments",
     }  # fmt: skip
     r.keys(t, where, keys)
     name = r.get(t, where, "name", str)
@@ -486,12 +506,17 @@ def _feed(r: TableReader, t: dict, i: int) -> FeedSpec:
                                   "byte-order mark and refused with a message)")  # fmt: skip
     columns = _string_map(r, t, where, "columns")
     temperature_columns = _string_map(r, t, where, "temperature_columns")
+    time_format = r.get(t, where, "time_format", str)
+    _check_time_format(r, where, time_format)
+    instruments = t.get("instruments", [])
+    if not (isinstance(instruments, list) and all(isinstance(i, str) for i in instruments)):
+        r.fail(where, "instruments", f"must be a list of instrument ids, got {instruments!r}")
     spec = FeedSpec(
         name=name,
         pattern=r.get(t, where, "pattern", str),
         layout=layout,
         time_column=r.get(t, where, "time_column", str),
-        time_format=r.get(t, where, "time_format", str),
+        time_format=time_format,
         time_zone=time_zone,
         skip_rows=skip,
         delimiter=delimiter,
@@ -504,21 +529,46 @@ def _feed(r: TableReader, t: dict, i: int) -> FeedSpec:
         value_column=r.get(t, where, "value_column", str, default=None),
         temperature_column=r.get(t, where, "temperature_column", str, default=None),
         barometric_column=r.get(t, where, "barometric_column", str, default=None),
+        instruments=tuple(instruments),
     )
     if layout == "wide":
         if not columns:
             r.fail(where, "columns", "a wide feed needs [feed.columns] (raw column -> instrument id)")
-        for key in ("instrument_column", "value_column", "temperature_column"):
+        for key in ("instrument_column", "value_column", "temperature_column", "instruments"):
             if key in t:
                 r.fail(where, key, "is for layout = 'long'; a wide feed uses [feed.columns]")
     else:
         for key in ("instrument_column", "value_column"):
             if key not in t:
                 r.fail(where, key, "is required for layout = 'long'")
+        if not instruments:
+            r.fail(where, "instruments", "is required for layout = 'long': the ids of the instruments "
+                                         "this logger delivers (rows of any other are rejected)")
         for key in ("columns", "temperature_columns"):
             if key in t:
                 r.fail(where, key, "is for layout = 'wide'; a long feed names its instrument column")
     return spec
+
+
+#: A moment whose every field differs from the others, to check a time format by a round trip.
+_FORMAT_PROBE = datetime(2031, 7, 19, 13, 47, 29)
+
+
+def _check_time_format(r: TableReader, where: str, time_format: str) -> None:
+    """A feed's ``time_format`` must be a valid strftime pattern that reads back what it writes,
+    with the year, month and day (a format without them would date every reading wrongly)."""
+    aware = "%z" in time_format or "%Z" in time_format
+    probe = _FORMAT_PROBE.replace(tzinfo=timezone.utc) if aware else _FORMAT_PROBE
+    try:
+        text = probe.strftime(time_format)
+        # pandas is the reader's own parser: the check is the one the rows will meet.
+        parsed = pd.to_datetime(text, format=time_format, utc=aware)
+    except (ValueError, TypeError) as error:
+        r.fail(where, "time_format", f"{time_format!r} is not a valid time format ({error}); "
+                                     "e.g. '%Y-%m-%d %H:%M' (Python strftime codes)")  # fmt: skip
+    if (parsed.year, parsed.month, parsed.day) != (_FORMAT_PROBE.year, _FORMAT_PROBE.month, _FORMAT_PROBE.day):
+        r.fail(where, "time_format", f"{time_format!r} does not give the full date (year, month and day), "
+                                     "e.g. '%d/%m/%Y %H:%M'")  # fmt: skip
 
 
 def _ascii_compatible(encoding: str) -> bool:
@@ -593,12 +643,14 @@ def _cross_check(r: TableReader, config: SiteConfig) -> None:
             for raw, iid in getattr(feed, table).items():
                 if iid not in instruments:
                     r.fail(where, table, f"entry {raw!r} = {iid!r}: {iid!r} is not a piezometer or rain gauge id")
-        mapped = set(feed.columns.values()) if feed.layout == "wide" else set(instruments)
+        for iid in feed.instruments:
+            if iid not in instruments:
+                r.fail(where, "instruments", f"{iid!r} is not a piezometer or rain gauge id")
+        mapped = feed.delivers
         for p in config.piezometers:
             if p.reading != "vibrating_wire" or p.id not in mapped:
                 continue
-            # Only wide feeds name their instruments; a long feed may carry any of them, so
-            # its missing correction columns are caught per row instead.
+            # A long feed's correction columns may be empty on some rows: caught per row instead.
             if feed.layout == "wide":
                 if p.calibration.needs_temperature and p.id not in feed.temperature_columns.values():
                     r.fail(where, "temperature_columns",
@@ -638,10 +690,19 @@ class TableReader:
     def fail(self, where: str, key: str, problem: str):
         raise ConfigError(f"{self.source}: {where} key {key!r} {problem}")
 
-    def keys(self, t: dict, where: str, allowed: set[str]) -> None:
+    def keys(self, t: dict, where: str, allowed: set[str], what: str = "key") -> None:
+        """Fail on the first key of ``t`` not in ``allowed``, suggesting the nearest valid one."""
         unknown = sorted(set(t) - allowed)
-        if unknown:
-            self.fail(where, unknown[0], f"is unknown (valid keys: {', '.join(sorted(allowed))})")
+        if not unknown:
+            return
+        close = difflib.get_close_matches(unknown[0], sorted(allowed), n=1, cutoff=0.6)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        if what == "key":
+            self.fail(where, unknown[0], f"is unknown ({hint}valid keys: {', '.join(sorted(allowed))})")
+        raise ConfigError(
+            f"{self.source}: {where} {what} {unknown[0]!r} is unknown ({hint}valid {what}s: "
+            f"{', '.join(sorted(allowed))})"
+        )
 
     def table(self, data: dict, key: str, where: str, required: bool = False) -> dict:
         if key not in data:

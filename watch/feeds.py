@@ -201,7 +201,8 @@ def _empty_readings() -> pd.DataFrame:
 
 class FeedReader:
     """Reads one feed file per its FeedSpec. ``header_notes`` lists columns of the file that no
-    mapping uses and mapped columns the file lacks; ``chunks()`` yields FeedChunk."""
+    mapping uses and mapped columns the file lacks; ``chunks()`` yields FeedChunk;
+    ``repeated_times_resolved`` counts the lines placed in time from the row order."""
 
     def __init__(self, path: Path | str, spec: FeedSpec, block_bytes: int = BLOCK_BYTES,
                  complete: bool = False):  # fmt: skip
@@ -216,6 +217,8 @@ class FeedReader:
         self.header_notes: list[str] = []
         self._delimiter = ord(spec.delimiter)
         self._held: list[pd.DataFrame] = []  # rows with a repeated local time, resolved at the end
+        #: Lines whose local time occurs twice (clocks went back), placed in time by row order.
+        self.repeated_times_resolved = 0
         self._settled_count: dict[str, int] = {}  # rows with a settled time seen, per group
 
     # --- header -------------------------------------------------------------------------------
@@ -668,6 +671,7 @@ class FeedReader:
                 use_second = run["line"].to_numpy() >= second_from
                 times = np.where(use_second, run["second"].to_numpy(), run["first"].to_numpy())
                 settled.append(run.assign(time_utc=times))
+                self.repeated_times_resolved += len(per_line)
                 continue
             why = (
                 "the row order does not show which occurrence it is"

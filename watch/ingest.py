@@ -13,7 +13,12 @@ after COMMIT leaves it claimed with its record stored. ``reconcile`` (run at the
 ingest) finishes the move in the second case and puts the file back into incoming/ in the first.
 Nothing is ever deleted. A file whose checksum matches an ingested one is archived without
 re-reading; a reading whose (instrument, time) is already stored is not stored again, and a
-different value for the same key is reported as a rejected row (the stored value stays).
+different value for the same key is reported as a rejected row (the stored value stays): each
+reading is stored exactly once. Two deliberate exceptions leave a record of their own
+(``ingested_files.purpose``): ``apply_corrections`` reads a corrected re-delivery and replaces
+the stored values it differs from, keeping each replaced one in ``superseded_values`` with who,
+when and why; ``reread`` reads an archived file again after a configuration fix and stores
+only what is not stored yet.
 """
 
 from __future__ import annotations
@@ -36,16 +41,27 @@ import numpy as np
 import pandas as pd
 from tqdm import tqdm
 
-from watch.config import Piezometer, SiteConfig
+from watch.clock import Clock
+from watch.config import FeedSpec, Piezometer, SiteConfig
 from watch.errors import BusyError, FeedError, StoreError, UserError, WorkspaceError
 from watch.feeds import FeedReader, RowProblem, bounded_lines, clipped, open_feed_bytes, wide_encoding
-from watch.quality import Previous, assess_piezometer, assess_rain_gauge, time_window_problems
+from watch.quality import (
+    Previous,
+    RainBefore,
+    assess_piezometer,
+    assess_rain_gauge,
+    rain_record,
+    time_window_problems,
+)
 from watch.store import Store, parse_utc_text, utc_text
 from watch.text import printable
 from watch.workspace import Workspace
 
-__all__ = ["FileSummary", "IngestReport", "ingest", "reconcile", "record_first_look", "TEMPORARY_SUFFIXES",
-           "SIGHTINGS_FILE"]
+__all__ = [
+    "FileSummary", "IngestReport", "Correction", "ingest", "reread", "apply_corrections", "reconcile",
+    "record_first_look", "settle_rain_record", "settle_piezometer_flags", "SUMMARY_ROWS", "TEMPORARY_SUFFIXES",
+    "SIGHTINGS_FILE",
+]  # fmt: skip
 
 #: Names that loggers and copy tools use while a file is still being written.
 TEMPORARY_SUFFIXES = (".tmp", ".part", ".partial", ".filepart", ".crdownload", ".temp", "~")
@@ -58,6 +74,10 @@ _PROGRESS_MIN_BYTES = 1 << 20
 
 #: Rejected rows listed in a rejected file's reason file.
 _REASON_FILE_ROWS = 20
+
+#: Rejected rows listed (line, instrument, reason) in a file's summary (``ingest --json``); all
+#: of them stay in the store (``slipwatch rejected-rows``).
+SUMMARY_ROWS = 1000
 
 #: Errors of the store or the disk rather than of the file being read: the file is put back
 #: into incoming/ for the next pass instead of being rejected.
@@ -78,10 +98,14 @@ class FileSummary:
     duplicates: int = 0
     rejected: int = 0
     flagged: int = 0
-    missing: int = 0
+    missing: int = 0  # empty cells and cells holding a missing-value marker
+    corrected: int = 0  # stored values a correction replaced (kept in superseded_values)
+    repeated_times_resolved: int = 0  # lines at a local time that occurs twice, placed by row order
     reason: str | None = None
     archived_as: str | None = None
     notes: list[str] = field(default_factory=list)
+    #: The first SUMMARY_ROWS rejected rows: {"line", "instrument_id", "reason"}.
+    rejected_rows: list[dict] = field(default_factory=list)
     unexpected: bool = False  # rejected because reading it raised an error nobody foresaw
 
     @property
@@ -103,8 +127,13 @@ class FileSummary:
             return f"{self.name}: FAILED: {self.reason}"
         counts = (
             f"{self.accepted} accepted, {self.duplicates} duplicates, {self.rejected} rejected, "
-            f"{self.flagged} flagged"
+            f"{self.flagged} flagged, {self.missing} empty"
         )
+        if self.corrected:
+            counts += f", {self.corrected} corrected (the values replaced are kept)"
+        if self.repeated_times_resolved:
+            counts += (f", {self.repeated_times_resolved} at local times that occur twice (clocks went back) "
+                       "placed by row order")  # fmt: skip
         if self.status == "rejected":
             return f"{self.name}: REJECTED: {self.reason} ({counts}); moved to {self.archived_as}"
         notes = "".join(f"; note: {n}" for n in self.notes)
@@ -332,7 +361,7 @@ def reconcile(workspace: Workspace, store: Store) -> list[str]:
             continue
         planned = workspace.root / committed["archived_as"]
         if committed["status"] == "rejected" and not planned.with_name(planned.name + ".reason.txt").exists():
-            _write_reason(planned, committed["reason"] or "", [])
+            _write_reason(planned, committed["reason"] or "", [], 0)
         destination = _move_to(path, planned)
         if destination != planned:
             store.set_archived_as(committed["id"], _relative(workspace, destination))
@@ -344,7 +373,7 @@ def reconcile(workspace: Workspace, store: Store) -> list[str]:
 
 
 def _ingest_claimed(workspace: Workspace, store: Store, config: SiteConfig, claim: _Claim, now: datetime,
-                    progress: bool) -> FileSummary:  # fmt: skip
+                    progress: bool, correction: Correction | None = None) -> FileSummary:  # fmt: skip
     try:
         sha, size = _sha256(claim.path)
         prior = store.ingested_file(sha)
@@ -360,19 +389,21 @@ def _ingest_claimed(workspace: Workspace, store: Store, config: SiteConfig, clai
             archived_as=_relative(workspace, destination),
         )  # fmt: skip
     feed = config.feed_for(claim.name)
-    summary = FileSummary(claim.name, "ingested", feed.name if feed else None)
-    problems: list[RowProblem] = []
     try:
         try:
             with store.atomic():
-                planned = _read_into_store(workspace, store, config, claim, feed, sha, size, now, progress,
-                                           summary, problems)  # fmt: skip
+                summary, problems, file_id = _read_file(store, config, claim.path, claim.name, sha, size, now,
+                                                        progress, correction, complete=claim.complete)  # fmt: skip
+                folder = workspace.rejected if summary.status == "rejected" else workspace.processed
+                planned = _free_name(folder, claim.name)
+                summary.archived_as = _relative(workspace, planned)
+                store.finish_file(file_id, summary.status, summary.reason, summary.__dict__, summary.archived_as)
         except _STORE_OR_DISK_ERRORS:
             raise
         except Exception as error:  # noqa: BLE001 - one unreadable file must not stop the watch
             # An error nobody foresaw while reading: its transaction was rolled back; the file
             # goes to rejected/ with the error as reason, in a transaction of its own.
-            summary = FileSummary(claim.name, "rejected", summary.feed, unexpected=True,
+            summary = FileSummary(claim.name, "rejected", feed.name if feed else None, unexpected=True,
                                   reason=f"unexpected error while reading the file ({type(error).__name__}: "
                                          f"{clipped(str(error))}); nothing of it is stored; please report this")  # fmt: skip
             problems = []
@@ -393,23 +424,43 @@ def _ingest_claimed(workspace: Workspace, store: Store, config: SiteConfig, clai
     return summary
 
 
-def _read_into_store(workspace: Workspace, store: Store, config: SiteConfig, claim: _Claim, feed, sha: str,
-                     size: int, now: datetime, progress: bool, summary: FileSummary,
-                     problems: list[RowProblem]) -> Path:  # fmt: skip
-    """The file's record, readings and rejected rows (inside the caller's transaction); return
-    where the file is to be archived."""
-    file_id = store.add_file(claim.name, summary.feed, sha, size, archived_as="", ingested_utc=utc_text(now))
+@dataclass(frozen=True)
+class Correction:
+    """Who applies a corrected file, why, and when (the injected clock's time)."""
+
+    by: str
+    reason: str
+    at: datetime
+
+
+def _read_file(store: Store, config: SiteConfig, path: Path, name: str, sha: str, size: int, now: datetime,
+               progress: bool, correction: Correction | None = None, purpose: str = "delivery",
+               complete: bool = False) -> tuple[FileSummary, list[RowProblem], int]:  # fmt: skip
+    """Record the file and read it into the store (inside atomic()): its summary (status
+    'rejected' with the reason when nothing could be read), the first rejected rows and the id
+    of its record. With ``correction``, stored readings the file gives other values for are
+    replaced, the old ones kept in ``superseded_values``. ``complete``: the deliverer marked the
+    file finished (a last line without line end is then a row)."""
+    feed = config.feed_for(name)
+    summary = FileSummary(name, "ingested", feed.name if feed else None)
+    if correction is not None:
+        purpose = "correction"
+    file_id = store.add_file(name, summary.feed, sha, size, archived_as="", ingested_utc=utc_text(now),
+                             purpose=purpose, applied_by=correction.by if correction else None,
+                             note=correction.reason if correction else None)  # fmt: skip
+    problems: list[RowProblem] = []
     if feed is None:
         patterns = ", ".join(f"{f.name}: {f.pattern}" for f in config.feeds) or "no [[feed]] in site.toml"
-        summary.reason = f"no [[feed]] pattern matches the name {claim.name!r} ({patterns})"
+        summary.reason = f"no [[feed]] pattern matches the name {name!r} ({patterns})"
     else:
         try:
-            reader = FeedReader(claim.path, feed, complete=claim.complete)
-            _load(store, config, reader, file_id, now, progress, summary, problems)
+            reader = FeedReader(path, feed, complete=complete)
+            _load(store, config, reader, file_id, now, progress, summary, problems, correction)
             summary.notes = reader.header_notes
+            summary.repeated_times_resolved = reader.repeated_times_resolved
         except FeedError as error:
             summary.reason = str(error)
-        if summary.reason is None and summary.accepted + summary.duplicates == 0:
+        if summary.reason is None and summary.accepted + summary.duplicates + summary.corrected == 0:
             summary.reason = (
                 "no reading could be read"
                 + (f" ({summary.rejected} rows rejected)" if summary.rejected else "")
@@ -418,21 +469,66 @@ def _read_into_store(workspace: Workspace, store: Store, config: SiteConfig, cla
             )
     if summary.reason is not None:
         summary.status = "rejected"
-        folder = workspace.rejected
-    else:
-        folder = workspace.processed
-    planned = _free_name(folder, claim.name)
-    summary.archived_as = _relative(workspace, planned)
-    _fill_line_texts(store, file_id, claim.path, feed, problems)
-    store.finish_file(file_id, summary.status, summary.reason, summary.__dict__, summary.archived_as)
-    return planned
+    _fill_line_texts(store, file_id, path, feed, problems)
+    summary.rejected_rows = [{"line": p.line, "instrument_id": p.instrument_id, "reason": p.reason}
+                             for p in problems]  # fmt: skip
+    return summary, problems, file_id
+
+
+def reread(workspace: Workspace, archived: Path | str, clock: Clock, progress: bool = False) -> FileSummary:
+    """Read a file archived in processed/ or rejected/ again, as site.toml reads it now (after a
+    configuration fix: a column mapped, a feed added). Only readings not stored yet are stored;
+    the same value again is a duplicate, another value a rejected row (``apply_corrections``
+    replaces values). The file stays where it is; a new file record (purpose 'reread') names it."""
+    path = _archived_file(workspace, Path(archived))
+    now = clock.now()
+    with _IngestLock(workspace):
+        config = workspace.config()
+        with workspace.open_store() as store:
+            sha, size = _sha256(path)
+            with store.atomic():
+                store.sync_site(config)
+                summary, _, file_id = _read_file(store, config, path, path.name, sha, size, now, progress,
+                                                 purpose="reread")  # fmt: skip
+                summary.archived_as = _relative(workspace, path)
+                store.finish_file(file_id, summary.status, summary.reason, summary.__dict__, summary.archived_as)
+    return summary
+
+
+def apply_corrections(workspace: Workspace, path: Path | str, by: str, reason: str, clock: Clock,
+                      progress: bool = False) -> FileSummary:  # fmt: skip
+    """Read a corrected (re-delivered) feed file: readings it gives another value for replace the
+    stored ones, which are kept in ``superseded_values`` with who, when and why; readings not
+    stored yet are stored; the file is archived in processed/ like a delivery. Assessments made
+    later use the corrected values; those made before keep the values they used."""
+    if not by.strip() or not reason.strip():
+        raise UserError("a correction needs who applies it (--by) and why (--reason)")
+    correction = Correction(by.strip(), reason.strip(), clock.now())
+    with _IngestLock(workspace):
+        config = workspace.config()
+        with workspace.open_store() as store:
+            with store.atomic():
+                store.sync_site(config)
+            claim = _claim_named(workspace, Path(path))
+            return _ingest_claimed(workspace, store, config, claim, correction.at, progress, correction)
+
+
+def _archived_file(workspace: Workspace, path: Path) -> Path:
+    """An archived feed file, given relative to the workspace or absolute; UserError otherwise."""
+    if not path.is_absolute() and not path.exists():
+        path = workspace.root / path
+    resolved = path.resolve()
+    folders = (workspace.processed.resolve(), workspace.rejected.resolve())
+    if resolved.parent not in folders or not resolved.is_file() or resolved.name.endswith(".reason.txt"):
+        raise UserError(f"{path} is not a feed file archived in {workspace.processed} or {workspace.rejected}")
+    return resolved
 
 
 def _load(store: Store, config: SiteConfig, reader: FeedReader, file_id: int, now: datetime, progress: bool,
-          summary: FileSummary, problems: list[RowProblem]) -> None:  # fmt: skip
+          summary: FileSummary, problems: list[RowProblem], correction: Correction | None = None) -> None:  # fmt: skip
     """Read ``reader`` block by block into the store. Rejected rows are written to the store
     with each block (a file of millions of bad rows must not pile up in memory); ``problems``
-    keeps the first few, for the reason file."""
+    keeps the first SUMMARY_ROWS, for the summary and the reason file."""
     instruments = config.instruments
     bar = tqdm(
         total=reader.size, unit="B", unit_scale=True, desc=reader.path.name, leave=False,
@@ -444,12 +540,14 @@ def _load(store: Store, config: SiteConfig, reader: FeedReader, file_id: int, no
             bar.update(chunk.bytes_read)
             summary.missing += chunk.missing
             pending = list(chunk.problems)
-            _load_block(store, config, chunk.readings, file_id, now, summary, pending, conflicted)
+            _load_block(store, config, reader.spec, chunk.readings, file_id, now, summary, pending, conflicted,
+                        correction)  # fmt: skip
             _flush_problems(store, file_id, pending, problems, summary)
 
 
-def _load_block(store: Store, config: SiteConfig, rows: pd.DataFrame, file_id: int, now: datetime,
-                summary: FileSummary, problems: list[RowProblem], conflicted: set[tuple[str, str]]) -> None:  # fmt: skip
+def _load_block(store: Store, config: SiteConfig, feed: FeedSpec, rows: pd.DataFrame, file_id: int,
+                now: datetime, summary: FileSummary, problems: list[RowProblem], conflicted: set[tuple[str, str]],
+                correction: Correction | None = None) -> None:  # fmt: skip
     """Check and insert the readings of one block; its rejected rows go to ``problems``.
     ``conflicted``: the keys the file gave earlier with different values (none is stored;
     updated here)."""
@@ -460,6 +558,12 @@ def _load_block(store: Store, config: SiteConfig, rows: pd.DataFrame, file_id: i
     for line, iid in rows.loc[~known, ["line", "instrument_id"]].itertuples(index=False):
         problems.append(RowProblem(int(line), None, f"instrument {iid!r} is not in site.toml", iid))
     rows = rows[known]
+    # Another logger's instrument in this feed is a mix-up of files or channels, not a reading.
+    delivered = rows["instrument_id"].isin(feed.delivers).to_numpy()
+    for line, iid in rows.loc[~delivered, ["line", "instrument_id"]].itertuples(index=False):
+        problems.append(RowProblem(int(line), None, f"instrument {iid!r} is not delivered by feed {feed.name!r} "
+                                                    f"(its instruments: {', '.join(sorted(feed.delivers))})", iid))
+    rows = rows[delivered]
     in_window, reasons = time_window_problems(rows["time_utc"].to_numpy(dtype="datetime64[s]"), now, config.ingest)
     for line, iid, reason in zip(rows["line"].to_numpy()[~in_window], rows["instrument_id"].to_numpy()[~in_window],
                                  reasons[~in_window]):  # fmt: skip
@@ -484,10 +588,73 @@ def _load_block(store: Store, config: SiteConfig, rows: pd.DataFrame, file_id: i
             problems.extend(RowProblem(line, None, reason, iid) for line, reason in lacking)
             piezometer_parts.append(assessed)
         else:
-            rain_parts.append(assess_rain_gauge(group, instrument, store.previous_rain_total(iid, first)))
+            rain_parts.append(assess_rain_gauge(group, instrument, _rain_before(store, iid, first)))
     for table, parts in (("readings", piezometer_parts), ("rainfall", rain_parts)):
         if parts:
-            _insert(store, table, pd.concat(parts, ignore_index=True), file_id, summary, problems, conflicted)
+            _insert(store, table, pd.concat(parts, ignore_index=True), file_id, summary, problems, conflicted,
+                    correction)  # fmt: skip
+    for part in rain_parts:
+        # Readings that landed inside the stored record (a late or out-of-order file, or a
+        # correction) change the rain of the readings after them: derive it again.
+        iid = part["instrument_id"].iat[0]
+        first = _utc_text(part["time_utc"].to_numpy()[:1])[0]
+        if correction is not None or len(store.rain_rows_from(iid, first, limit=len(part) + 1)) > len(part):
+            settle_rain_record(store, instruments[iid], first)
+    if correction is not None:
+        # A corrected head changes the spike and flat-line flags of the readings after it.
+        for part in piezometer_parts:
+            if len(part):
+                first = _utc_text(part["time_utc"].to_numpy()[:1])[0]
+                settle_piezometer_flags(store, config, instruments[part["instrument_id"].iat[0]], first)
+
+
+def settle_piezometer_flags(store: Store, config: SiteConfig, piezometer: Piezometer, start_utc: str) -> int:
+    """Check the stored readings of a piezometer from ``start_utc`` on again (quality flags, from
+    their raw values and the reading before), after a correction changed one of them. Returns
+    the readings whose flag changed (inside atomic())."""
+    stored = store.readings(piezometer.id, start_utc)
+    if not stored:
+        return 0
+    rows = pd.DataFrame(stored)
+    rows["time_utc"] = np.array([_time64(t) for t in rows["time_utc"]], dtype="datetime64[s]")
+    rows["line"] = rows["source_line"]
+    for column in ("raw_value", "temperature_c", "barometric_kpa"):
+        rows[column] = pd.to_numeric(rows[column], errors="coerce").astype(float)
+    previous = _previous(store.previous_reading(piezometer.id, start_utc))
+    assessed, _ = assess_piezometer(rows, piezometer, config.ingest, previous)
+    changed = assessed[assessed["quality"].to_numpy() != rows.loc[assessed.index, "quality"].to_numpy()]
+    return store.set_reading_quality(piezometer.id, zip(changed["quality"], _utc_text(changed["time_utc"].to_numpy())))
+
+
+def settle_rain_record(store: Store, gauge, start_utc: str) -> int:
+    """Derive the rain and quality of a gauge's stored readings from ``start_utc`` on again from
+    their raw values (``watch.quality.rain_record``), so the stored depths do not depend on the
+    order in which files arrived or on corrections made later. Returns the readings changed
+    (inside atomic())."""
+    rows = store.rain_rows_from(gauge.id, start_utc)
+    if not rows:
+        return 0
+    times, raw, rain, quality = zip(*rows)
+    times = np.array([_time64(t) for t in times], dtype="datetime64[s]")
+    new_rain, new_quality = rain_record(times, np.array(raw, dtype=float), gauge,
+                                        _rain_before(store, gauge.id, start_utc))  # fmt: skip
+    old_rain = np.array([np.nan if r is None else r for r in rain], dtype=float)
+    same_rain = (old_rain == new_rain) | (np.isnan(old_rain) & np.isnan(new_rain))
+    changed = np.flatnonzero(~same_rain | (np.array(quality, dtype=object) != new_quality))
+    text = _utc_text(times)
+    return store.set_rain(gauge.id, ((None if np.isnan(new_rain[i]) else float(new_rain[i]), new_quality[i], text[i])
+                                     for i in changed))  # fmt: skip
+
+
+def _rain_before(store: Store, gauge_id: str, before_utc: str) -> RainBefore:
+    base_time, base_raw, last_time, last_raw = store.rain_before(gauge_id, before_utc)
+    return RainBefore(_time64(base_time), np.nan if base_raw is None else base_raw,
+                      _time64(last_time), np.nan if last_raw is None else last_raw)  # fmt: skip
+
+
+def _time64(text: str | None) -> np.datetime64 | None:
+    """datetime64[s] of a store time ('...Z'), None for None."""
+    return None if text is None else np.datetime64(text[:-1], "s")
 
 
 def _settle_repeats(rows: pd.DataFrame, summary: FileSummary, problems: list[RowProblem],
@@ -526,11 +693,12 @@ def _flush_problems(store: Store, file_id: int, pending: list[RowProblem], kept:
     pending.sort(key=lambda p: (p.line is None, p.line or 0))
     store.add_rejected_rows((file_id, p.line, p.instrument_id, clipped(p.raw_text), p.reason) for p in pending)
     summary.rejected += len(pending)
-    kept.extend(pending[: max(0, _REASON_FILE_ROWS - len(kept))])
+    kept.extend(pending[: max(0, SUMMARY_ROWS - len(kept))])
 
 
 def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary: FileSummary,
-            problems: list[RowProblem], conflicted: set[tuple[str, str]]) -> None:  # fmt: skip
+            problems: list[RowProblem], conflicted: set[tuple[str, str]],
+            correction: Correction | None = None) -> None:  # fmt: skip
     ids = rows["instrument_id"].to_numpy(dtype=object)
     times = _utc_text(rows["time_utc"].to_numpy())
     lines = rows["line"].to_numpy(dtype=np.int64)
@@ -554,7 +722,8 @@ def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary:
         summary.flagged += int(flagged.sum())
         return
     # Some keys were stored already: sort the rows left out into duplicates (same raw value)
-    # and conflicts (different value: reported, the stored value is kept).
+    # and conflicts (different value: reported, the stored value is kept), unless this file is
+    # a correction of values stored from other files.
     ids, times = ids.tolist(), times.tolist()
     stored = pd.DataFrame(
         store.stored_versions(table, dict.fromkeys(zip(ids, times))),
@@ -568,7 +737,17 @@ def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary:
     summary.accepted += int(ours.sum())
     summary.flagged += int((ours & merged["flagged"]).sum())
     summary.duplicates += int(same.sum())
-    for r in left_out[~same].itertuples(index=False):
+    conflicts = left_out[~same]
+    if correction is not None:
+        replace = conflicts["stored_file_id"] != file_id
+        positions = conflicts.index[replace].to_numpy()
+        summary.corrected += store.supersede(
+            table, zip(*(repeat(file_id) if c is None else c[positions].tolist() for c in columns)),
+            correction.by, correction.reason, utc_text(correction.at),
+        )  # fmt: skip
+        summary.flagged += int(merged["flagged"].to_numpy()[positions].sum())
+        conflicts = conflicts[~replace]
+    for r in conflicts.itertuples(index=False):
         if r.stored_file_id == file_id:
             # Given twice by this file with different values (in different blocks): neither is
             # stored, as within one block (_settle_repeats).
@@ -588,7 +767,7 @@ def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary:
             RowProblem(int(r.line), None,
                        f"conflicts with the stored reading of {r.instrument_id} at {r.time_utc}: stored "
                        f"raw value {r.stored_raw:g} ({where}, line {r.stored_line}), this row {r.raw_value:g}; "
-                       "the stored value is kept", r.instrument_id)  # fmt: skip
+                       "the stored value is kept (replace it with `slipwatch correct`)", r.instrument_id)  # fmt: skip
         )
 
 
@@ -647,8 +826,7 @@ def _previous(row) -> Previous | None:
     if row is None:
         return None
     time, raw, since, head_time, head = row
-    parse = lambda text: None if text is None else np.datetime64(text[:-1], "s")  # noqa: E731 - '...Z'
-    return Previous(parse(time), raw, parse(since), parse(head_time), np.nan if head is None else head)
+    return Previous(_time64(time), raw, _time64(since), _time64(head_time), np.nan if head is None else head)
 
 
 def _utc_text(times: np.ndarray) -> np.ndarray:
@@ -704,7 +882,8 @@ def _write_reason(archived: Path, reason: str, problems: list[RowProblem], total
     for p in problems[:_REASON_FILE_ROWS]:
         lines.append(printable(f"line {p.line}: {p.reason}"))
     if total > len(problems[:_REASON_FILE_ROWS]):
-        lines.append(f"... and {total - len(problems[:_REASON_FILE_ROWS])} more (see the rejected_rows table)")
+        more = total - len(problems[:_REASON_FILE_ROWS])
+        lines.append(f"... and {more} more (list them with `slipwatch rejected-rows`)")
     reason_file = archived.with_name(archived.name + ".reason.txt")
     reason_file.write_text("\n".join(lines) + "\n", encoding="utf-8")
     _fsync_file(reason_file)

@@ -22,6 +22,7 @@ configuration; their values are never written to the store or a log (errors are 
 
 from __future__ import annotations
 
+import base64
 import hashlib
 import hmac
 import json
@@ -103,6 +104,8 @@ class EmailSettings:
     security: str = "starttls"  # one of _SMTP_SECURITY
     user_env: str | None = None
     password_env: str | None = None
+    # The owner's explicit consent to log in over an unencrypted connection (a local relay).
+    unencrypted_login_to_local_relay: bool = False
 
     def recipients_for(self, level: str | None) -> tuple[str, ...]:
         chosen = list(self.recipients.get(EVERY_LEVEL, ()))
@@ -197,8 +200,10 @@ def notify_settings(config: SiteConfig, root: Path) -> NotifySettings:
 
 def _email(r: TableReader, t: dict) -> EmailSettings:
     where = "[notify.email]"
-    r.keys(t, where, {"host", "port", "sender", "security", "user_env", "password_env", "recipients"})
+    r.keys(t, where, {"host", "port", "sender", "security", "user_env", "password_env", "recipients",
+                      "unencrypted_login_to_local_relay"})  # fmt: skip
     security = r.choice(t, where, "security", _SMTP_SECURITY) if "security" in t else "starttls"
+    consent = r.get(t, where, "unencrypted_login_to_local_relay", bool, default=False)
     port = r.get(t, where, "port", int, default=465 if security == "ssl" else 587)
     if not 0 < port < 65536:
         r.fail(where, "port", f"must be 1..65535, got {port}")
@@ -210,6 +215,12 @@ def _email(r: TableReader, t: dict) -> EmailSettings:
     if (user_env is None) != (password_env is None):
         r.fail(where, "password_env" if password_env is None else "user_env",
                "must be given together with the other: both or neither")  # fmt: skip
+    if security == "none" and user_env is not None and not consent:
+        # The user name and password would cross the network in clear (base64 is no encryption).
+        r.fail(where, "security", "'none' with user_env/password_env would send the SMTP user name and "
+                                  "password unencrypted; use 'starttls' or 'ssl', or, for a relay on this "
+                                  "machine or a trusted local network only, set "
+                                  "unencrypted_login_to_local_relay = true")  # fmt: skip
     table = r.table(t, "recipients", "[notify.email.recipients]", required=True)
     recipients = {}
     for level, addresses in table.items():
@@ -219,6 +230,7 @@ def _email(r: TableReader, t: dict) -> EmailSettings:
     return EmailSettings(
         host=r.get(t, where, "host", str), port=port, sender=sender, recipients=recipients,
         security=security, user_env=user_env, password_env=password_env,
+        unencrypted_login_to_local_relay=consent,
     )  # fmt: skip
 
 
@@ -444,10 +456,21 @@ def _send_webhook(message: Message, hook: WebhookSettings, timeout: float, envir
         raise _SendError(f"HTTP {status} from webhook {hook.name!r}")
 
 
+def _secret_forms(secrets: list[str]) -> list[str]:
+    """The credentials as they may appear in a server's reply: plain, and base64 as SMTP AUTH
+    sends them (LOGIN: each alone; PLAIN: NUL user NUL password, RFC 4616), longest first."""
+    values = [s for s in secrets if s]
+    encoded = [*values, *(f"\0{a}\0{b}" for a in values for b in values if a != b)]
+    forms = set(values) | {base64.b64encode(v.encode()).decode() for v in encoded}
+    # Unpadded too: a reply may quote the base64 without its trailing '='.
+    forms |= {f.rstrip("=") for f in forms if len(f.rstrip("=")) >= 4}
+    return sorted(forms, key=len, reverse=True)
+
+
 def _scrub(text: str, secrets: list[str]) -> str:
-    for secret in secrets:
-        if secret:
-            text = text.replace(secret, "***")
+    """An error text without any form of the credentials (before it is stored or logged)."""
+    for form in _secret_forms(secrets):
+        text = text.replace(form, "***")
     return text[:_ERROR_CHARS]
 
 

@@ -15,8 +15,17 @@ Kept with a quality flag (later stages use only ``quality == 'ok'``), worst firs
   * ``flat``: the raw value has not changed for ``flat_line_hours`` or longer (piezometers only;
     a dry rain gauge legitimately reports 0 for days). Readings are flagged from the moment the
     run reaches that length, so the result does not depend on how files are cut;
+  * ``implausible`` (rain gauges): more rain in one reading than the world's greatest point
+    rainfalls allow for the time it covers (``world_record_rainfall_mm``), or a running total
+    above the world's greatest 12-month rainfall when the gauge has no ``valid_range``. Every
+    gauge has this limit, whatever its configuration; such a reading never feeds a trigger;
   * ``no_baseline``: first reading of a cumulative rain gauge with nothing stored before it; its
     rain depth is unknown (NULL), not guessed.
+
+The rain of a cumulative gauge is derived from the stored record, not from the order in which
+files arrived: ``rain_record`` is a function of the gauge's readings in time order, and the
+ingest recomputes it from the first reading a file adds whenever that file lands inside the
+stored record (see ``watch.ingest.settle_rain_record``).
 
 The functions take one instrument's rows sorted by time plus its last stored state, and are
 vectorised over the rows.
@@ -31,7 +40,7 @@ import numpy as np
 import pandas as pd
 
 from watch.config import IngestSettings, Piezometer, RainGauge
-from watch.conversions import piezometer_values, rain_values
+from watch.conversions import piezometer_values, rain_from_cumulative, rain_values
 
 __all__ = [
     "QUALITY_OK",
@@ -43,10 +52,42 @@ __all__ = [
     "flat_lines",
     "assess_piezometer",
     "assess_rain_gauge",
+    "RainBefore",
+    "rain_record",
+    "world_record_rainfall_mm",
+    "GREATEST_12_MONTH_RAINFALL_MM",
 ]
 
 QUALITY_OK = "ok"
-QUALITY_FLAGS = ("out_of_range", "spike", "flat", "no_baseline")
+QUALITY_FLAGS = ("out_of_range", "spike", "flat", "implausible", "no_baseline")
+
+#: The world's greatest observed 12-month point rainfall [mm]: 26,461 mm at Cherrapunji, India,
+#: August 1860 to July 1861 (WMO World Weather and Climate Extremes Archive; value from memory).
+#: A running total above it cannot be one season's rain: the default upper limit of the raw value
+#: of a cumulative gauge without ``valid_range``, and of a reading whose duration is unknown.
+GREATEST_12_MONTH_RAINFALL_MM = 26_461.0
+
+
+def world_record_rainfall_mm(duration_h):
+    """Envelope of the world's greatest observed point rainfalls [mm] over a duration [h].
+
+    P = 422 D^0.475   (P [mm], D [h]; 16.6 D^0.475 in inches)
+
+    No rain gauge has recorded more than this over any duration from about a minute to two
+    years, so a reading above it is a fault, not a storm.
+
+    Parameters
+    ----------
+    duration_h : float or array
+        Duration [h] the rain depth fell in (> 0).
+
+    References
+    ----------
+    Jennings, A. H. (1950). World's greatest observed point rainfalls. Monthly Weather Review
+    78(1), 4-5. The envelope as restated in WMO (2009), Manual on Estimation of Probable
+    Maximum Precipitation (PMP), WMO-No. 1045, section 1.1 (coefficients from memory).
+    """
+    return 422.0 * np.asarray(duration_h, dtype=float) ** 0.475
 
 
 @dataclass(frozen=True)
@@ -173,13 +214,99 @@ def assess_piezometer(rows: pd.DataFrame, piezometer: Piezometer, settings: Inge
     return rows.assign(pore_pressure_kpa=pressure, head_m=head, quality=quality), problems
 
 
-def assess_rain_gauge(rows: pd.DataFrame, gauge: RainGauge, previous_total: float | None = None) -> pd.DataFrame:
-    """Convert and check one rain gauge's rows (sorted by time); adds ``rain_mm`` and ``quality``."""
-    raw = rows["raw_value"].to_numpy(dtype=float)
-    rain = rain_values(gauge, raw, np.nan if previous_total is None else previous_total)
-    quality = np.full(len(rows), QUALITY_OK, dtype=object)
-    if gauge.reporting == "cumulative_mm" and previous_total is None and len(rows):
-        quality[0] = "no_baseline"
-    bad = out_of_range(raw, gauge.valid_range) | (raw < 0)
-    quality[bad] = "out_of_range"
+@dataclass(frozen=True)
+class RainBefore:
+    """A gauge's stored record just before the readings being derived: the last reading that
+    is a usable base of a running total (quality ok or no_baseline) and the last reading of any
+    quality. Times are datetime64[s], UTC."""
+
+    base_time: np.datetime64 | None = None
+    base_raw: float = np.nan
+    last_time: np.datetime64 | None = None
+    last_raw: float = np.nan
+
+
+def rain_record(times: np.ndarray, raw: np.ndarray, gauge: RainGauge,
+                before: RainBefore | None = None) -> tuple[np.ndarray, np.ndarray]:  # fmt: skip
+    """(rain_mm, quality) of one gauge's readings in time order, from their raw values alone.
+
+    Interval and tip gauges: the depth of each reading (watch.conversions). Cumulative gauges:
+    the increase of the running total since the last reading that is a usable base, or the total
+    itself after a reset (watch.conversions.rain_from_cumulative). When that increase is
+    implausible but the increase from the reading just before is not, the reading before was a
+    level shift (a logger swapped without a reset) and becomes the base. A reading whose rain
+    exceeds ``world_record_rainfall_mm`` over the time since its base is flagged
+    ``implausible`` and is no base for the next one, so one wild total cannot turn the readings
+    after it into a burst of rain.
+
+    The result depends only on the readings and ``before``: the same record gives the same
+    depths whatever order its files arrived in. The loop is sequential by nature (each base
+    depends on the flags before it); the ingest runs it over the readings a file adds.
+    """
+    times = np.asarray(times, dtype="datetime64[s]")
+    raw = np.asarray(raw, dtype=float)
+    before = before or RainBefore()
+    n = len(raw)
+    quality = np.full(n, QUALITY_OK, dtype=object)
+    limit = gauge.valid_range
+    if limit is None and gauge.reporting == "cumulative_mm":
+        limit = (0.0, GREATEST_12_MONTH_RAINFALL_MM)
+    wild = out_of_range(raw, gauge.valid_range) | (raw < 0)
+    quality[wild] = "out_of_range"
+    implausible_total = ~wild & out_of_range(raw, limit)
+    quality[implausible_total] = "implausible"
+    seconds = times.astype(np.int64).astype(float)
+    if gauge.reporting != "cumulative_mm":
+        rain = rain_values(gauge, raw)
+        previous = np.concatenate(([_seconds(before.last_time)], seconds[:-1])) if n else seconds
+        for i in np.flatnonzero(quality == QUALITY_OK):
+            if not _plausible(rain[i], previous[i], seconds[i]):
+                quality[i] = "implausible"
+        return rain, quality
+
+    rain = np.full(n, np.nan)
+    base_t, base_c = _seconds(before.base_time), before.base_raw
+    last_t, last_c = _seconds(before.last_time), before.last_raw
+    for i in range(n):
+        t, c = seconds[i], raw[i]
+        if quality[i] == QUALITY_OK:
+            if np.isnan(base_c):
+                quality[i] = "no_baseline"
+                base_t, base_c = t, c
+            else:
+                depth = float(rain_from_cumulative([c], base_c)[0])
+                if _plausible(depth, base_t, t):
+                    rain[i], base_t, base_c = depth, t, c
+                else:
+                    shifted = float(rain_from_cumulative([c], last_c)[0]) if np.isfinite(last_c) else np.nan
+                    if last_t != base_t and np.isfinite(shifted) and _plausible(shifted, last_t, t):
+                        rain[i], base_t, base_c = shifted, t, c
+                    else:
+                        rain[i], quality[i] = depth, "implausible"
+        elif not np.isnan(base_c):
+            rain[i] = float(rain_from_cumulative([c], base_c)[0])
+        last_t, last_c = t, c
+    return rain, quality
+
+
+def _seconds(time: np.datetime64 | None) -> float:
+    """Seconds since 1970 of a datetime64 (NaN for None)."""
+    return np.nan if time is None else float(np.datetime64(time, "s").astype(np.int64))
+
+
+def _plausible(depth_mm: float, start_s: float, end_s: float) -> bool:
+    """Whether ``depth_mm`` of rain can have fallen from ``start_s`` to ``end_s`` [s]: within
+    the world-record envelope, or within the greatest 12-month rainfall when the duration is
+    unknown (no reading before, or the same time)."""
+    duration_h = (end_s - start_s) / 3600.0
+    if not np.isfinite(duration_h) or duration_h <= 0:
+        return depth_mm <= GREATEST_12_MONTH_RAINFALL_MM
+    return depth_mm <= float(world_record_rainfall_mm(duration_h))
+
+
+def assess_rain_gauge(rows: pd.DataFrame, gauge: RainGauge, before: RainBefore | None = None) -> pd.DataFrame:
+    """Convert and check one rain gauge's rows (sorted by time); adds ``rain_mm`` and ``quality``
+    (see ``rain_record``)."""
+    rain, quality = rain_record(rows["time_utc"].to_numpy(dtype="datetime64[s]"),
+                                rows["raw_value"].to_numpy(dtype=float), gauge, before)  # fmt: skip
     return rows.assign(rain_mm=rain, quality=quality)

@@ -400,6 +400,42 @@ MIGRATIONS: list[tuple[int, str, str]] = [
         CREATE INDEX calibrations_section ON calibrations(section_id, created_utc);
         """,
     ),
+    (
+        7,
+        "corrections and re-reads",
+        """
+        -- Why a file was read: an ordinary delivery, a correction (re-delivered values that
+        -- replace stored ones, applied by someone for a reason) or a re-read of an archived
+        -- file after a configuration fix. A re-read reads content already ingested, so only
+        -- deliveries and corrections keep a checksum unique.
+        ALTER TABLE ingested_files ADD COLUMN purpose TEXT NOT NULL DEFAULT 'delivery'
+            CHECK (purpose IN ('delivery', 'correction', 'reread'));
+        ALTER TABLE ingested_files ADD COLUMN applied_by TEXT;
+        ALTER TABLE ingested_files ADD COLUMN note TEXT;
+        DROP INDEX ingested_files_sha256;
+        CREATE UNIQUE INDEX ingested_files_sha256 ON ingested_files(sha256)
+            WHERE status = 'ingested' AND purpose != 'reread';
+        -- Every stored value a correction replaced: the row as it was (values_json), where it
+        -- came from, what replaced it, who made the correction, when and why.
+        CREATE TABLE superseded_values (
+            id INTEGER PRIMARY KEY,
+            measurement TEXT NOT NULL CHECK (measurement IN ('readings', 'rainfall')),
+            instrument_id TEXT NOT NULL,
+            time_utc TEXT NOT NULL,
+            raw_value REAL NOT NULL,
+            quality TEXT NOT NULL,
+            values_json TEXT NOT NULL,
+            source_file_id INTEGER NOT NULL REFERENCES ingested_files(id),
+            source_line INTEGER NOT NULL,
+            replaced_by_file_id INTEGER NOT NULL REFERENCES ingested_files(id),
+            replaced_by_line INTEGER NOT NULL,
+            corrected_by TEXT NOT NULL,
+            reason TEXT NOT NULL,
+            corrected_utc TEXT NOT NULL
+        );
+        CREATE INDEX superseded_values_key ON superseded_values(instrument_id, time_utc);
+        """,
+    ),
 ]
 
 _READING_COLUMNS = (
@@ -409,6 +445,11 @@ _READING_COLUMNS = (
 _RAINFALL_COLUMNS = (
     "gauge_id", "time_utc", "raw_value", "rain_mm", "quality", "source_file_id", "source_line",
 )  # fmt: skip
+#: Columns and id column of each measurement table, in the order rows are inserted.
+_MEASUREMENT_COLUMNS = {
+    "readings": (_READING_COLUMNS, "instrument_id"),
+    "rainfall": (_RAINFALL_COLUMNS, "gauge_id"),
+}
 #: Columns of ``alerts`` that Store.update_alert may set (migrations 1 and 3).
 _ALERT_COLUMNS = frozenset({
     "level", "state", "message", "state_json", "updated_utc", "acknowledged_utc", "acknowledged_by",
@@ -623,7 +664,8 @@ class Store:
         """The record of a file already ingested with this checksum, or None."""
         rows = list(
             self.db.query(
-                "SELECT * FROM ingested_files WHERE sha256 = ? AND status = 'ingested'", [sha256]
+                "SELECT * FROM ingested_files WHERE sha256 = ? AND status = 'ingested' ORDER BY id LIMIT 1",
+                [sha256],
             )
         )
         return rows[0] if rows else None
@@ -635,15 +677,57 @@ class Store:
         )
 
     def add_file(self, name: str, feed: str | None, sha256: str, size_bytes: int, archived_as: str,
-                 ingested_utc: str | None = None) -> int:  # fmt: skip
+                 ingested_utc: str | None = None, purpose: str = "delivery", applied_by: str | None = None,
+                 note: str | None = None) -> int:  # fmt: skip
         """Record a file being ingested; ``ingested_utc`` is the ingest's clock time (a replay
-        passes its manual clock), else the system time."""
+        passes its manual clock), else the system time. ``purpose``: 'delivery', 'correction'
+        (with who applied it and why) or 'reread' (migration 7)."""
         cursor = self.conn.execute(
             "INSERT INTO ingested_files (name, feed, sha256, size_bytes, status, archived_as, "
-            "ingested_utc) VALUES (?, ?, ?, ?, 'ingested', ?, ?)",
-            (name, feed, sha256, size_bytes, archived_as, ingested_utc or _now_text()),
+            "ingested_utc, purpose, applied_by, note) VALUES (?, ?, ?, ?, 'ingested', ?, ?, ?, ?, ?)",
+            (name, feed, sha256, size_bytes, archived_as, ingested_utc or _now_text(), purpose, applied_by, note),
         )
         return cursor.lastrowid
+
+    def supersede(self, table: str, rows: Iterable[Sequence], corrected_by: str, reason: str,
+                  corrected_utc: str) -> int:  # fmt: skip
+        """Replace stored readings (``rows`` in the columns of ``insert_readings`` or
+        ``insert_rainfall``, keys already stored) and keep each replaced row in
+        ``superseded_values`` with who, when and why (inside atomic()). Return the number."""
+        columns, id_column = _MEASUREMENT_COLUMNS[table]
+        assignments = ", ".join(f"{c} = ?" for c in columns[2:])
+        count = 0
+        for row in rows:
+            key = (row[0], row[1])
+            old = self.conn.execute(f"SELECT * FROM {table} WHERE {id_column} = ? AND time_utc = ?", key)
+            names = [d[0] for d in old.description]
+            values = old.fetchone()
+            if values is None:
+                raise StoreError(f"no stored reading of {key[0]} at {key[1]} to correct")
+            was = dict(zip(names, values))
+            self.conn.execute(
+                "INSERT INTO superseded_values (measurement, instrument_id, time_utc, raw_value, quality, "
+                "values_json, source_file_id, source_line, replaced_by_file_id, replaced_by_line, corrected_by, "
+                "reason, corrected_utc) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                (table, *key, was["raw_value"], was["quality"], json.dumps(was, sort_keys=True),
+                 was["source_file_id"], was["source_line"], row[-2], row[-1], corrected_by, reason, corrected_utc),
+            )  # fmt: skip
+            self.conn.execute(f"UPDATE {table} SET {assignments} WHERE {id_column} = ? AND time_utc = ?",
+                              (*row[2:], *key))  # fmt: skip
+            count += 1
+        return count
+
+    def superseded_values(self, instrument_id: str, start_utc: str | None = None,
+                          end_utc: str | None = None) -> list[dict]:  # fmt: skip
+        """The values corrections replaced for one instrument, by time then order of correction,
+        with the names of the files involved (migration 7)."""
+        sql = (
+            "SELECT s.*, f.name AS source_file, g.name AS replaced_by_file FROM superseded_values s "
+            "JOIN ingested_files f ON f.id = s.source_file_id "
+            "JOIN ingested_files g ON g.id = s.replaced_by_file_id WHERE s.instrument_id = ?"
+        )
+        where, params = _between("s.time_utc", start_utc, end_utc)
+        return list(self.db.query(sql + where + " ORDER BY s.time_utc, s.id", [instrument_id, *params]))
 
     def finish_file(self, file_id: int, status: str, reason: str | None, counts: dict, archived_as: str) -> None:
         self.conn.execute(
@@ -749,16 +833,57 @@ class Store:
             ).fetchone()[0]
         return (row[0], row[1], since, *in_range)
 
-    def previous_rain_total(self, gauge_id: str, before_utc: str) -> float | None:
-        """Raw value of the gauge's last stored reading before a time (cumulative gauges)."""
-        row = self.conn.execute(
-            "SELECT raw_value FROM rainfall WHERE gauge_id = ? AND time_utc < ? "
+    def rain_before(self, gauge_id: str, before_utc: str) -> tuple:
+        """(base time, base raw, last time, last raw) of a gauge before a time: its last reading
+        that can be the base of a running total (quality 'ok' or 'no_baseline') and its last
+        reading of any quality; None for what is not stored."""
+        base = self.conn.execute(
+            "SELECT time_utc, raw_value FROM rainfall WHERE gauge_id = ? AND time_utc < ? "
+            "AND quality IN ('ok', 'no_baseline') ORDER BY time_utc DESC LIMIT 1",
+            (gauge_id, before_utc),
+        ).fetchone() or (None, None)
+        last = self.conn.execute(
+            "SELECT time_utc, raw_value FROM rainfall WHERE gauge_id = ? AND time_utc < ? "
             "ORDER BY time_utc DESC LIMIT 1",
             (gauge_id, before_utc),
-        ).fetchone()
-        return None if row is None else row[0]
+        ).fetchone() or (None, None)
+        return (*base, *last)
+
+    def rain_rows_from(self, gauge_id: str, start_utc: str, limit: int = -1) -> list[tuple]:
+        """(time_utc, raw_value, rain_mm, quality) of a gauge from a time on, in time order; at
+        most ``limit`` rows (-1: all)."""
+        return self.conn.execute(
+            "SELECT time_utc, raw_value, rain_mm, quality FROM rainfall WHERE gauge_id = ? "
+            "AND time_utc >= ? ORDER BY time_utc LIMIT ?",
+            (gauge_id, start_utc, limit),
+        ).fetchall()
+
+    def set_reading_quality(self, instrument_id: str, rows: Iterable[Sequence]) -> int:
+        """Set the quality of stored piezometer readings, rows (quality, time_utc) (inside atomic())."""
+        return self.conn.executemany(
+            "UPDATE readings SET quality = ? WHERE instrument_id = ? AND time_utc = ?",
+            ((quality, instrument_id, time) for quality, time in rows),
+        ).rowcount
+
+    def set_rain(self, gauge_id: str, rows: Iterable[Sequence]) -> int:
+        """Set (rain_mm, quality, time_utc) of stored readings of a gauge (inside atomic())."""
+        return self.conn.executemany(
+            "UPDATE rainfall SET rain_mm = ?, quality = ? WHERE gauge_id = ? AND time_utc = ?",
+            ((rain, quality, gauge_id, time) for rain, quality, time in rows),
+        ).rowcount
 
     # --- queries ------------------------------------------------------------------------------
+
+    def rejected_rows(self, start_utc: str | None = None, end_utc: str | None = None) -> list[dict]:
+        """Rejected rows of the files ingested in a period (by the file's ``ingested_utc``), in
+        file and line order: file name, file id, ingested_utc, line, instrument_id, reason,
+        raw_text."""
+        sql = (
+            "SELECT f.name AS file, f.id AS file_id, f.ingested_utc, r.line, r.instrument_id, r.reason, "
+            "r.raw_text FROM rejected_rows r JOIN ingested_files f ON f.id = r.file_id WHERE 1 = 1"
+        )
+        where, params = _between("f.ingested_utc", start_utc, end_utc)
+        return list(self.db.query(sql + where + " ORDER BY f.id, r.line IS NULL, r.line, r.id", params))
 
     def readings(self, instrument_id: str, start_utc: str | None = None, end_utc: str | None = None) -> list[dict]:
         """Stored readings of one piezometer or rain gauge in time order, with their source."""
@@ -770,14 +895,23 @@ class Store:
             f"SELECT t.*, f.name AS source_file FROM {table} t "
             f"JOIN ingested_files f ON f.id = t.source_file_id WHERE t.{id_column} = ?"
         )
-        params: list = [instrument_id]
-        if start_utc is not None:
-            sql += " AND t.time_utc >= ?"
-            params.append(start_utc)
-        if end_utc is not None:
-            sql += " AND t.time_utc <= ?"
-            params.append(end_utc)
-        return list(self.db.query(sql + " ORDER BY t.time_utc", params))
+        where, params = _between("t.time_utc", start_utc, end_utc)
+        return list(self.db.query(sql + where + " ORDER BY t.time_utc", [instrument_id, *params]))
+
+    def readings_with_corrections(self, instrument_id: str, start_utc: str | None = None,
+                                  end_utc: str | None = None) -> list[dict]:  # fmt: skip
+        """``readings`` with, on each row, ``superseded``: the values corrections replaced at
+        that time (oldest first; migration 7), an empty list for a reading never corrected."""
+        rows = self.readings(instrument_id, start_utc, end_utc)
+        replaced: dict[str, list[dict]] = {}
+        for old in self.superseded_values(instrument_id, start_utc, end_utc):
+            replaced.setdefault(old["time_utc"], []).append({
+                key: old[key] for key in ("raw_value", "quality", "source_file", "source_line", "replaced_by_file",
+                                          "replaced_by_line", "corrected_by", "reason", "corrected_utc")
+            })  # fmt: skip
+        for row in rows:
+            row["superseded"] = replaced.get(row["time_utc"], [])
+        return rows
 
     def instrument_summary(self) -> list[dict]:
         """Per configured instrument: kind, newest reading time, count, count by quality."""
@@ -1183,6 +1317,17 @@ class Store:
             sql += f" ON CONFLICT ({conflict}) DO NOTHING"
         cursor = self.conn.execute(sql, tuple(row.values()))
         return cursor.lastrowid if cursor.rowcount else None
+
+
+def _between(column: str, start_utc: str | None, end_utc: str | None) -> tuple[str, list[str]]:
+    """SQL conditions (each starting with AND) and parameters for ``start <= column <= end``;
+    a bound that is None is left open. ``column`` comes from our own code, never from input."""
+    sql, params = "", []
+    if start_utc is not None:
+        sql, params = sql + f" AND {column} >= ?", [*params, start_utc]
+    if end_utc is not None:
+        sql, params = sql + f" AND {column} <= ?", [*params, end_utc]
+    return sql, params
 
 
 def _statements(sql: str) -> list[str]:

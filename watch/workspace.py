@@ -21,7 +21,7 @@ from pathlib import Path
 from watch.config import SiteConfig, load_site_config
 from watch.errors import WorkspaceError
 
-__all__ = ["Workspace", "init_workspace", "open_workspace", "EXAMPLE_SITE_TOML"]
+__all__ = ["Workspace", "check_site", "init_workspace", "open_workspace", "EXAMPLE_SITE_TOML"]
 
 SITE_FILE = "site.toml"
 DATABASE_FILE = "slipwatch.db"
@@ -72,13 +72,30 @@ class Workspace:
         return (self.sections, self.incoming, self.claimed, self.processed, self.rejected, self.reports)
 
     def config(self) -> SiteConfig:
-        """Load site.toml (fresh each call: the file may have been edited)."""
-        return load_site_config(self.site_file)
+        """Load site.toml (fresh each call: the file may have been edited) and check all of
+        it, also the tables that the alerts, notifications and the service read, so that a
+        fault anywhere in the file stops every command at once instead of silently dropping
+        a rule (ConfigError naming the file, table and key)."""
+        return check_site(load_site_config(self.site_file), self.root)
 
     def open_store(self, read_only: bool = False):
         from watch.store import Store
 
         return Store(self.database, read_only=read_only)
+
+
+def check_site(config: SiteConfig, root: Path) -> SiteConfig:
+    """Check the tables of a loaded site file that the alerts, notifications and the service
+    read (ConfigError naming the table and key); return the configuration."""
+    # Imported here: those modules build on this one.
+    from watch.daemon import daemon_settings
+    from watch.notify import notify_settings
+    from watch.triggers import alert_settings
+
+    alert_settings(config)
+    notify_settings(config, root)
+    daemon_settings(config, root)
+    return config
 
 
 def init_workspace(directory: Path | str, site_template: Path | str | None = None) -> Workspace:
@@ -95,7 +112,7 @@ def init_workspace(directory: Path | str, site_template: Path | str | None = Non
         raise WorkspaceError(f"{workspace.root} exists and is not a folder")
     if site_template is not None:
         template = Path(site_template)
-        load_site_config(template)  # raises ConfigError naming the key
+        check_site(load_site_config(template), workspace.root)  # raises ConfigError naming the key
         text = template.read_text(encoding="utf-8")
     else:
         text = EXAMPLE_SITE_TOML

@@ -119,3 +119,84 @@ def test_sections_and_piezometers_are_looked_up_by_id():
     known = ", ".join(s.id for s in config.sections)
     with pytest.raises(ConfigError, match=rf"section 'XX-1' is not listed in site.toml \(known: {known}\)"):
         config.section("XX-1")
+
+
+@pytest.mark.parametrize(
+    "mutate, match",
+    [
+        # A misspelt rule table used to be ignored: that trigger rule disappeared.
+        (lambda d: d.update(triger=[{"name": "fos-red"}]),
+         r"top level table 'triger' is unknown \(did you mean 'trigger'\?"),
+        (lambda d: d["piezometer"][0].update(valid_rnage=[0, 1]),
+         r"'valid_rnage' is unknown \(did you mean 'valid_range'\?"),
+        (lambda d: d["ingest"].update(stale_hour=6), r"'stale_hour' is unknown \(did you mean 'stale_hours'\?"),
+        (lambda d: d.update(wibble={}), r"table 'wibble' is unknown \(valid tables: cycle, daemon"),
+    ],
+)
+def test_unknown_tables_and_keys_are_errors_with_a_hint(mutate, match):
+    data = _example()
+    mutate(data)
+    with pytest.raises(ConfigError, match=match):
+        parse_site_config(data)
+
+
+def test_unknown_keys_in_tables_read_elsewhere_stop_the_site_from_loading(tmp_path):
+    from watch.workspace import init_workspace
+
+    workspace = init_workspace(tmp_path / "ws")
+    for table, match in (("[data_alerts]\nstale_hour = 6\n", r"'stale_hour' is unknown \(did you mean 'stale_hours'"),
+                         ("[daemon]\nintervall_minutes = 5\n", r"did you mean 'interval_minutes'"),
+                         ("[notify]\nlog_fil = 'x.log'\n", r"did you mean 'log_file'")):  # fmt: skip
+        workspace.site_file.write_text(EXAMPLE_SITE_TOML + table, encoding="utf-8")
+        with pytest.raises(ConfigError, match=match):
+            workspace.config()
+
+
+@pytest.mark.parametrize(
+    "time_format, match",
+    [
+        ("%Y-%m-%d %H:%Q", r"time_format' '%Y-%m-%d %H:%Q' is not a valid time format \('Q' is a bad directive"),
+        ("%Y-%m-%d %H:%M %", r"is not a valid time format \(stray %"),
+        ("%H:%M", r"does not give the full date \(year, month and day\)"),
+        ("%d/%m %H:%M", r"does not give the full date"),
+    ],
+)
+def test_time_format_is_checked_when_the_site_is_loaded(time_format, match):
+    data = _example()
+    data["feed"][0]["time_format"] = time_format
+    with pytest.raises(ConfigError, match=match):
+        parse_site_config(data)
+
+
+@pytest.mark.parametrize("time_format", ["%Y-%m-%d %H:%M", "%d/%m/%Y %H:%M:%S", "%Y-%m-%dT%H:%M:%S%z", "%Y-%j %H:%M"])
+def test_valid_time_formats_load(time_format):
+    data = _example()
+    data["feed"][0]["time_format"] = time_format
+    assert parse_site_config(data).feeds[0].time_format == time_format
+
+
+def test_long_feed_names_the_instruments_it_delivers():
+    data = _example()
+    feed = data["feed"][0]
+    feed.update(layout="long", instrument_column="Sensor", value_column="Value")
+    del feed["columns"], feed["temperature_columns"]
+    with pytest.raises(ConfigError, match=r"key 'instruments' is required for layout = 'long'"):
+        parse_site_config(data)
+    feed["instruments"] = ["PZ-1", "PZ-7"]
+    with pytest.raises(ConfigError, match=r"key 'instruments' 'PZ-7' is not a piezometer or rain gauge id"):
+        parse_site_config(data)
+    feed["instruments"] = ["PZ-1", "RG-1"]
+    assert parse_site_config(data).feeds[0].delivers == {"PZ-1", "RG-1"}
+
+
+def test_a_bad_template_leaves_no_half_made_workspace(tmp_path):
+    from watch.workspace import init_workspace
+
+    template = tmp_path / "template.toml"
+    template.write_text(EXAMPLE_SITE_TOML + "[[triger]]\nname = 'fos-red'\n[cycle]\nchatter_windw_hours = 24\n")
+    with pytest.raises(ConfigError, match=r"table 'triger' is unknown \(did you mean 'trigger'\?"):
+        init_workspace(tmp_path / "ws", template)
+    template.write_text(EXAMPLE_SITE_TOML + "[cycle]\nchatter_windw_hours = 24\n")
+    with pytest.raises(ConfigError, match=r"'chatter_windw_hours' is unknown \(did you mean 'chatter_window_hours'\?"):
+        init_workspace(tmp_path / "ws", template)
+    assert not (tmp_path / "ws").exists()

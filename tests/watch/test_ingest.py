@@ -81,6 +81,7 @@ time_zone = "UTC"
 instrument_column = "Id"
 value_column = "Digits"
 temperature_column = "Temp"
+instruments = ["P2"]
 
 [ingest]
 min_file_age_seconds = 0
@@ -345,4 +346,16 @@ def test_a_file_of_bad_rows_is_rejected_with_every_row_stored_and_a_short_reason
     assert stored[-1][1] == "P9,2026-10-01 06:00,1,1"
     reason = (workspace.rejected / "vw_bad.csv.reason.txt").read_text()
     assert reason.count("is not in site.toml") == 20
-    assert "... and 1 more (see the rejected_rows table)" in reason
+    assert "... and 1 more (list them with `slipwatch rejected-rows`)" in reason
+
+
+def test_a_feed_delivers_only_the_instruments_its_configuration_names(workspace):
+    # The vw logger names P2 only; P1 belongs to the north logger (and RC is a rain gauge).
+    drop(workspace, "vw_other.csv", "Time,Id,Digits,Temp\n2026-10-01 00:00,P2,8000,10\n"
+                                    "2026-10-01 00:00,P1,51.0,10\n2026-10-01 00:15,RC,3.0,10\n")  # fmt: skip
+    (summary,) = run(workspace).files
+    assert (summary.accepted, summary.rejected) == (1, 2)
+    rejected = query(workspace, "SELECT line, instrument_id, reason FROM rejected_rows ORDER BY line")
+    assert [(line, iid) for line, iid, _ in rejected] == [(3, "P1"), (4, "RC")]
+    assert all("is not delivered by feed 'vw' (its instruments: P2)" in reason for _, _, reason in rejected)
+    assert query(workspace, "SELECT instrument_id FROM readings") == [("P2",)]

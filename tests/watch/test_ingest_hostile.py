@@ -70,6 +70,7 @@ decimal = ","
 missing = ["", "-9999"]
 instrument_column = "channel"
 value_column = "value"
+instruments = ["PA", "PB"]
 
 [[feed]]
 name = "wide"

@@ -148,6 +148,7 @@ def _email_toml(port: int, **extra) -> str:
         'sender = "slipwatch@fernhollow.invalid"',
         'user_env = "TEST_SMTP_USER"',
         'password_env = "TEST_SMTP_PASSWORD"',
+        "unencrypted_login_to_local_relay = true",  # the test server has no certificate
         "[notify.email.recipients]",
         '"*" = ["records@fernhollow.invalid"]',
         'red = ["duty@fernhollow.invalid"]',
@@ -252,6 +253,48 @@ def test_secret_given_in_place_of_a_variable_name_is_not_echoed(tmp_path):
     with pytest.raises(ConfigError, match="secret_env") as caught:
         notify_settings(ws.config(), ws.root)
     assert "hunter2" not in str(caught.value)
+
+
+def test_credentials_over_an_unencrypted_connection_are_refused_when_the_site_is_loaded(tmp_path):
+    toml = _email_toml(2525).replace("unencrypted_login_to_local_relay = true\n", "")
+    ws = _workspace(tmp_path, toml)
+    with pytest.raises(ConfigError, match=r"security' 'none' with user_env/password_env would send .* unencrypted"):
+        ws.config()  # every command loads the site this way
+    # The owner's explicit consent for a local relay, as documented in docs/formats.md.
+    ws.site_file.write_text(ws.site_file.read_text().replace(
+        'password_env = "TEST_SMTP_PASSWORD"\n',
+        'password_env = "TEST_SMTP_PASSWORD"\nunencrypted_login_to_local_relay = true\n'))  # fmt: skip
+    assert notify_settings(ws.config(), ws.root).email.unencrypted_login_to_local_relay is True
+
+
+class _EchoingAuthenticator:
+    """A server that, refusing the login, quotes the base64 user name back (as some do)."""
+
+    def __call__(self, server, session, envelope, mechanism, auth_data):
+        echoed = base64.b64encode(SMTP_USER.encode()).decode()
+        return AuthResult(success=False, handled=False, message=f"535 5.7.8 user {echoed} not accepted")
+
+
+def test_server_replies_are_scrubbed_of_the_authentication_exchange(tmp_path):
+    controller = Controller(_MailHandler(), hostname="127.0.0.1", port=_free_port(),
+                            authenticator=_EchoingAuthenticator(), auth_required=True,
+                            auth_require_tls=False)  # fmt: skip
+    controller.start()
+    try:
+        ws = _workspace(tmp_path, _email_toml(controller.port, max_attempts=1))
+        with ws.open_store() as store:
+            _outbox(store)
+            report = deliver_pending(ws, store, ManualClock(START), environ=ENV)
+            errors = [a["error"] for a in _attempts(store) if a["status"] == "failed"]
+            dump = "\n".join(store.conn.iterdump())
+    finally:
+        controller.stop()
+    assert report.attempts_failed == 2 and all("SMTPAuthenticationError" in e for e in errors)  # two addresses
+    assert all("user *** not accepted" in e for e in errors)  # the reply is kept, the credential cut out
+    echoed = base64.b64encode(SMTP_USER.encode()).decode()
+    for text in (dump, *(p.read_text(errors="replace") for p in ws.root.glob("*.log")), *report.errors,
+                 *report.gave_up):  # fmt: skip
+        assert echoed not in text and echoed.rstrip("=") not in text and SMTP_USER not in text
 
 
 def test_backoff_doubles_up_to_its_cap():

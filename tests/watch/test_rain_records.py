@@ -1,0 +1,158 @@
+"""Rain you can trust: the stored depths of a gauge do not depend on the order or lateness of its
+files (resets included), and every gauge has a physical plausibility limit by default."""
+
+import itertools
+from datetime import datetime, timedelta, timezone
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from watch.config import RainGauge
+from watch.forecast import rainfall_state
+from watch.ingest import ingest
+from watch.quality import GREATEST_12_MONTH_RAINFALL_MM, RainBefore, rain_record, world_record_rainfall_mm
+from watch.workspace import init_workspace
+
+NOW = datetime(2026, 10, 30, tzinfo=timezone.utc)
+START = datetime(2026, 10, 1, tzinfo=timezone.utc)
+
+SITE = """
+[site]
+id = "raintest"
+name = "Invented rain test site"
+
+[[rain_gauge]]
+id = "RC"
+reporting = "cumulative_mm"
+
+[[rain_gauge]]
+id = "RI"
+reporting = "interval_mm"
+
+[[feed]]
+name = "gauges"
+pattern = "gauges_*.csv"
+layout = "wide"
+time_column = "Time"
+time_format = "%Y-%m-%d %H:%M"
+time_zone = "UTC"
+[feed.columns]
+"RC" = "RC"
+"RI" = "RI"
+
+[ingest]
+min_file_age_seconds = 0
+oldest_reading = "2020-01-01"
+"""
+
+
+def _workspace(folder):
+    template = folder.parent / f"{folder.name}.toml"
+    template.write_text(SITE)
+    return init_workspace(folder, template)
+
+
+def _file(rows) -> str:
+    """rows: (minutes after START, cumulative total RC, interval depth RI)."""
+    return "Time,RC,RI\n" + "".join(
+        f"{(START + timedelta(minutes=m)):%Y-%m-%d %H:%M},{c!r},{i!r}\n" for m, c, i in rows
+    )
+
+
+def _stored(workspace):
+    with workspace.open_store(read_only=True) as store:
+        return [(r["gauge_id"], r["time_utc"], r["rain_mm"], r["quality"]) for r in store.db.query(
+            "SELECT * FROM rainfall ORDER BY gauge_id, time_utc")]  # fmt: skip
+
+
+def _deliver(workspace, files, order):
+    for k in order:
+        path = workspace.root / f"gauges_{k}.csv"
+        path.write_text(files[k])
+        ingest(workspace, [path], now=NOW, progress=False)
+
+
+@st.composite
+def _gauge_record(draw):
+    """A 15-minute running total with resets, cut into 3 or 4 files of consecutive rows."""
+    n = draw(st.integers(8, 40))
+    increments = draw(st.lists(st.sampled_from([0.0, 0.0, 0.2, 0.4, 1.2, 3.6]), min_size=n, max_size=n))
+    resets = set(draw(st.lists(st.integers(1, n - 1), max_size=3)))
+    total, totals = draw(st.sampled_from([0.0, 57.4, 812.2])), []
+    for i, step in enumerate(increments):
+        total = round((0.0 if i in resets else total) + step, 1)
+        totals.append(total)
+    cuts = sorted(draw(st.sets(st.integers(1, n - 1), min_size=2, max_size=3)))
+    rows = [(15 * i, totals[i], increments[i]) for i in range(n)]
+    bounds = [0, *cuts, n]
+    return [_file(rows[a:b]) for a, b in zip(bounds[:-1], bounds[1:])]
+
+
+@settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(files=_gauge_record(), data=st.data())
+def test_every_delivery_order_of_a_cumulative_gauge_stores_identical_depths(tmp_path_factory, files, data):
+    orders = list(itertools.permutations(range(len(files))))
+    chosen = [orders[0], *data.draw(st.lists(st.sampled_from(orders[1:]), min_size=1, max_size=2, unique=True))]
+    results = []
+    for order in chosen:
+        workspace = _workspace(tmp_path_factory.mktemp("order"))
+        _deliver(workspace, files, order)
+        results.append(_stored(workspace))
+    assert all(result == results[0] for result in results[1:]), chosen
+
+
+def test_a_week_delivered_late_gives_the_in_order_depths_without_an_invented_burst(tmp_path):
+    # Three weeks of 15-minute totals; the middle week arrives last (the issue's W41, W43, W42).
+    rows = [(15 * i, round(0.2 * (i // 3), 1), 0.0) for i in range(3 * 96)]
+    files = [_file(rows[:96]), _file(rows[96:192]), _file(rows[192:])]
+    in_order, late = _workspace(tmp_path / "a"), _workspace(tmp_path / "b")
+    _deliver(in_order, files, (0, 1, 2))
+    _deliver(late, files, (0, 2, 1))
+    assert _stored(late) == _stored(in_order)
+    depths = [r[2] for r in _stored(late) if r[0] == "RC" and r[3] == "ok"]
+    assert max(depths) == pytest.approx(0.2, abs=1e-9)  # 0.2 mm per 45 min, never a burst
+    assert sum(depths) == pytest.approx(0.2 * ((3 * 96 - 1) // 3), abs=1e-9)
+
+
+def test_a_value_without_valid_range_above_every_record_is_flagged_and_feeds_no_trigger(tmp_path):
+    workspace = _workspace(tmp_path / "ws")
+    rows = [(15 * i, 10.0 + 0.2 * i, 0.2) for i in range(8)]
+    rows[5] = (75, 1e308, 1e308)  # the reproduction: neither gauge has a valid_range
+    _deliver(workspace, {0: _file(rows)}, (0,))
+    stored = {(g, t[11:16]): (rain, q) for g, t, rain, q in _stored(workspace)}
+    assert stored[("RC", "01:15")][1] == "implausible" and stored[("RI", "01:15")][1] == "implausible"
+    # The readings after the wild total keep their true depth: 0.2 mm from the last good base.
+    assert stored[("RC", "01:30")] == (pytest.approx(0.4, abs=1e-9), "ok")
+    with workspace.open_store(read_only=True) as store:
+        for gauge in ("RC", "RI"):
+            state = rainfall_state(store, gauge, START + timedelta(hours=2))
+            assert not any(e.exceeded for e in state.exceedances)
+            assert state.totals_mm["rain_1h_mm"] < 2.0
+
+
+def test_world_record_envelope_lies_just_above_the_records():
+    # Records from memory (WMO World Weather and Climate Extremes Archive): 38 mm in 1 min
+    # (Barot, Guadeloupe, 1970), 305 mm in 42 min (Holt, Missouri, 1947), 1825 mm in 24 h
+    # (Foc-Foc, La Reunion, 1966). Jennings (1950) drew the envelope over such records, so it
+    # is above each and within a factor of two of it.
+    for duration_h, record_mm in ((1 / 60, 38.0), (42 / 60, 305.0), (24.0, 1825.0)):
+        envelope = float(world_record_rainfall_mm(duration_h))
+        assert record_mm <= envelope <= 2.0 * record_mm
+    # P = 422 D^0.475: 422 mm at 1 h exactly (the form of the source).
+    assert float(world_record_rainfall_mm(1.0)) == pytest.approx(422.0, rel=1e-12)
+
+
+def test_rain_record_of_a_reset_and_a_level_shift():
+    gauge = RainGauge("G", None, "cumulative_mm")
+    times = np.datetime64("2026-10-01T00:00", "s") + np.arange(7) * np.timedelta64(15 * 60, "s")
+    raw = np.array([5.0, 5.4, 0.2, 0.6, 900.0, 900.2, 900.4])
+    rain, quality = rain_record(times, raw, gauge, RainBefore(times[0] - 900, 5.0, times[0] - 900, 5.0))
+    # rain_i = c_i - c_base, or c_i after a reset (c_i < c_base). 900 - 0.6 mm in 15 min is above
+    # the envelope (422 x 0.25^0.475 = 218 mm): a level shift, flagged; 900.2 continues from it.
+    np.testing.assert_allclose(rain[[0, 1, 2, 3, 5, 6]], [0.0, 0.4, 0.2, 0.4, 0.2, 0.2], atol=1e-9)
+    assert list(quality) == ["ok", "ok", "ok", "ok", "implausible", "ok", "ok"]
+    # A running total above the world's greatest 12-month rainfall cannot be a season's rain.
+    _, quality = rain_record(times[:1], [GREATEST_12_MONTH_RAINFALL_MM + 1], gauge)
+    assert list(quality) == ["implausible"]
