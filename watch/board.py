@@ -29,6 +29,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from watch import assessment_status
 from watch.caution import CAUTION
 from watch.errors import UserError, WorkspaceError
 from watch.store import parse_utc_text, utc_text
@@ -42,6 +43,7 @@ __all__ = [
     "BoardResult",
     "build_board",
     "collect_status",
+    "site_levels",
     "default_board_dir",
     "section_page_name",
     "plot_figure",
@@ -49,6 +51,7 @@ __all__ = [
     "draw_section_figure",
     "draw_fos_figure",
     "draw_heads_figure",
+    "fos_series",
 ]
 
 #: Folder of the board inside the workspace when no other is given.
@@ -93,22 +96,67 @@ class AssessmentRecord:
     inputs: dict
     extra: dict = field(default_factory=dict)  # columns added by later migrations
 
+    @property
+    def status(self) -> str:
+        """The cycle's status (migration 3); a store older than that knew only converged."""
+        stored = self.extra.get("status")
+        if stored:
+            return str(stored)
+        return assessment_status.OK if self.converged else assessment_status.NOT_CONVERGED
+
+    @property
+    def usable(self) -> bool:
+        """A factor of safety of the slope as the readings show it: the series, trends and
+        changes use these alone."""
+        return assessment_status.usable(self.status) and self.fos is not None
+
+    @property
+    def on_design_lines(self) -> bool:
+        """Computed on the design water lines because no live reading was there."""
+        return assessment_status.on_design_lines(self.status) and self.fos is not None
+
+
+#: Severity cues written before every level's word, so that levels differ in a shape people
+#: read in grey print and without colour vision, not in hue alone (our own set).
+SEVERITY_CUES = {-1: "?", 0: "\u25cb", 1: "\u25b2", 2: "\u25b2\u25b2", 3: "\u25b2\u25b2\u25b2"}
+#: What is expected of the duty engineer where the site file sets no expectation.
+EXPECTATION_NO_ALERT = "No action beyond the routine watch."
+EXPECTATION_DATA_ALERT = ("Safety not known: get the instruments reporting again and judge the "
+                          "slope by other means meanwhile.")
+EXPECTATION_NOT_ASSESSED = "Safety not known: no assessment yet; run an assessment cycle."
+EXPECTATION_UNSET = "The site file sets no expectation for this level: follow the owner's procedure."
+
 
 @dataclass(frozen=True)
 class Level:
-    """The alert level of a section as people read it: a word, and its severity."""
+    """The alert level of a section as people read it: a word, its severity, and what is
+    expected of whoever reads it."""
 
     word: str
     rank: int  # -1 safety unknown (not assessed, data alert), 0 no alert, higher is worse
     detail: str = ""
+    expectation: str = ""
+    #: 1..3: place of the level among the site's levels (3 for the highest); None: by rank.
+    tier: int | None = None
+
+    @property
+    def severity(self) -> int:
+        """-1 unknown, 0 no alert, 1..3 the owner's levels, lowest to highest."""
+        if self.rank <= 0:
+            return max(self.rank, -1)
+        return self.tier if self.tier is not None else min(self.rank, 3)
 
     @property
     def css(self) -> str:
-        return "lv-none" if self.rank < 0 else f"lv-{min(self.rank, 3)}"
+        return "lv-none" if self.severity < 0 else f"lv-{self.severity}"
+
+    @property
+    def cue(self) -> str:
+        return SEVERITY_CUES[self.severity]
 
 
-NOT_ASSESSED = Level("not assessed", -1, "no assessment stored yet")
-NO_ALERT = Level("no alert", 0)
+NOT_ASSESSED = Level("not assessed", -1, "no assessment stored yet", EXPECTATION_NOT_ASSESSED)
+NO_ALERT = Level("no alert", 0, "", EXPECTATION_NO_ALERT)
 
 
 @dataclass(frozen=True)
@@ -151,6 +199,7 @@ class SiteStatus:
     newest_instrument: str | None
     sections: list[SectionStatus]  # worst first
     notes: list[str]
+    levels: list[Level] = field(default_factory=list)  # the key: no alert, the site's, data alert
 
 
 def collect_status(workspace, store, now: datetime) -> SiteStatus:
@@ -200,11 +249,13 @@ def collect_status(workspace, store, now: datetime) -> SiteStatus:
         newest_instrument=newest["instrument_id"] if newest else None,
         sections=sections,
         notes=notes + reader.missing_notes(),
+        levels=site_levels(config),
     )
 
 
 def _worst_first(status: SectionStatus):
-    fos = status.latest.fos if status.latest and status.latest.fos is not None else math.inf
+    usable = [a for a in status.history if a.usable]
+    fos = usable[-1].fos if usable else math.inf
     # Unknown safety (not assessed, data alert) sits between "alert" and "no alert": nobody
     # knows the slope is safe.
     rank = 0.5 if status.level.rank < 0 else status.level.rank
@@ -216,7 +267,9 @@ def _section_status(workspace, store, reader, config, section_id, file, gauge, n
     season_start = now - SEASON
     history = reader.assessments(section_id, season_start, now)
     latest = history[-1] if history else None
-    assessed = [a for a in history if a.fos is not None and math.isfinite(a.fos)]
+    # Trends, changes and "the season's worst" rest on readings alone: a factor of safety on
+    # the design water lines is not a value of the slope's state.
+    assessed = [a for a in history if a.usable]
     worst = min(assessed, key=lambda a: a.fos) if assessed else None
     if not history:
         notes.append("no assessment stored in the season"
@@ -226,9 +279,9 @@ def _section_status(workspace, store, reader, config, section_id, file, gauge, n
     rain = {label: reader.rain_total(gauge, now - span, now) for label, span in windows.items()}
     instruments = reader.section_instruments(section_id, gauge, config, now)
     newest = max((i["newest"] for i in instruments if i["newest"] is not None), default=None)
-    rules, ranks = _trigger_levels(config, section_id, notes)
-    open_alerts = reader.open_alerts(section_id, ranks)
-    level = _level(open_alerts, latest)
+    rules, levels = _trigger_levels(config, section_id, notes)
+    open_alerts = reader.open_alerts(section_id, {name: rank for name, (rank, _) in levels.items()})
+    level = _level(open_alerts, latest, levels)
     problems = _data_problems(reader, instruments, latest, now)
     name = ""
     version = None
@@ -273,24 +326,63 @@ def _change(assessed: list[AssessmentRecord], start: datetime) -> float | None:
     return inside[-1].fos - inside[0].fos
 
 
-def _level(open_alerts: list[dict], latest: AssessmentRecord | None) -> Level:
+def _level(open_alerts: list[dict], latest: AssessmentRecord | None,
+           levels: dict[str, tuple[int, str]] | None = None) -> Level:
     """The highest owner's level firing; else "data alert" when a data-quality alert fires
-    (the slope is not being watched properly), "not assessed", or "no alert"."""
+    (the slope is not being watched properly), "not assessed", or "no alert". ``levels``: the
+    site's levels, {name: (rank, expectation)}."""
+    levels = levels or {}
     firing = [a for a in open_alerts if a.get("state") == "firing"]
     owners = [a for a in firing if a.get("level") != DATA_LEVEL]
     if owners:
         top = max(owners, key=lambda a: a.get("rank") or 1)
-        return Level(str(top.get("level") or "alert"), max(1, top.get("rank") or 1),
-                     f"rule {top.get('rule')}")
+        rank = max(1, top.get("rank") or 1)
+        rules = ", ".join(dict.fromkeys(str(a.get("rule")) for a in owners if a.get("rank") == top.get("rank")))
+        name = str(top.get("level") or "alert")
+        expectation = levels.get(name, (rank, ""))[1] or EXPECTATION_UNSET
+        return Level(name, rank, f"rule {rules}", expectation, tier=_tier(rank, levels))
     data = [a for a in firing if a.get("level") == DATA_LEVEL]
     if data:
-        return Level("data alert", -1, ", ".join(str(a.get("rule")) for a in data))
+        return Level("data alert", -1, ", ".join(str(a.get("rule")) for a in data),
+                     EXPECTATION_DATA_ALERT)
     if latest is None:
         return NOT_ASSESSED
     pending = [a for a in open_alerts if a.get("state") == "pending"]
     if pending:
-        return Level("no alert", 0, f"{len(pending)} condition(s) pending")
+        return Level("no alert", 0, f"{len(pending)} condition(s) pending", EXPECTATION_NO_ALERT)
     return NO_ALERT
+
+
+def _tier(rank: int, levels: dict[str, tuple[int, str]]) -> int | None:
+    """Place of an owner's level among the site's levels: 3 for the highest, 2 and 1 below
+    it (all lower levels share 1), so that the highest level always looks the gravest."""
+    if not levels:
+        return None
+    above = len({r for r, _ in levels.values() if r > rank})
+    return max(1, 3 - above)
+
+
+def site_levels(config) -> list[Level]:
+    """The board's key: "no alert", the site's levels lowest first, and "data alert", each
+    with its expectation."""
+    levels = _levels_of(config)
+    owners = [Level(name, rank, "", expectation or EXPECTATION_UNSET, _tier(rank, levels))
+              for name, (rank, expectation) in sorted(levels.items(), key=lambda kv: kv[1][0])]
+    return [NO_ALERT, *owners, Level("data alert", -1, "", EXPECTATION_DATA_ALERT)]
+
+
+def _levels_of(config) -> dict[str, tuple[int, str]]:
+    """{level name: (rank, expectation)} of the site's levels (none when unreadable)."""
+    if config is None:
+        return {}
+    from watch.triggers import alert_settings
+
+    try:
+        settings = alert_settings(config)
+    except UserError:
+        return {}
+    return {name: (level.rank, level.expectation) for name, level in settings.levels.items()
+            if name != DATA_LEVEL}
 
 
 def _data_problems(reader, instruments, latest, now) -> list[str]:
@@ -309,8 +401,11 @@ def _data_problems(reader, instruments, latest, now) -> list[str]:
             problems.append(f"{item['id']}: {sum(flagged.values())} readings flagged in the last "
                             f"7 days ({counts})")
     if latest is not None:
-        if not latest.converged:
-            problems.append("latest calculation did not converge"
+        if latest.on_design_lines:
+            problems.append(f"latest factor of safety ({latest.fos:.2f}) is on the design water "
+                            "lines: no live readings")
+        elif not latest.usable:
+            problems.append(f"latest calculation {assessment_status.status_words(latest.status)}"
                             + (f": {latest.message}" if latest.message else ""))
         for line in reader.water_lines(latest.id):
             if _fell_back(line):
@@ -327,8 +422,8 @@ def _fell_back(line: dict) -> bool:
 
 
 def _trigger_levels(config, section_id: str, notes: list[str]):
-    """({quantity: {label: trigger value}}, {level name: rank}) of the owner's rules that
-    apply to the section (the data-quality rules have no value worth drawing)."""
+    """({quantity: {label: trigger value}}, {level name: (rank, expectation)}) of the owner's
+    rules that apply to the section (the data-quality rules have no value worth drawing)."""
     if config is None:
         return {}, {}
     from watch.triggers import alert_settings
@@ -346,7 +441,7 @@ def _trigger_levels(config, section_id: str, notes: list[str]):
         rule = item.rule
         label = rule.level + (f" {item.instrument}" if rule.quantity == "head_m" else "")
         values.setdefault(rule.quantity, {})[label] = float(rule.trigger)
-    return values, {name: level.rank for name, level in settings.levels.items()}
+    return values, _levels_of(config)
 
 
 def _section_name_from_file(path: Path) -> str:
@@ -483,14 +578,21 @@ class _Reader:
         items = []
         for row in rows:
             settings = _json(row["config_json"], {})
-            table, column = (("rainfall", "gauge_id") if row["kind"] == "rain_gauge"
-                             else ("readings", "instrument_id"))
-            newest = self.one(f"SELECT MAX(time_utc) AS t FROM {table} WHERE {column} = ? "
-                              "AND time_utc <= ?", (row["id"], utc_text(now)))
+            table, column, value, unit = (("rainfall", "gauge_id", "rain_mm", "mm")
+                                          if row["kind"] == "rain_gauge"
+                                          else ("readings", "instrument_id", "head_m", "m"))
+            newest = self.one(f"SELECT time_utc AS t, {value} AS value, quality FROM {table} "
+                              f"WHERE {column} = ? AND time_utc <= ? ORDER BY time_utc DESC LIMIT 1",
+                              (row["id"], utc_text(now)))
             items.append({
                 "id": row["id"], "kind": row["kind"], "table": table, "column": column,
                 "newest": _time(newest["t"]) if newest and newest["t"] else None,
+                "newest_value": newest["value"] if newest else None,
+                "newest_quality": newest["quality"] if newest else None,
+                "quantity": "rain in the interval" if row["kind"] == "rain_gauge" else "head",
+                "unit": unit,
                 "max_age_hours": float(settings.get("max_age_hours") or stale),
+                "offset": settings.get("offset"),
                 "tip_elevation": settings.get("tip_elevation"),
                 "collar_elevation": settings.get("collar_elevation"),
                 "water_line": settings.get("water_line"),
@@ -859,41 +961,53 @@ def escape(value) -> str:
 # --------------------------------------------------------------------------------------------
 # Pages
 
-#: The board's own look: plain, high-contrast, one accent per level from the colour-blind-safe
-#: palette of Okabe and Ito (2008); the level is always written out as well.
+#: The board's own look: plain and high-contrast. Each level differs from the others in three
+#: ways, so that it reads at a glance in colour, in grey print and without colour vision: the
+#: lightness of its badge (white, pale yellow, orange, deep crimson with white text, from no
+#: alert to the highest level: every step a different grey), its severity cue (triangles
+#: counting the level up) and its word; the row's left bar grows with the level too.
 _CSS = """
 body { font-family: system-ui, -apple-system, "Segoe UI", sans-serif; margin: 0; color: #1a1a1a;
        background: #fafaf7; line-height: 1.4; }
 header { background: #23303b; color: #ffffff; padding: 0.8em 1.5em; }
 header a, header .small { color: #e8edf2; }
 header h1 { margin: 0.1em 0; font-size: 1.5em; }
-main { padding: 0.5em 1.5em 2em; max-width: 1500px; }
+main { padding: 0.5em 1em 2em; max-width: 1500px; box-sizing: border-box; }
 .caution { border: 2px solid #23303b; background: #ffffff; padding: 0.5em 0.8em; margin: 0.8em 0;
            font-weight: 600; }
 .generated { font-size: 0.9em; color: #333333; }
 .notes { background: #fff8e0; border-left: 6px solid #E69F00; padding: 0.4em 0.9em; }
 .empty { font-size: 1.1em; background: #ffffff; border: 1px dashed #777777; padding: 1em; }
 table { border-collapse: collapse; background: #ffffff; margin: 0.5em 0 1.2em; }
-th, td { border: 1px solid #c8c8c8; padding: 0.3em 0.5em; vertical-align: top; text-align: left; }
+th, td { border: 1px solid #c8c8c8; padding: 0.3em 0.45em; vertical-align: top; text-align: left; }
 th { background: #e9ecef; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
-.badge { display: inline-block; padding: 0.15em 0.6em; border-radius: 0.2em; font-weight: 700;
-         text-transform: uppercase; letter-spacing: 0.04em; border: 2px solid #1a1a1a; }
+/* A wide table scrolls inside its own frame: no column is ever cut off or hidden. */
+.frame { overflow-x: auto; max-width: 100%; }
+.badge { display: inline-block; padding: 0.15em 0.5em; border-radius: 0.2em; font-weight: 700;
+         text-transform: uppercase; letter-spacing: 0.04em; border: 2px solid #1a1a1a;
+         white-space: nowrap; }
+.badge .cue { letter-spacing: 0; margin-right: 0.35em; }
 .lv-none { background: #d9d9d9; border-style: dashed; }
-.lv-0 { background: #bfe6da; }
-.lv-1 { background: #F0E442; }
-.lv-2 { background: #E69F00; }
-.lv-3 { background: #D55E00; color: #000000; border-width: 3px; }
-tr.row-lv-1 td:first-child, tr.row-lv-2 td:first-child, tr.row-lv-3 td:first-child
-    { border-left: 8px solid #1a1a1a; }
+.lv-0 { background: #ffffff; border-color: #5a5a5a; font-weight: 600; }
+.lv-1 { background: #fde68a; }
+.lv-2 { background: #e08600; }
+.lv-3 { background: #7f0a1f; color: #ffffff; border: 4px double #000000; }
+.expect { font-size: 0.85em; color: #1a1a1a; margin-top: 0.3em; max-width: 17em; }
+.expect-wide { max-width: 60em; }
+tr.row-lv-1 td:first-child { border-left: 4px solid #1a1a1a; }
+tr.row-lv-2 td:first-child { border-left: 8px solid #1a1a1a; }
+tr.row-lv-3 td:first-child { border-left: 12px solid #7f0a1f; }
 .small { font-size: 0.85em; color: #333333; }
+.design { font-style: italic; }
 figure { margin: 1em 0; }
 figure img { max-width: 100%; height: auto; border: 1px solid #c8c8c8; background: #ffffff; }
 figcaption { font-size: 0.9em; color: #333333; max-width: 70em; }
 ul.problems { margin: 0; padding-left: 1.1em; }
 /* The alert and data-quality columns carry sentences: give them room to read. */
-table.overview td:nth-last-child(-n+2) { min-width: 16em; }
-table.overview img { max-width: 200px; height: auto; }
+table.overview td:nth-last-child(-n+2) { min-width: 13em; max-width: 22em; }
+table.overview img { width: 150px; height: auto; }
+@media print { .frame { overflow: visible; } }
 """
 
 _CSP = "default-src 'none'; img-src 'self' data:; style-src 'unsafe-inline'"
@@ -926,13 +1040,12 @@ def _trend_images(section: SectionStatus, out: Path, now: datetime, images: list
 
     found = {}
     for label, span, tag in (("24 h", SHORT_WINDOW, "24h"), ("7 days", LONG_WINDOW, "7d")):
-        inside = [a for a in section.history
-                  if a.time >= now - span and a.fos is not None and math.isfinite(a.fos)]
+        inside, _, breaks = fos_series([a for a in section.history if a.time >= now - span])
         if len(inside) < 2:
             continue
         path = out / "img" / f"{_image_stem(section.id)}-trend-{tag}.png"
         plot_fos_trend([a.time for a in inside], np.array([a.fos for a in inside]), path,
-                       window_label=f"last {label}", levels=section.fos_levels)
+                       window_label=f"last {label}", levels=section.fos_levels, breaks=breaks)
         images.append(path)
         found[label] = path
     return found
@@ -977,10 +1090,13 @@ def draw_section_figure(workspace, store, section: SectionStatus, assessment, pa
     if assessment is not None and assessment.fos is not None:
         title += (f": factor of safety {assessment.fos:.2f} ({assessment.method}) at "
                   f"{_when(assessment.time)}")
+        if assessment.on_design_lines:
+            title += "\non the DESIGN water lines: no live readings"
+    piezometers = _piezometers_drawn(store, section, assessment)
     try:
         plot_section(
             drawing.with_water_lines(lines) if lines else drawing, path, surface=critical,
-            title=title, alternatives=alternatives[:3],
+            title=title, alternatives=alternatives[:3], piezometers=piezometers,
             line_label=f"Water line '{{name}}' {line_word}" if lines else "Design water line '{name}'",
             other_lines=other_lines,
             other_label=(f"Water line '{{name}}' at FoS {other.fos:.2f} "
@@ -1001,7 +1117,26 @@ def draw_section_figure(workspace, store, section: SectionStatus, assessment, pa
     if other_lines:
         caption.append(f"Light blue with triangles: water lines at the lowest factor of safety "
                        f"({other.fos:.2f} at {_when(other.time)}).")
+    if piezometers:
+        caption.append("Piezometers: black line from collar to tip (filled square); open blue "
+                       "triangle: head of the reading the water lines were drawn through.")
+    if drawing.surcharges:
+        caption.append("Brown arrows: surcharges, with their pressure.")
     return path, " ".join(caption)
+
+
+def _piezometers_drawn(store, section: SectionStatus, assessment) -> list[dict]:
+    """The section's piezometers with the head of the reading each water line of
+    ``assessment`` was drawn through (None when it used none of that instrument)."""
+    heads = {}
+    if assessment is not None:
+        for line in _Reader(store).water_lines(assessment.id):
+            for reading in line.get("readings") or []:
+                instrument = reading.get("instrument_id", reading.get("instrument"))
+                if instrument is not None and reading.get("head_m") is not None:
+                    heads[instrument] = float(reading["head_m"])
+    return [dict(item, head_m=heads.get(item["id"])) for item in section.instruments
+            if item["kind"] == "piezometer"]
 
 
 def _same_line(a: np.ndarray, b: np.ndarray | None, tolerance: float = 0.01) -> bool:
@@ -1012,27 +1147,50 @@ def _same_line(a: np.ndarray, b: np.ndarray | None, tolerance: float = 0.01) -> 
     return bool(np.all(np.abs(np.interp(x, *a.T) - np.interp(x, *b.T)) <= tolerance))
 
 
+def fos_series(history: list[AssessmentRecord]):
+    """(results on live readings, results on the design water lines, breaks) of assessments
+    in time order: ``breaks[i]`` is True when an assessment that is not on live readings lies
+    between the i-th and the next result on live readings, where the series must stop."""
+    usable, design, breaks = [], [], []
+    between = False
+    for a in history:
+        if a.usable:
+            if usable:
+                breaks.append(between)
+            usable.append(a)
+            between = False
+        else:
+            between = True
+            if a.on_design_lines:
+                design.append(a)
+    return usable, design, breaks
+
+
 def draw_fos_figure(store, section: SectionStatus, history, start: datetime, end: datetime,
                     path: Path, *, events: dict | None = None) -> tuple[Path | None, str]:
     """Factor of safety of ``history`` with the trigger levels and daily rain, to ``path``."""
     from watch.plots import plot_fos_history
 
-    assessed = [a for a in history if a.fos is not None and math.isfinite(a.fos)]
-    if not assessed:
+    assessed, design, breaks = fos_series(history)
+    if not assessed and not design:
         return None, "No factor of safety stored in the period yet."
+    first = min(a.time for a in assessed + design)
     # Rain over the span of the assessments (and the day before the first), not the window.
-    rain = _Reader(store).daily_rain(section.gauge_id, max(start, assessed[0].time - timedelta(days=1)),
-                                     end)
+    rain = _Reader(store).daily_rain(section.gauge_id, max(start, first - timedelta(days=1)), end)
     plot_fos_history(
         section.id, [a.time for a in assessed], np.array([a.fos for a in assessed]), path,
-        method=assessed[-1].method, rain_times=rain.index, rain_mm=rain.values,
+        method=(assessed or design)[-1].method, rain_times=rain.index, rain_mm=rain.values,
         rain_label=f"Rain {section.gauge_id}\n[mm/day]" if section.gauge_id else "Rain\n[mm/day]",
-        levels=section.fos_levels, events=events,
+        levels=section.fos_levels, events=events, breaks=breaks,
+        design_times=[a.time for a in design], design_fos=[a.fos for a in design],
     )
-    return path, (f"Factor of safety of {len(assessed)} assessments"
-                  + (", trigger levels as horizontal lines" if section.fos_levels else
+    return path, (f"Factor of safety of {len(assessed)} assessments on live readings (black line; "
+                  "it stops where readings stopped)"
+                  + (f"; {len(design)} on the design water lines because no live reading was "
+                     "there (hollow grey squares: not a result of the readings)" if design else "")
+                  + ("; trigger levels as dashed lines in orange-red" if section.fos_levels else
                      " (no trigger levels on the factor of safety configured)")
-                  + (f", daily rain at gauge {section.gauge_id}." if len(rain) else
+                  + (f"; daily rain at gauge {section.gauge_id}." if len(rain) else
                      "; no rain stored for the section's gauge."))
 
 
@@ -1052,9 +1210,10 @@ def draw_heads_figure(store, section: SectionStatus, start: datetime, end: datet
         return None, "No piezometer readings of the section in the period."
     plot_heads(f"Section {section.id}: piezometric heads (readings of quality 'ok')", series,
                path, levels=section.head_levels)
-    return path, ("Piezometric head of each piezometer of the section"
-                  + (", with the trigger levels on head." if section.head_levels else
-                     " (no trigger levels on head configured)."))
+    return path, ("Piezometric head of each piezometer of the section (solid lines; a line stops "
+                  "where the readings stopped)"
+                  + ("; trigger levels on head as dashed lines in orange-red." if section.head_levels
+                     else " (no trigger levels on head configured)."))
 
 
 def plot_figure(workspace, kind: str, section_id: str, start: datetime, end: datetime,
@@ -1083,7 +1242,7 @@ def plot_figure(workspace, kind: str, section_id: str, start: datetime, end: dat
             raise UserError(f"section {section_id!r} is not in site.toml or the store (known: {known})")
         history = _Reader(store).assessments(section_id, start, end)
         if kind == "section":
-            assessed = [a for a in history if a.fos is not None]
+            assessed = [a for a in history if a.usable]
             worst = min(assessed, key=lambda a: a.fos) if assessed else None
             latest = history[-1] if history else None
             path, why = draw_section_figure(workspace, store, section, worst or latest, out,
@@ -1193,7 +1352,16 @@ def _when(moment: datetime | None, zone: str | None = None) -> str:
 
 
 def _badge(level: Level) -> str:
-    return f'<span class="badge {level.css}">{escape(level.word)}</span>'
+    return (f'<span class="badge {level.css}"><span class="cue" aria-hidden="true">{escape(level.cue)}'
+            f'</span>{escape(level.word)}</span>')
+
+
+def _expectation(level: Level, wide: bool = False) -> str:
+    """What is expected of the reader at this level, beside its badge."""
+    if not level.expectation:
+        return ""
+    return (f'<div class="expect{" expect-wide" if wide else ""}"><strong>Expected:</strong> '
+            f"{escape(level.expectation)}</div>")
 
 
 def _fos_text(value: float | None) -> str:
@@ -1234,20 +1402,15 @@ def _overview_page(status: SiteStatus, trends: dict) -> str:
         f"{n} {word}" for word, n in counts.items())) + ".</p>")
     rows = []
     for s in sections:
-        latest = s.latest
-        if latest is None:
-            fos_cell = "not assessed"
-        else:
-            fos_cell = (f"<strong>{_fos_text(latest.fos)}</strong> {escape(latest.method)}"
-                        f"<br><span class=\"small\">{escape(_when(latest.time))}"
-                        + ("" if latest.converged else "; did not converge") + "</span>")
+        fos_cell = _fos_cell(s)
         trend_cells = []
         for label in ("24 h", "7 days"):
             image = trends.get(s.id, {}).get(label)
             cell = (f"<img src=\"img/{escape(image.name)}\" width=\"308\" height=\"126\" "
                     f"alt=\"{escape(f'Factor of safety of section {s.id} over the last {label}')}\">"
                     "<br>" if image else "")
-            trend_cells.append(cell + f"<span class=\"small\">{escape(_signed(s.fos_change[label]))}</span>")
+            trend_cells.append(cell + f"<span class=\"small\">{escape(label)}: "
+                               f"{escape(_signed(s.fos_change[label]))}</span>")
         rain = " / ".join("no data" if s.rain_mm[k] is None else f"{s.rain_mm[k]:.1f}"
                           for k in ("24 h", "7 days"))
         gauge = f"<br><span class=\"small\">gauge {escape(s.gauge_id)}</span>" if s.gauge_id else ""
@@ -1261,7 +1424,7 @@ def _overview_page(status: SiteStatus, trends: dict) -> str:
                         if a.get("shelved_until_utc") else "")
                      for a in s.open_alerts]
         attention += [f"inspection {escape(i.get('status'))}: {escape(i.get('reason'))}"
-                      + (f" &ndash; due {escape(i['due_utc'])}" if i.get("due_utc") else "")
+                      + (f" &ndash; due {escape(_when(_time(i['due_utc'])))}" if i.get("due_utc") else "")
                       + (" <strong>OVERDUE</strong>" if _overdue(i, status.now) else "")
                       for i in s.open_inspections]
         rows.append(
@@ -1270,19 +1433,52 @@ def _overview_page(status: SiteStatus, trends: dict) -> str:
             f"<br><span class=\"small\">{escape(s.name)}</span></td>"
             f"<td>{_badge(s.level)}"
             + (f"<br><span class=\"small\">{escape(s.level.detail)}</span>" if s.level.detail else "")
-            + f"</td><td>{fos_cell}</td><td>{trend_cells[0]}</td><td>{trend_cells[1]}</td>"
+            + _expectation(s.level) + f"</td><td>{fos_cell}</td><td>{'<br>'.join(trend_cells)}</td>"
             f"<td class=\"num\">{escape(rain)}{gauge}</td><td>{age}</td>"
             f"<td>{_list(attention, 'none')}</td>"
             f"<td>{_list([escape(p) for p in s.data_problems], 'none')}</td></tr>"
         )
     parts.append(
-        "<table class=\"overview\"><thead><tr><th>Section</th><th>Level</th><th>Factor of safety [-]</th>"
-        "<th>Trend, last 24 h</th><th>Trend, last 7 days</th><th>Rain 24 h / 7 days [mm]</th>"
+        "<div class=\"frame\"><table class=\"overview\"><thead><tr><th>Section</th><th>Level</th><th>Factor of safety [-]</th>"
+        "<th>Trend of the factor of safety, last 24 h and 7 days</th><th>Rain 24 h / 7 days [mm]</th>"
         "<th>Newest reading (age)</th><th>Open alerts and inspections</th>"
         "<th>Data-quality problems</th></tr></thead><tbody>" + "\n".join(rows)
-        + "</tbody></table>"
+        + "</tbody></table></div>"
     )
+    parts.append(_levels_key(status.levels))
     return _page("Status board", heading, "\n".join(parts), status, False)
+
+
+def _levels_key(levels: list[Level]) -> str:
+    """The levels, lowest first, each with its badge and what it expects of the reader."""
+    if not levels:
+        return ""
+    rows = "".join(f"<tr class=\"row-{level.css}\"><td>{_badge(level)}</td><td>{escape(level.expectation)}</td></tr>"
+                   for level in levels)
+    return ("<h2>The levels and what each expects</h2>"
+            f"<table class=\"levels\"><thead><tr><th>Level</th><th>Expected of the duty engineer</th>"
+            f"</tr></thead><tbody>{rows}</tbody></table>")
+
+
+def _fos_cell(s: SectionStatus) -> str:
+    """The overview's factor of safety: the latest one on live readings; a newer one on the
+    design water lines is said to be so, and a failed calculation is said to have failed."""
+    latest = s.latest
+    if latest is None:
+        return "not assessed"
+    usable = [a for a in s.history if a.usable]
+    shown = usable[-1] if usable else None
+    parts = []
+    if shown is not None:
+        parts.append(f"<strong>{_fos_text(shown.fos)}</strong> {escape(shown.method)}"
+                     f"<br><span class=\"small\">{escape(_when(shown.time))}</span>")
+    if latest is not shown:
+        words = ("on the design water lines: no live readings" if latest.on_design_lines
+                 else assessment_status.status_words(latest.status))
+        value = f"{_fos_text(latest.fos)} " if latest.on_design_lines else ""
+        parts.append(f"<span class=\"small design\">latest, {escape(f'{latest.time:%Y-%m-%d %H:%M}')}:"
+                     f" {value}{escape(words)}</span>")
+    return "<br>".join(parts)
 
 
 def _overdue(inspection: dict, now: datetime) -> bool:
@@ -1320,14 +1516,21 @@ def _figure(figure: tuple[Path | None, str], alt: str) -> str:
 
 def _section_page(status: SiteStatus, s: SectionStatus, figures: dict) -> str:
     parts = [f"<p>{_badge(s.level)} "
-             + (escape(s.level.detail) if s.level.detail else "") + "</p>"]
+             + (escape(s.level.detail) if s.level.detail else "") + "</p>"
+             + _expectation(s.level, wide=True)]
     if s.latest is None:
         parts.append("<p class=\"empty\">No assessment of this section is stored in the season "
                      "yet.</p>")
     else:
         a = s.latest
-        text = (f"Factor of safety {_fos_text(a.fos)} by {a.method} at {_when(a.time)}"
-                + (", converged." if a.converged else f", did NOT converge: {a.message}."))
+        if a.on_design_lines:
+            text = (f"Factor of safety {_fos_text(a.fos)} by {a.method} at {_when(a.time)}, on the "
+                    "DESIGN water lines: no live readings, so it is not a result of the readings "
+                    "(left out of trends and changes).")
+        else:
+            text = (f"Factor of safety {_fos_text(a.fos)} by {a.method} at {_when(a.time)}, "
+                    + assessment_status.status_words(a.status)
+                    + ("." if a.usable or not a.message else f": {a.message}."))
         parts.append(f"<p><strong>{escape(text)}</strong></p>")
         if s.worst is not None:
             parts.append(f"<p>{escape(f'Lowest in the season: {s.worst.fos:.2f} ({s.worst.method}) at {_when(s.worst.time)}.')}</p>")
@@ -1354,10 +1557,12 @@ def _section_page(status: SiteStatus, s: SectionStatus, figures: dict) -> str:
     parts.append(_figure(figures["heads"], f"Piezometric heads of section {s.id}"))
     parts.append("<h2>Instruments and data quality</h2>")
     parts.append(_table(
-        ["Instrument", "Kind", "Newest reading", "Age", "Stale after [h]"],
-        [[i["id"], i["kind"].replace("_", " "), _when(i["newest"]),
-          "" if i["newest"] is None else _age(status.now - i["newest"]), f"{i['max_age_hours']:g}"]
-         for i in s.instruments], numeric={4},
+        ["Instrument", "Kind", "Latest value", "Quality", "Time of latest reading", "Age",
+         "Stale after [h]"],
+        [[i["id"], i["kind"].replace("_", " "), _latest_value(i), i["newest_quality"] or "",
+          _when(i["newest"]), "no readings" if i["newest"] is None else _age(status.now - i["newest"]),
+          f"{i['max_age_hours']:g}"]
+         for i in s.instruments], numeric={2, 6},
     ) if s.instruments else "<p>No instruments configured for this section.</p>")
     parts.append(_list([escape(p) for p in s.data_problems], "No data-quality problems."))
     parts.append(_parameters_html(s))
@@ -1369,10 +1574,10 @@ def _section_page(status: SiteStatus, s: SectionStatus, figures: dict) -> str:
             parts.append(f"<p>The newest {HISTORY_ROWS} of {len(s.history)} assessments in the "
                          "season.</p>")
         parts.append(_table(
-            ["Time (UTC)", "Factor of safety [-]", "Method", "Converged", "Evaluation / message",
+            ["Time (UTC)", "Factor of safety [-]", "Method", "Result", "Evaluation / message",
              "Parameter version id"],
-            [[a.time.strftime("%Y-%m-%d %H:%M"), _fos_plain(a.fos), a.method,
-              "yes" if a.converged else "no",
+            [[a.time.strftime("%Y-%m-%d %H:%M"), _fos_text(a.fos).replace("&ndash;", "-"), a.method,
+              assessment_status.status_words(a.status),
               "; ".join(str(x) for x in (a.extra.get("evaluation"), a.message) if x),
               "" if a.section_version_id is None else a.section_version_id] for a in shown],
             numeric={1},
@@ -1383,8 +1588,14 @@ def _section_page(status: SiteStatus, s: SectionStatus, figures: dict) -> str:
     return _page(f"Section {s.id}", heading, "\n".join(parts), status, True)
 
 
-def _fos_plain(value: float | None) -> str:
-    return "-" if value is None else f"{value:.3f}"
+def _latest_value(item: dict) -> str:
+    """The newest reading of an instrument with its unit: a head [m] to the centimetre, rain
+    [mm] to the tenth."""
+    value = item.get("newest_value")
+    if value is None:
+        return "none" if item.get("newest") is None else "no value (see quality)"
+    digits = 1 if item.get("unit") == "mm" else 2
+    return f"{item['quantity']} {float(value):.{digits}f} {item['unit']}"
 
 
 def _parameters_html(s: SectionStatus) -> str:

@@ -47,6 +47,7 @@ from solver.search import (
 from solver.slicing import slice_surface
 from watch.alerting import SectionContext, last_evaluations, process_section_alerts, release_shelved
 from watch.analysis import analyse, surface_of
+from watch.assessment_status import ON_DESIGN_LINES
 from watch.clock import Clock, ManualClock
 from watch.config import SiteConfig
 from watch.errors import BusyError, UserError
@@ -513,7 +514,7 @@ def _take_result(calc: _Calculation, result: SectionResult | SectionFailure) -> 
     calc.warnings += result.warnings
     calc.new_search_json = result.new_search_json
     if calc.status == "ok" and not calc.live:
-        calc.status = "no live data"
+        calc.status = ON_DESIGN_LINES
         calc.message = ("a water line with piezometers fell back to its design line: the factor of "
                         "safety does not rest on readings")
 
@@ -662,7 +663,7 @@ def _observe(store: Store, rule: SectionRule, calc: _Calculation, context: Secti
     if quantity == "fos":
         return calc.fos if calc.status == "ok" else None
     if quantity == "failed":
-        if calc.status in ("unchanged", "no live data"):
+        if calc.status in ("unchanged", ON_DESIGN_LINES):
             return None
         return 0.0 if calc.status == "ok" else 1.0
     if quantity == "age_h":
