@@ -32,6 +32,7 @@ import pandas as pd
 from watch import assessment_status
 from watch.caution import CAUTION
 from watch.errors import UserError, WorkspaceError
+from watch.formatting import number_text
 from watch.store import parse_utc_text, utc_text
 from watch.triggers import DATA_LEVEL
 
@@ -354,12 +355,14 @@ def _level(open_alerts: list[dict], latest: AssessmentRecord | None,
 
 
 def _tier(rank: int, levels: dict[str, tuple[int, str]]) -> int | None:
-    """Place of an owner's level among the site's levels: 3 for the highest, 2 and 1 below
-    it (all lower levels share 1), so that the highest level always looks the gravest."""
+    """Place of an owner's level among the site's levels: 3 for the highest (it always looks
+    the gravest), 1 for the lowest below it, 2 for any between."""
     if not levels:
         return None
-    above = len({r for r, _ in levels.values() if r > rank})
-    return max(1, 3 - above)
+    ranks = {r for r, _ in levels.values()}
+    if rank >= max(ranks):
+        return 3
+    return min(2, 1 + len({r for r in ranks if r < rank}))
 
 
 def site_levels(config) -> list[Level]:
@@ -1610,10 +1613,11 @@ def _parameters_html(s: SectionStatus) -> str:
     for m in params.get("material", []) if isinstance(params, dict) else []:
         drained = m.get("model", "drained") == "drained"
         rows.append([
-            m.get("name"), m.get("model", "drained"), _num(m.get("unit_weight")),
-            _num(m.get("unit_weight_saturated", m.get("unit_weight"))),
-            _num(m.get("cohesion")) if drained else "", _num(m.get("friction_angle")) if drained else "",
-            "" if drained else _num(m.get("undrained_strength")),
+            m.get("name"), m.get("model", "drained"), _num(m.get("unit_weight"), "unit_weight"),
+            _num(m.get("unit_weight_saturated", m.get("unit_weight")), "unit_weight"),
+            _num(m.get("cohesion"), "cohesion") if drained else "",
+            _num(m.get("friction_angle"), "friction_angle") if drained else "",
+            "" if drained else _num(m.get("undrained_strength"), "undrained_strength"),
             m.get("water", "") if m.get("ru") is None else f"ru = {m.get('ru')}",
         ])
     table = _table(["Material", "Model", "Unit weight [kN/m3]", "Saturated [kN/m3]", "c' [kPa]",
@@ -1621,8 +1625,8 @@ def _parameters_html(s: SectionStatus) -> str:
     return f"<h2>Parameters in use</h2><p>{head}</p>{table}"
 
 
-def _num(value) -> str:
-    return "" if value is None else f"{float(value):g}"
+def _num(value, quantity: str) -> str:
+    return "" if value is None else number_text(float(value), quantity)
 
 
 def _back_analyses_html(s: SectionStatus) -> str:
@@ -1651,14 +1655,15 @@ def _back_analyses_html(s: SectionStatus) -> str:
 
 
 def compact(value) -> str:
-    """A stored JSON value in one line people can read: numbers to 4 significant figures."""
+    """A stored JSON value in one line people can read: numbers with the digits of their
+    quantity (:mod:`watch.formatting`), else to 4 significant figures."""
     if value is None:
         return ""
     if isinstance(value, float):
-        return f"{value:.4g}"
+        return number_text(value)
     if isinstance(value, dict):
-        return ", ".join(f"{k} = {compact(v)}" for k, v in value.items()
-                         if not isinstance(v, (dict, list)))
+        return ", ".join(f"{k} = {number_text(v, k) if isinstance(v, float) else compact(v)}"
+                         for k, v in value.items() if v is not None and not isinstance(v, (dict, list)))
     if isinstance(value, list):
         return ", ".join(compact(v) for v in value[:8]) + (" ..." if len(value) > 8 else "")
     return str(value)

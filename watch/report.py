@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import math
 import tempfile
+from collections import Counter
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
@@ -44,7 +45,9 @@ from watch.board import (
     section_of,
     water_lines_of,
 )
+from watch import assessment_status
 from watch.caution import CAUTION
+from watch.formatting import number_text, short_time
 from watch.errors import UserError
 from watch.store import utc_text
 
@@ -188,7 +191,9 @@ class _Content:
     def gather(cls, workspace, store, site, section, start, end) -> _Content:
         reader = _Reader(store)
         history = reader.assessments(section.id, start, end)
-        assessed = [a for a in history if a.fos is not None and math.isfinite(a.fos)]
+        # The lowest factor of safety on live readings: one on the design water lines is not
+        # the slope's state and is reported only when the period holds nothing else.
+        assessed = [a for a in history if a.usable]
         reported = min(assessed, key=lambda a: a.fos) if assessed else (history[-1] if history else None)
         drawing, drawing_source = section_of(workspace, store, section, reported)
         water_points, water_source = water_lines_of(store, drawing, reported)
@@ -276,17 +281,41 @@ def _slice_table(slices, result, section) -> list[list[str]]:
 
 
 def _columns(headers: list[str], rows: list[list], width: int | None = None) -> list[str]:
-    """Monospaced table lines; long cells are cut to keep the table inside the page."""
+    """Monospaced table lines that fit the page without cutting a value: when the natural
+    widths do not fit, the widest columns are narrowed (never below their longest word) and
+    their cells wrap onto continuation lines. Stored UTC times are shown as
+    "YYYY-MM-DD HH:MM" (the headings say UTC)."""
+    import textwrap
+
     width = width or _characters(_TEXT_SIZE) - 2  # tables are indented by two spaces
-    cells = [[str("" if c is None else c) for c in row] for row in rows]
+    cells = [[_cell_text(c) for c in row] for row in rows]
     widths = [max([len(h)] + [len(r[i]) for r in cells]) for i, h in enumerate(headers)]
-    while sum(widths) + 2 * len(widths) > width and max(widths) > 6:
-        widths[widths.index(max(widths))] -= 1
+    floors = [max([len(w) for h in [headers[i]] for w in h.split()]
+                  + [len(w) for r in cells for w in r[i].split()] + [1])
+              for i in range(len(headers))]
+    while sum(widths) + 2 * (len(widths) - 1) > width:
+        narrowable = [i for i in range(len(widths)) if widths[i] > floors[i]]
+        if not narrowable:
+            break  # even the longest words do not fit: the page's wrap takes over
+        widest = max(narrowable, key=lambda i: widths[i])
+        widths[widest] -= 1
 
-    def line(values):
-        return "  ".join(v[:w].ljust(w) for v, w in zip(values, widths)).rstrip()
+    def lines(values):
+        wrapped = [textwrap.wrap(v, w, break_long_words=False, break_on_hyphens=False) or [""]
+                   for v, w in zip(values, widths)]
+        return ["  ".join((parts[k] if k < len(parts) else "").ljust(w)
+                          for parts, w in zip(wrapped, widths)).rstrip()
+                for k in range(max(len(parts) for parts in wrapped))]
 
-    return [line(headers), line(["-" * w for w in widths])] + [line(r) for r in cells]
+    return lines(headers) + ["  ".join("-" * w for w in widths)] + [l for r in cells for l in lines(r)]
+
+
+def _cell_text(value) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return number_text(value)
+    return short_time(str(value))
 
 
 def _inputs_lines(c: _Content) -> list[str]:
@@ -300,25 +329,31 @@ def _inputs_lines(c: _Content) -> list[str]:
         "",
         "Assessments in the period",
     ]
-    assessed = [a for a in c.history if a.fos is not None]
+    assessed = [a for a in c.history if a.usable]
     if not c.history:
         lines.append("  none stored")
     else:
+        design = [a for a in c.history if a.on_design_lines]
+        others = Counter(assessment_status.status_words(a.status) for a in c.history
+                         if not a.usable and not a.on_design_lines)
         lines += [
-            f"  {len(c.history)} assessments, {len(assessed)} with a factor of safety, "
-            f"{sum(not a.converged for a in c.history)} not converged",
+            f"  {len(c.history)} assessments: {len(assessed)} on live readings, {len(design)} on the "
+            "design water lines (no live readings; left out of the figures below)"
+            + "".join(f", {n} {words}" for words, n in others.items()),
             f"  first {_when(c.history[0].time)}, last {_when(c.history[-1].time)}",
         ]
         if assessed:
             fos = [a.fos for a in assessed]
-            lines.append(f"  factor of safety: lowest {min(fos):.3f}, highest {max(fos):.3f}, "
-                         f"last {assessed[-1].fos:.3f} ({assessed[-1].method})")
+            lines.append(f"  factor of safety on live readings: lowest {min(fos):.2f}, highest "
+                         f"{max(fos):.2f}, last {assessed[-1].fos:.2f} ({assessed[-1].method})")
+        for a in design:
+            lines.append(f"  on the design water lines at {_when(a.time)}: {_fos2(a.fos)} "
+                         "(not a result of the readings)")
     if c.reported is not None:
         r = c.reported
-        lines += ["", "Reported assessment (lowest factor of safety in the period)",
-                  f"  id {r.id} at {_when(r.time)}: factor of safety "
-                  + ("n/a" if r.fos is None else f"{r.fos:.3f}") + f" by {r.method}, "
-                  + ("converged" if r.converged else f"NOT converged: {r.message}")]
+        lines += ["", "Reported assessment (lowest factor of safety on live readings in the period)",
+                  f"  id {r.id} at {_when(r.time)}: factor of safety {_fos2(r.fos)} by {r.method}, "
+                  + _result_words(r)]
     reader = _Reader(c.store)
     rows = []
     for item in s.instruments:
@@ -364,23 +399,25 @@ def _parameters_lines(c: _Content) -> list[str]:
     lines.append(f"Section drawn and re-analysed from: {c.drawing_source}")
     if version is not None:
         lines += [f"Parameter version {version['version']} (id {version['id']}), recorded "
-                  f"{version['created_utc']}", f"  provenance: {version['provenance']}",
+                  f"{short_time(version['created_utc'])} UTC", f"  provenance: {version['provenance']}",
                   f"  checksum: {version['checksum']}"]
     lines += ["", "Parameter versions used by the assessments of the period: "
               + (", ".join(str(v) for v in used) if used else "none recorded")]
     for version_id in used:
         v = reader.section_version(version_id)
         if v is not None:
-            lines.append(f"  id {v['id']}: version {v['version']}, {v['created_utc']}, {v['provenance']}")
+            lines.append(f"  id {v['id']}: version {v['version']}, {short_time(v['created_utc'])} UTC, "
+                         f"{v['provenance']}")
     if c.drawing is not None:
         rows = []
         for m in c.drawing.materials:
             drained = m.model == "drained"
-            rows.append([m.name, m.model, f"{m.unit_weight:g}", f"{m.unit_weight_saturated:g}",
-                         f"{m.cohesion:g}" if drained else "-",
-                         f"{m.friction_angle:g}" if drained else "-",
-                         "-" if drained else f"{m.undrained_strength:g}",
-                         m.water if m.ru is None else f"ru = {m.ru:g}"])
+            rows.append([m.name, m.model, number_text(m.unit_weight, "unit_weight"),
+                         number_text(m.unit_weight_saturated, "unit_weight"),
+                         number_text(m.cohesion, "cohesion") if drained else "-",
+                         number_text(m.friction_angle, "friction_angle") if drained else "-",
+                         "-" if drained else number_text(m.undrained_strength, "undrained_strength"),
+                         m.water if m.ru is None else f"ru = {number_text(m.ru, 'ru')}"])
         lines += ["", "Materials"] + ["  " + l for l in _columns(
             ["Material", "Model", "gamma [kN/m3]", "gamma_sat [kN/m3]", "c' [kPa]", "phi' [deg]",
              "Su [kPa]", "Water"], rows)]
@@ -411,7 +448,7 @@ def _water_lines(c: _Content) -> list[str]:
     for row in c.water_lines:
         fallback = (f" - FALLBACK to {row.get('fallback')}: "
                     + (row.get("fallback_reason") or "no reason stored")) if _fell_back(row) else ""
-        lines.append(f"Line '{row['line_name']}' at {row.get('time_utc', '')}, source "
+        lines.append(f"Line '{row['line_name']}' at {short_time(row.get('time_utc'))} UTC, source "
                      f"{row.get('source', '')}{fallback}")
         points = row.get("points") or []
         lines.append("  points (x, y) [m]: " + ", ".join(
@@ -421,7 +458,7 @@ def _water_lines(c: _Content) -> list[str]:
             lines += ["  " + l for l in _columns(
                 ["Instrument", "Time (UTC)", "Head [m]", "Source file id", "Line"],
                 [[r.get("instrument_id", r.get("instrument")), r.get("time_utc"),
-                  "" if r.get("head_m") is None else f"{r['head_m']:.3f}",
+                  number_text(r.get("head_m"), "head_m"),
                   r.get("source_file_id"), r.get("source_line")] for r in readings])]
     if c.reported is None:
         lines = ["No assessment in the period."]
@@ -434,8 +471,7 @@ def _methods_lines(c: _Content) -> list[str]:
         return ["No assessment in the period."]
     surface, _ = critical_and_alternatives(r)
     lines = [f"Assessment id {r.id} at {_when(r.time)}; governing method {r.method}.",
-             "Stored factor of safety: " + ("n/a" if r.fos is None else f"{r.fos:.3f}")
-             + ("" if r.converged else f" (not converged: {r.message})"), ""]
+             f"Stored factor of safety: {_fos2(r.fos)}, {_result_words(r)}", ""]
     if surface is not None:
         if hasattr(surface, "radius"):
             lines.append(f"Critical surface: circle, centre ({surface.centre_x:.2f}, "
@@ -455,8 +491,8 @@ def _methods_lines(c: _Content) -> list[str]:
                 notes.append(f"[{len(notes) + 1}] {name}: {message}")
             rows.append([
                 name + (" (governing)" if name == r.method else ""),
-                _fos3(kept.get("fos")) if kept else "not stored",
-                _fos3(again.get("fos")) if again else "not re-run",
+                _fos2(kept.get("fos")) if kept else "not stored",
+                _fos2(again.get("fos")) if again else "not re-run",
                 _yes(again.get("converged", kept.get("converged"))),
                 _yes(again.get("admissible", kept.get("admissible"))),
                 again.get("iterations", kept.get("iterations", "")),
@@ -468,7 +504,7 @@ def _methods_lines(c: _Content) -> list[str]:
             lines += ["", "Notes of the methods:"] + notes
         if c.governing is not None and c.governing["fos"] is not None and r.fos is not None:
             difference = c.governing["fos"] - r.fos
-            lines += ["", f"Re-run governing method minus stored value: {difference:+.4f}"
+            lines += ["", f"Re-run governing method minus stored value: {difference:+.3f}"
                       + ("" if abs(difference) <= 0.005 else
                          "  - DIFFERS: the stored inputs do not reproduce the stored result; "
                          "check the parameter version and water lines")]
@@ -487,8 +523,16 @@ def _json_list(text) -> list[dict]:
     return [v for v in value if isinstance(v, dict)] if isinstance(value, list) else []
 
 
-def _fos3(value) -> str:
-    return "n/a" if value is None or not math.isfinite(float(value)) else f"{float(value):.3f}"
+def _fos2(value) -> str:
+    return "n/a" if value is None or not math.isfinite(float(value)) else number_text(float(value), "fos")
+
+
+def _result_words(assessment: AssessmentRecord) -> str:
+    """How the stored factor of safety was obtained, in words (never "not converged" for a
+    result on the design water lines)."""
+    words = assessment_status.status_words(assessment.status)
+    return words + ("." if assessment.usable or assessment.on_design_lines or not assessment.message
+                    else f": {assessment.message}.")
 
 
 def _yes(value) -> str:

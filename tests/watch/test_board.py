@@ -46,8 +46,10 @@ def test_overview_lists_every_section_worst_first_with_its_level_in_words(filled
     rows = re.findall(r'<tr class="row-[^"]+"><td><a href="([^"]+)">([^<]+)</a>', index)
     # S-1 has the firing "watch" alert; S-2 has no assessment: worst first.
     assert [name for _, name in rows] == ["S-1", "S-2"]
-    assert re.search(r'class="badge lv-1">watch</span>', index)
-    assert re.search(r'class="badge lv-none">not assessed</span>', index)
+    # The level is written out after its severity cue (one triangle for the lowest level).
+    assert re.search(r'class="badge lv-1"><span class="cue" aria-hidden="true">\u25b2</span>watch</span>', index)
+    assert re.search(r'class="badge lv-none"><span class="cue" aria-hidden="true">\?</span>not assessed</span>',
+                     index)
     for href, _ in rows:
         assert (result.out / href).is_file()
 
