@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 
@@ -22,6 +23,7 @@ from watch.alerts import (
     AlertState,
     AlertView,
     Announcement,
+    Direction,
     Transition,
     announcements,
     evaluate,
@@ -33,7 +35,8 @@ from watch.config import SiteConfig
 from watch.errors import UserError
 from watch.inspections import open_request
 from watch.store import Store, parse_utc_text, utc_text
-from watch.triggers import SITE_ALERTS, AlertSettings, SectionRule, alert_settings, section_gauge
+from watch.triggers import (NEVER_REPORTED_AGE_H, SITE_ALERTS, AlertSettings, SectionRule, alert_settings,
+                            section_gauge)
 from watch.workspace import Workspace
 
 __all__ = [
@@ -47,6 +50,8 @@ __all__ = [
     "acknowledge",
     "shelve",
     "record_of",
+    "value_text",
+    "happening",
 ]
 
 #: Longest a person may shelve an alert for. Shelving is for a known nuisance (an instrument
@@ -201,7 +206,8 @@ def process_section_alerts(
                 "value": t.value, "assessment_id": context.assessment_id, "created_utc": utc_text(now),
             })  # fmt: skip
             outcome.changes.append(f"{name}: {t.old.value} -> {t.new.value}"
-                                   + (f" at {t.value:.3g}" if t.value is not None else ""))  # fmt: skip
+                                   + (f" at {value_text(t.value, rule.rule.quantity)}"
+                                      if t.value is not None else ""))  # fmt: skip
         window = timedelta(hours=settings.cycle.chatter_window_hours)
         if is_chattering(record, window, settings.cycle.chatter_max_changes, now=at):
             count = sum(at - t <= window for t in record.changes)
@@ -227,17 +233,22 @@ def process_section_alerts(
 def _announce(store: Store, settings: AlertSettings, announcement: Announcement, rule_of: dict,
               views: dict, ids: dict, context: SectionContext, now: datetime,
               outcome: AlertOutcome) -> None:  # fmt: skip
-    """Queue one notification, mark what people now know, and open the inspection request."""
+    """Queue one notification for the announcement (every rule of its level that changed
+    alike in this cycle), mark what people now know, and open one inspection request."""
     t = announcement.transition
     rule = rule_of[t.rule_name]
     level = settings.level(rule.rule.level)
     standing = [rule_of[name] for name in announcement.also_told]
-    subject, body = _message(announcement.kind, rule, level, t, standing, context)
+    subject, body = _message(announcement, rule_of, level, standing, context)
     payload = {
         "kind": announcement.kind, "rule": t.rule_name, "rule_description": rule.description,
         "level": level.name, "rank": level.rank, "old_state": t.old.value, "new_state": t.new.value,
         "value": t.value, "episode": t.episode, "standing_levels": [r.rule.level for r in standing],
         "standing": [{"rule": name, "episode": views[name].episode} for name in announcement.also_told],
+        "rules": [{"rule": x.rule_name, "description": rule_of[x.rule_name].description,
+                   "value": x.value, "value_text": value_text(x.value, rule_of[x.rule_name].rule.quantity),
+                   "old_state": x.old.value, "new_state": x.new.value, "episode": x.episode}
+                  for x in announcement.transitions],
         "expectation": _expectation(announcement.kind, level, standing, settings),
         **context.facts(),
     }  # fmt: skip
@@ -248,19 +259,23 @@ def _announce(store: Store, settings: AlertSettings, announcement: Announcement,
         "payload_json": json.dumps(payload, default=_plain), "created_utc": utc_text(now),
     })  # fmt: skip
     outcome.notifications += queued is not None
-    if t.new is AlertState.FIRING:
-        store.update_alert(ids[t.rule_name], {"notified_episode": t.episode})
+    for x in announcement.transitions:
+        if x.new is AlertState.FIRING:
+            store.update_alert(ids[x.rule_name], {"notified_episode": x.episode})
     for name in announcement.also_told:
         store.update_alert(ids[name], {"notified_episode": views[name].episode})
     if t.new is AlertState.FIRING and level.inspection_due_hours is not None:
+        reasons = "; ".join(f"{rule_of[x.rule_name].description}: "
+                            f"{value_text(x.value, rule_of[x.rule_name].rule.quantity)}"
+                            for x in announcement.transitions)
         opened = open_request(store, context.section_id, ids[t.rule_name], t.rule_name, level,
-                              t.episode, now, f"{rule.description}: {_value(t.value, rule)}")  # fmt: skip
+                              t.episode, now, reasons)  # fmt: skip
         if opened is not None:
             outcome.inspections += 1
             due = now + timedelta(hours=level.inspection_due_hours)
             lines = [f"Inspection request #{opened} for {context.section_id} "
                      f"({context.section_name}), level {level.name}: due by {_when(due)}.",
-                     f"Reason: {rule.description} ({_value(t.value, rule)}).",
+                     f"Reason: {reasons}.",
                      "Look at:"] + [f"  - {item}" for item in level.checklist] + [
                      f"Close it with `slipwatch inspections close {opened} --note ... --by ...`.",
                      CAUTION]  # fmt: skip
@@ -281,28 +296,41 @@ def _announce(store: Store, settings: AlertSettings, announcement: Announcement,
 # --- messages -------------------------------------------------------------------------------------
 
 
+#: Headlines say where the section stands, in words that hold whichever way the watched
+#: quantity moves (a factor of safety clears upwards, a head or rain total downwards).
 _HEADLINES = {
     "firing": "has reached level {level}",
     "escalated": "has escalated to level {level}",
-    "resolved": "is back below level {level} (resolved)",
+    "resolved": "is no longer at level {level} (resolved)",
     "data resolved": "has data again (data problem resolved)",
     "de-escalated": "has come down from level {level} to {standing}",
+    "level stands": "is still at level {level} (one rule resolved, another still fires)",
     "data": "has a data problem",
 }
 
 
-def _message(kind: str, rule: SectionRule, level, t: Transition, standing: list[SectionRule],
+def _message(announcement: Announcement, rule_of: dict, level, standing: list[SectionRule],
              context: SectionContext) -> tuple[str, str]:  # fmt: skip
+    kind, t = announcement.kind, announcement.transition
+    rule = rule_of[t.rule_name]
     name = context.section_id + (f" ({context.section_name})" if context.section_name else "")
-    standing_words = ", ".join(r.rule.level for r in standing) or "none"
+    standing_words = ", ".join(dict.fromkeys(r.rule.level for r in standing)) or "none"
     key = "data resolved" if kind == "resolved" and rule.kind == "data" else kind
+    if kind == "resolved" and standing and rule.kind == "level":
+        key = "level stands"  # this rule cleared, another of its level still fires
     headline = _HEADLINES[key].format(level=level.name.upper(), standing=standing_words.upper())
+    happened = [happening(rule_of[x.rule_name], x) for x in announcement.transitions]
+    # The subject names what fired (or cleared), whatever the factor of safety did.
     subject = (f"[slipwatch] {context.site_name or context.site_id}: {context.section_id} "
-               + headline.replace(" (resolved)", "").replace(" (data problem resolved)", "")
-               + _fos_tag(context))  # fmt: skip
+               + re.sub(r" \((resolved|data problem resolved|one rule resolved, another still fires)\)$", "",
+                        headline)
+               + ": " + "; ".join(happened))  # fmt: skip
     lines = [f"{name} on {context.site_name or context.site_id} {headline} at {_when(t.at)}."]
-    what = "cleared" if t.new is AlertState.RESOLVED else "triggered"
-    lines.append(f"Rule {t.rule_name} {what}: {rule.description}; value now {_value(t.value, rule)}.")
+    for x, words in zip(announcement.transitions, happened):
+        what = "cleared" if x.new is AlertState.RESOLVED else "triggered"
+        lines.append(f"Rule {x.rule_name} {what}: {words}.")
+    if key == "level stands":
+        lines.append(f"Still firing at level {level.name}: " + ", ".join(announcement.also_told) + ".")
     if context.section_id == SITE_ALERTS:
         lines.append(f"What failed: {context.message or 'nothing any more'}.")
     elif context.fos is not None:
@@ -330,28 +358,51 @@ def _message(kind: str, rule: SectionRule, level, t: Transition, standing: list[
 
 
 def _expectation(kind: str, level, standing: list, settings) -> str:
+    if kind == "resolved" and standing:  # one rule resolved, its level still stands
+        return "the level still stands: " + (level.expectation or "review the slope's readings and trend.")
     if kind == "resolved":
         return ("nothing more for this alert; close any inspection request still open once the "
                 "slope has been looked at.")
     if kind == "de-escalated":
         return ("follow the instructions of the level that still stands ("
-                + ", ".join(r.rule.level for r in standing) + ").")
+                + ", ".join(dict.fromkeys(r.rule.level for r in standing)) + ").")
     return level.expectation or "review the slope's readings and trend."
 
 
-def _fos_tag(context: SectionContext) -> str:
-    return f" (FoS {context.fos:.2f})" if context.fos is not None else ""
+def happening(rule: SectionRule, transition: Transition) -> str:
+    """What a rule's transition means, in words whose direction matches the quantity: a
+    factor of safety is "at or below" its trigger and "back above" its clear value; a head,
+    rise or rain total "at or above" and "back below"."""
+    quantity = rule.rule.quantity
+    if rule.kind == "data":
+        if transition.new is AlertState.RESOLVED:
+            return f"{rule.watched or rule.rule.name} back to normal"
+        return f"{rule.description} ({value_text(transition.value, quantity)})"
+    what = rule.watched or rule.description or rule.rule.name
+    value = value_text(transition.value, quantity)
+    below = rule.rule.direction is Direction.BELOW
+    if transition.new is AlertState.RESOLVED:
+        side = "back above" if below else "back below"
+        return f"{what} {value}, {side} its clear value {value_text(rule.rule.clear, quantity)}"
+    side = "at or below" if below else "at or above"
+    return f"{what} {value}, {side} the trigger {value_text(rule.rule.trigger, quantity)}"
 
 
-def _value(value, rule: SectionRule) -> str:
-    if value is None:
+#: Units and decimals of the watched quantities in messages (see watch.formatting).
+_UNITS = {"fos": "", "head_m": " m", "rise_m_per_h": " m/h", "rain_mm": " mm", "rain_id_ratio": ""}
+_DECIMALS = {"fos": 2, "head_m": 2, "rise_m_per_h": 3, "rain_mm": 1, "rain_id_ratio": 2}
+
+
+def value_text(value, quantity: str) -> str:
+    """A watched value as people read it, with its unit; the cycle's "never reported" age is
+    said in words, never as its sentinel number."""
+    if value is None or not math.isfinite(value):
         return "no value"
-    if rule.rule.quantity == "age_h":
-        return "never reported" if value >= 1e5 else f"{value:.1f} h since the newest reading"
-    if rule.rule.quantity in ("flat", "suspect", "failed"):
+    if quantity == "age_h":
+        return "never reported" if value >= NEVER_REPORTED_AGE_H else f"{value:.1f} h since the newest reading"
+    if quantity in ("flat", "suspect", "failed"):
         return "yes" if value >= 1 else "no"
-    units = {"fos": "", "head_m": " m", "rise_m_per_h": " m/h", "rain_mm": " mm", "rain_id_ratio": ""}
-    return f"{value:.3g}{units.get(rule.rule.quantity, '')}"
+    return f"{value:.{_DECIMALS.get(quantity, 2)}f}{_UNITS.get(quantity, '')}"
 
 
 def _when(moment: datetime) -> str:
@@ -437,7 +488,9 @@ def list_alerts(workspace: Workspace, clock: Clock, open_only: bool = False) -> 
             "id": row["id"], "section_id": row["section_id"], "rule": row["rule"],
             "kind": row["kind"], "level": row["level"], "rank": row["rank"], "state": row["state"],
             "since_utc": utc_text(record.since) if record.since else None,
-            "episode": row["episode"], "last_value": row["last_value"], "description": row["message"],
+            "episode": row["episode"], "last_value": row["last_value"],
+            "value_text": value_text(row["last_value"], row["quantity"] or ""),
+            "description": row["message"],
             "acknowledged": bool(row["acknowledged_episode"] and row["acknowledged_episode"] == row["episode"]),
             "acknowledged_by": row["acknowledged_by"], "acknowledged_utc": row["acknowledged_utc"],
             "acknowledged_note": row["acknowledged_note"],

@@ -301,17 +301,28 @@ class Announcement:
     """A notification due for a transition: kind is one of firing, escalated, resolved,
     de-escalated, data (a data-quality alert firing); ``also_told`` lists alerts that the
     message reports as standing (a de-escalation names the level that still fires), which
-    count as notified from then on."""
+    count as notified from then on; ``together`` holds the other transitions of the same kind
+    and level in the same cycle, announced in this one message (and one inspection request)."""
 
     transition: Transition
     kind: str
     also_told: tuple[str, ...] = ()
+    together: tuple[Transition, ...] = ()
+
+    @property
+    def transitions(self) -> tuple[Transition, ...]:
+        """Every transition this message announces, the leading one first."""
+        return (self.transition, *self.together)
 
 
 def announcements(transitions: list[Transition], alerts: dict[str, AlertView]) -> list[Announcement]:
     """The notifications due for one section's transitions of one cycle.
 
-    Rules (issue 6): one notification per state change that people must hear about; a firing
+    Rules (issue 6): one notification per state change that people must hear about, and one
+    for all the rules of one level that change alike in one cycle (issue 15: two amber rules
+    firing together are one message and one inspection request; one rule of a level resolving
+    while another rule of that level still fires is announced with the rules that stand, so
+    that nobody reads the level as over); a firing
     of the owner's levels is suppressed while a higher level of the section fires (it is
     reported as "escalated" when a lower level had been announced); a shelved alert's firing
     is held until it is un-shelved; every firing that was announced gets its resolution
@@ -345,6 +356,14 @@ def announcements(transitions: list[Transition], alerts: dict[str, AlertView]) -
             told.add(transition.rule_name)
         elif transition.new is AlertState.RESOLVED and view.notified_episode == transition.episode:
             told.discard(transition.rule_name)
+            same = [a.rule_name for a in levels if a.state is AlertState.FIRING
+                    and a.rank == transition.rank and a.rule_name != transition.rule_name]
+            if view.kind == "level" and same:
+                # This rule's alarm is over, but its level still stands by another rule: the
+                # message names those (``also_told``) instead of saying the level cleared.
+                result.append(Announcement(transition, "resolved", tuple(same)))
+                told.update(same)
+                continue
             standing = sorted(
                 (a for a in levels if a.state is AlertState.FIRING and a.rank < transition.rank
                  and a.rule_name != transition.rule_name),
@@ -356,4 +375,20 @@ def announcements(transitions: list[Transition], alerts: dict[str, AlertView]) -
                 told.update(a.rule_name for a in standing)
             else:
                 result.append(Announcement(transition, "resolved"))
-    return result
+    return _together(result, alerts)
+
+
+def _together(result: list[Announcement], alerts: dict[str, AlertView]) -> list[Announcement]:
+    """One announcement per kind and level: the transitions of the later ones of the same kind,
+    level rank and alert kind ride along with the first (its ``also_told`` merged)."""
+    merged: dict[tuple, Announcement] = {}
+    for item in result:
+        key = (item.kind, item.transition.rank, alerts[item.transition.rule_name].kind)
+        first = merged.get(key)
+        if first is None:
+            merged[key] = item
+            continue
+        also = tuple(dict.fromkeys(n for n in (*first.also_told, *item.also_told)
+                                   if n not in {t.rule_name for t in (*first.transitions, item.transition)}))
+        merged[key] = replace(first, also_told=also, together=(*first.together, item.transition))
+    return list(merged.values())

@@ -120,7 +120,7 @@ def alerts(ctx: click.Context, open_only: bool, workspace: Path, as_json: bool) 
     if not rows:
         click.echo("no open alerts" if open_only else "no alerts stored yet")
     for a in rows:
-        value = "" if a["last_value"] is None else f" value {a['last_value']:.3g}"
+        value = "" if a["last_value"] is None else f" value {a['value_text']}"
         marks = "".join([
             f" ack by {a['acknowledged_by']}" if a["acknowledged"] else "",
             f" SHELVED until {a['shelved_until_utc']} by {a['shelved_by']}" if a["shelved"] else "",

@@ -58,8 +58,8 @@ from watch.parameters import current_section
 from watch.rainfall import DEFAULT_DRY_GAP_H, event_exceedance, rain_record_reach, window_totals
 from watch.store import Store, parse_utc_text, utc_text
 from watch.text import printable
-from watch.triggers import (RAIN_CURVES, SITE_ALERTS, AlertSettings, SectionRule, alert_settings,
-                            section_gauge)
+from watch.triggers import (NEVER_REPORTED_AGE_H, RAIN_CURVES, SITE_ALERTS, AlertSettings, SectionRule,
+                            alert_settings, section_gauge)
 from watch.waterlines import section_with_lines, store_water_lines, water_lines_from_store
 from watch.workspace import Workspace
 
@@ -77,9 +77,6 @@ __all__ = [
     "search_to_json",
     "search_from_json",
 ]
-
-#: Age given to an instrument that has never reported [h]: older than any stale limit.
-NEVER_REPORTED_AGE_H = 1.0e6
 
 #: Sections the coordinator writes per transaction: one commit (and its disk flush) per group
 #: instead of per section; a crash loses at most the group being written, whose sections are

@@ -35,6 +35,7 @@ __all__ = [
     "RAIN_CURVES",
     "DATA_LEVEL",
     "SITE_ALERTS",
+    "NEVER_REPORTED_AGE_H",
     "Level",
     "TriggerSpec",
     "SectionRule",
@@ -64,6 +65,9 @@ RAIN_CURVES: dict[str, IntensityDurationThreshold] = {
 #: suppress nor are suppressed by the owner's levels, since a feed that stopped matters most
 #: while a slope is at its worst.
 DATA_LEVEL = "data"
+#: Age given to an instrument that has never reported [h]: older than any stale limit. A mark
+#: for the stale-feed rule, said in words wherever people read it (watch.alerting.value_text).
+NEVER_REPORTED_AGE_H = 1.0e6
 
 #: Section id under which the site's own data-quality alerts are stored (the watch itself
 #: failing: an ingest that could not read its files); not a [[section]] id.
@@ -125,6 +129,8 @@ class SectionRule:
     curve: IntensityDurationThreshold | None = None
     description: str = ""
     dry_gap_hours: float = DEFAULT_DRY_GAP_H  # rain events end after this long without rain
+    #: What the rule watches, in a few words ("rain at RG-1 over 24 h"), for message subjects.
+    watched: str = ""
 
 
 @dataclass(frozen=True)
@@ -218,6 +224,7 @@ class AlertSettings:
                         trigger=1.0, clear=0.0, on_delay=self.data.on_delay, off_delay=self.data.off_delay),
             "data", description="the watch itself is failing: the ingest of the feed files failed (the "
                                 "files and errors are listed in the log and by the cycle)",
+            watched="ingest of the feed files",
         )]  # fmt: skip
 
     def _data_rules(self, config: SiteConfig, section_id: str, gauge: str | None) -> list[SectionRule]:
@@ -235,6 +242,7 @@ class AlertSettings:
                             clear=data.stale_clear_hours, **common),
                 "data", description=f"no reading for more than {data.stale_hours:g} h from "
                                     f"{' or '.join(watched)} (stale feed)",
+                watched="age of the newest reading",
             ))  # fmt: skip
         for iid in instruments:
             if data.flat_line:
@@ -242,6 +250,7 @@ class AlertSettings:
                     TriggerRule(name=f"data-flat-{iid}", quantity="flat", trigger=1.0, clear=0.0,
                                 **common),
                     "data", iid, description=f"{iid} repeats one value (flat-lined sensor)",
+                    watched=f"flat-lined {iid}",
                 ))  # fmt: skip
             if data.suspect:
                 rules.append(SectionRule(
@@ -250,6 +259,7 @@ class AlertSettings:
                     "data", iid,
                     description=f"{iid} sent readings out of its valid range or jumping faster "
                                 "than a head can rise (spikes)",
+                    watched=f"suspect readings of {iid}",
                 ))  # fmt: skip
         if data.assessment:
             rules.append(SectionRule(
@@ -257,6 +267,7 @@ class AlertSettings:
                             **common),
                 "data", description="the factor of safety could not be calculated or did not "
                                     "converge",
+                watched="calculation of the factor of safety",
             ))  # fmt: skip
         return rules
 
@@ -424,6 +435,7 @@ def _section_rule(spec: TriggerSpec, level: Level, instrument: str | None, sourc
         RAIN_CURVES.get(spec.curve) if spec.curve else None,
         description=f"{what} {side} {spec.trigger:g} {unit}".rstrip(" -"),
         dry_gap_hours=gap,
+        watched=what,
     )
 
 
