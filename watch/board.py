@@ -884,6 +884,8 @@ class BoardResult:
             "sections": [
                 {"section_id": s.id, "level": s.level.word, "level_rank": s.level.rank,
                  "fos": s.latest.fos if s.latest else None,
+                 "assessment_status": s.latest.status if s.latest else None,
+                 "fos_basis": assessment_status.fos_basis(s.latest.status) if s.latest else None,
                  "method": s.latest.method if s.latest else None,
                  "assessed_utc": utc_text(s.latest.time) if s.latest else None,
                  "page": section_page_name(s.id)}

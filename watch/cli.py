@@ -44,11 +44,35 @@ class _Group(click.Group):
         try:
             return super().invoke(ctx)
         except (UserError, SolverError, OSError) as error:
+            if isinstance(error, BrokenPipeError):
+                raise  # the reader went away (`slipwatch status | head`): click ends quietly
             if ctx.obj and ctx.obj.get("debug"):
                 raise
             message = str(error) or error.__class__.__name__
             click.echo(f"slipwatch: error: {message}", err=True)
             ctx.exit(1)
+
+
+    def main(self, *args, **kwargs):
+        try:
+            return super().main(*args, **kwargs)
+        finally:
+            _flush_quietly()
+
+
+def _flush_quietly() -> None:
+    """Flush standard output; when its reader has gone (a closed pipe), send what is left to
+    the null device so that neither we nor the interpreter's exit print a broken-pipe error."""
+    try:
+        sys.stdout.flush()
+    except BrokenPipeError:
+        null = os.open(os.devnull, os.O_WRONLY)
+        try:
+            os.dup2(null, sys.stdout.fileno())
+        except (OSError, ValueError, AttributeError):
+            pass  # not a real file (an in-process runner): nothing is flushed at exit either
+        finally:
+            os.close(null)
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})

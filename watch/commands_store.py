@@ -89,6 +89,7 @@ def readings(instrument: str, workspace: Path, start: str | None, end: str | Non
     Example:
         slipwatch readings P1 --from 2026-10-01 --to 2026-10-31T23:59 --csv > p1.csv
     """
+    from watch.formatting import plain_number
     from watch.workspace import open_workspace
 
     ws = open_workspace(workspace)
@@ -101,7 +102,8 @@ def readings(instrument: str, workspace: Path, start: str | None, end: str | Non
         columns = list(rows[0]) if rows else ["instrument_id", "time_utc"]
         writer = csv.DictWriter(sys.stdout, fieldnames=columns, lineterminator="\n")
         writer.writeheader()
-        writer.writerows({**row, "superseded": _superseded_text(row["superseded"])} for row in rows)
+        writer.writerows({**{k: plain_number(v) for k, v in row.items()},
+                          "superseded": _superseded_text(row["superseded"])} for row in rows)
     else:
         click.echo(f"no readings of {instrument} stored in that period")
 

@@ -51,6 +51,7 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str 
         slipwatch assess --all --workers 2
         slipwatch assess --all --cluster tcp://10.0.0.5:8786
     """
+    from watch.assessment_status import status_words
     from watch.clock import SystemClock
     from watch.cycle import cycle_executor, run_cycle
     from watch.caution import CAUTION
@@ -75,8 +76,8 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str 
     for name in report.released:
         click.echo(f"un-shelved (expired): {name}")
     for s in report.sections:
-        fos = "n/a" if s.fos is None else f"{s.fos:.3f} ({s.method}, {s.evaluation})"
-        click.echo(f"{s.section_id}: {s.status}; FoS {fos}" + (f"; {s.message}" if s.message else ""))
+        fos = "n/a" if s.fos is None else f"{s.fos:.2f} ({s.method}, {s.evaluation})"
+        click.echo(f"{s.section_id}: {status_words(s.status)}; FoS {fos}" + (f"; {s.message}" if s.message else ""))
         for change in s.changes:
             click.echo(f"  alert {change}")
         for warning in s.warnings:

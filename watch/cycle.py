@@ -47,7 +47,7 @@ from solver.search import (
 from solver.slicing import slice_surface
 from watch.alerting import SectionContext, last_evaluations, process_section_alerts, release_shelved
 from watch.analysis import analyse, surface_of
-from watch.assessment_status import ON_DESIGN_LINES
+from watch.assessment_status import ON_DESIGN_LINES, fos_basis
 from watch.clock import Clock, ManualClock
 from watch.config import SiteConfig
 from watch.errors import BusyError, UserError
@@ -147,7 +147,7 @@ class CycleReport:
             "files": self.files,
             "ingest_failures": self.ingest_failures,
             "site_changes": self.site_changes,
-            "sections": [asdict(s) for s in self.sections],
+            "sections": [asdict(s) | {"fos_basis": fos_basis(s.status)} for s in self.sections],
             "released": self.released,
             "chattering": self.chattering,
             "executor": self.executor,

@@ -11,6 +11,7 @@ from pathlib import Path
 
 from watch.clock import Clock
 from watch.errors import UserError
+from watch.formatting import plain_number
 from watch.store import Store, parse_utc_text, utc_text
 from watch.workspace import Workspace
 
@@ -66,5 +67,6 @@ def write_csv(rows: list[dict], path: Path) -> Path:
         writer = csv.DictWriter(handle, fieldnames=CSV_COLUMNS, extrasaction="ignore")
         writer.writeheader()
         for row in rows:
-            writer.writerow({**row, "checklist": "; ".join(row.get("checklist", []))})
+            writer.writerow({**{k: plain_number(v) for k, v in row.items()},
+                             "checklist": "; ".join(row.get("checklist", []))})
     return path

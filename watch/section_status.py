@@ -1,5 +1,9 @@
 """The state of every section for ``slipwatch status``: worst first, with its factor of safety,
-level, trend, age of the newest reading, open alerts, open inspections and data problems."""
+level, trend, age of the newest reading, open alerts, open inspections and data problems.
+
+The factor of safety shown (``fos``, its trend) is the newest on live readings; a newer one on
+the design water lines (no live readings) is given apart (``fos_on_design_lines``) and said to
+be so among the data problems, never as a calculation that did not converge."""
 
 from __future__ import annotations
 
@@ -7,6 +11,13 @@ from datetime import datetime, timedelta
 
 from watch.alerting import record_of
 from watch.alerts import AlertState, is_chattering
+from watch.assessment_status import (
+    FAILED,
+    FOS_BASIS_READINGS,
+    NOT_CONVERGED,
+    on_design_lines,
+    status_words,
+)
 from watch.caution import CAUTION
 from watch.store import parse_utc_text, utc_text
 from watch.triggers import alert_settings, section_gauge
@@ -35,8 +46,12 @@ def sections_status(workspace: Workspace, now: datetime) -> list[dict]:
             open_alerts = [a for a in alerts if a["state"] in (AlertState.FIRING.value, AlertState.PENDING.value)]
             levels = sorted((a for a in firing if a["kind"] == "level"), key=lambda a: -a["rank"])
             data = [f"{a['rule']}: {a['message']}" for a in firing if a["kind"] == "data"]
-            if newest is not None and newest["status"] in ("failed", "not converged", "no live data"):
-                data.append(f"last assessment {newest['status']}: {newest['message']}")
+            design = newest is not None and on_design_lines(newest["status"]) and newest["fos"] is not None
+            if design:
+                data.append(f"latest factor of safety {newest['fos']:.2f} ({newest['time_utc']}) is on the "
+                            "design water lines: no live readings, not a result of the readings")
+            elif newest is not None and newest["status"] in (FAILED, NOT_CONVERGED):
+                data.append(f"last assessment {status_words(newest['status'])}: {newest['message']}")
             gauge = section_gauge(config, ref.id)
             instruments = [p.id for p in config.piezometers_of(ref.id)] + ([gauge] if gauge else [])
             times = [r["time_utc"] for i in instruments if (r := store.newest_reading(i, utc_text(now)))]
@@ -45,8 +60,12 @@ def sections_status(workspace: Workspace, now: datetime) -> list[dict]:
             result.append({
                 "section_id": ref.id,
                 "fos": last["fos"] if last else None,
+                "fos_basis": FOS_BASIS_READINGS if last else None,
                 "method": last["method"] if last else None,
                 "assessed_utc": last["time_utc"] if last else None,
+                "latest_assessment_status": newest["status"] if newest else None,
+                "latest_assessment_utc": newest["time_utc"] if newest else None,
+                "fos_on_design_lines": newest["fos"] if design else None,
                 "fos_change_24h": (last["fos"] - earlier["fos"]) if last and earlier else None,
                 "level": levels[0]["level"] if levels else None,
                 "rank": levels[0]["rank"] if levels else 0,
@@ -69,6 +88,8 @@ def format_sections(rows: list[dict]) -> list[str]:
     lines = ["sections (worst first):"]
     for s in rows:
         fos = "  n/a" if s["fos"] is None else f"{s['fos']:.2f}"
+        if s["fos_on_design_lines"] is not None:
+            fos += f" (newer on design lines {s['fos_on_design_lines']:.2f})"
         trend = "" if s["fos_change_24h"] is None else f" ({s['fos_change_24h']:+.2f}/24 h)"
         age = "never" if s["reading_age_h"] is None else f"{s['reading_age_h']:.1f} h"
         lines.append(
