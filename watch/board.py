@@ -998,7 +998,7 @@ td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: now
 .lv-1 { background: #fde68a; }
 .lv-2 { background: #e08600; }
 .lv-3 { background: #7f0a1f; color: #ffffff; border: 4px double #000000; }
-.expect { font-size: 0.85em; color: #1a1a1a; margin-top: 0.3em; max-width: 17em; }
+.expect { font-size: 0.85em; color: #1a1a1a; margin-top: 0.3em; max-width: 14em; }
 .expect-wide { max-width: 60em; }
 tr.row-lv-1 td:first-child { border-left: 4px solid #1a1a1a; }
 tr.row-lv-2 td:first-child { border-left: 8px solid #1a1a1a; }
@@ -1010,7 +1010,7 @@ figure img { max-width: 100%; height: auto; border: 1px solid #c8c8c8; backgroun
 figcaption { font-size: 0.9em; color: #333333; max-width: 70em; }
 ul.problems { margin: 0; padding-left: 1.1em; }
 /* The alert and data-quality columns carry sentences: give them room to read. */
-table.overview td:nth-last-child(-n+2) { min-width: 13em; max-width: 22em; }
+table.overview td:nth-last-child(-n+2) { min-width: 12em; max-width: 22em; }
 table.overview img { width: 150px; height: auto; }
 @media print { .frame { overflow: visible; } }
 """

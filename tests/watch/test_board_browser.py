@@ -32,14 +32,19 @@ pytestmark = pytest.mark.skipif(
 
 
 class _Rows(HTMLParser):
-    """Text of every table row's cells."""
+    """Text of every cell of the overview table's rows (not the key of the levels below it)."""
 
     def __init__(self):
         super().__init__()
         self.rows: list[list[str]] = []
         self._cell: list[str] | None = None
+        self._inside = False
 
     def handle_starttag(self, tag, attrs):
+        if tag == "table":
+            self._inside = "overview" in (dict(attrs).get("class") or "")
+        if not self._inside:
+            return
         if tag == "tr":
             self.rows.append([])
         elif tag in ("td", "th"):
@@ -171,3 +176,105 @@ def test_the_checks_catch_a_broken_page(served, tmp_path):
     assert ("/img/missing.png", 404) in fetched
     assert any("Content Security Policy" in line for line in console)
 
+
+
+#: Measured in the page by chromium itself: the computed look of every level badge, and where
+#: each column of the overview lies against the 1280 px window and the table's frame.
+_PROBE = """
+<pre id="probe"></pre>
+<script>
+const rgb = s => s.match(/[0-9.]+/g).slice(0, 3).map(Number);
+const badges = [...document.querySelectorAll('.badge')].map(b => {
+  const c = getComputedStyle(b);
+  return {cls: b.className, text: b.textContent, cue: b.querySelector('.cue').textContent,
+          background: rgb(c.backgroundColor), color: rgb(c.color), borderStyle: c.borderTopStyle,
+          borderWidth: parseFloat(c.borderTopWidth)};
+});
+const frame = document.querySelector('table.overview').closest('.frame');
+const box = frame.getBoundingClientRect();
+const columns = [...document.querySelectorAll('table.overview thead th')].map(th => {
+  const r = th.getBoundingClientRect();
+  return {text: th.textContent, left: r.left, right: r.right, width: r.width,
+          display: getComputedStyle(th).display, visibility: getComputedStyle(th).visibility};
+});
+document.getElementById('probe').textContent = JSON.stringify({
+  badges, columns, innerWidth: window.innerWidth,
+  pageWidth: document.documentElement.scrollWidth,
+  frame: {left: box.left, right: box.right, scrollWidth: frame.scrollWidth,
+          clientWidth: frame.clientWidth, overflowX: getComputedStyle(frame).overflowX}});
+</script>
+"""
+
+
+def _probe(result, root, name: str) -> dict:
+    """Load the overview with the probe in chromium at 1280 px (a copy without the Content
+    Security Policy, which forbids the probe's inline script) and return its measurements."""
+    import json
+    import re
+
+    text = (result.out / "index.html").read_text(encoding="utf-8")
+    text = re.sub(r'<meta http-equiv="Content-Security-Policy"[^>]*>', "", text)
+    probe = result.out / f"{name}.html"
+    probe.write_text(text.replace("</body>", _PROBE + "</body>"), encoding="utf-8")
+    try:
+        done = _chromium(probe.as_uri(), root / "probe-profile", "--window-size=1280,900",
+                         "--dump-dom")
+    finally:
+        probe.unlink()
+    found = re.search(r'<pre id="probe">(.*?)</pre>', done.stdout, re.S)
+    assert found, done.stdout[-2000:]
+    import html as html_module
+
+    return json.loads(html_module.unescape(found.group(1)))
+
+
+def _luminance(rgb) -> float:
+    """Relative luminance of an sRGB colour (WCAG 2.1, definition of relative luminance)."""
+    def linear(c):
+        c = c / 255.0
+        return c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4
+    r, g, b = (linear(c) for c in rgb)
+    return 0.2126 * r + 0.7152 * g + 0.0722 * b
+
+
+def test_levels_differ_in_more_than_hue_and_no_column_is_hidden_at_1280_px(served):
+    workspace, result, base, log, root = served
+    measured = _probe(result, root, "probe-control")
+    # The key lists every level of the site: no alert, watch, act (the fixture's two levels)
+    # and data alert, each once.
+    looks = {}
+    for badge in measured["badges"]:
+        looks.setdefault(badge["cls"], badge)
+    assert {"badge lv-0", "badge lv-1", "badge lv-3", "badge lv-none"} <= set(looks), looks.keys()
+    classes = sorted(looks)
+    for i, a in enumerate(classes):
+        for b in classes[i + 1:]:
+            one, other = looks[a], looks[b]
+            # A cue people read without colour (the severity marks)...
+            assert one["cue"] != other["cue"], (a, b)
+            # ...and a difference that survives grey-scale printing: the badge's lightness
+            # (WCAG relative luminance 0.1 apart or more) or the style of its border.
+            lightness = abs(_luminance(one["background"]) - _luminance(other["background"]))
+            assert lightness >= 0.1 or one["borderStyle"] != other["borderStyle"], (a, b, lightness)
+    # The levels of the owner get darker as they get graver, so grey print keeps their order.
+    graver = [looks[c] for c in ("badge lv-0", "badge lv-1", "badge lv-3")]
+    assert [_luminance(x["background"]) for x in graver] == sorted(
+        (_luminance(x["background"]) for x in graver), reverse=True)
+    # Text on every badge stays readable: contrast ratio 4.5:1 or more (WCAG 2.1, 1.4.3).
+    for badge in looks.values():
+        light, dark = sorted((_luminance(badge["background"]), _luminance(badge["color"])), reverse=True)
+        assert (light + 0.05) / (dark + 0.05) >= 4.5, badge
+
+    # Every column of the overview is shown and lies inside the window at 1280 px, or inside
+    # a frame that scrolls; the page itself never scrolls sideways.
+    frame, columns = measured["frame"], measured["columns"]
+    assert len(columns) == 8 and columns[-1]["text"] == "Data-quality problems"
+    assert measured["pageWidth"] <= measured["innerWidth"]
+    for column in columns:
+        assert column["display"] != "none" and column["visibility"] == "visible", column
+        assert column["width"] > 40, column
+        if frame["scrollWidth"] > frame["clientWidth"]:
+            assert frame["overflowX"] in ("auto", "scroll")
+            assert column["right"] <= frame["left"] + frame["scrollWidth"] + 1, column
+        else:
+            assert column["right"] <= measured["innerWidth"], column
