@@ -32,7 +32,7 @@ import pandas as pd
 from watch import assessment_status
 from watch.caution import CAUTION
 from watch.errors import UserError, WorkspaceError
-from watch.formatting import number_text
+from watch.formatting import number_text, short_time
 from watch.store import parse_utc_text, utc_text
 from watch.triggers import DATA_LEVEL
 
@@ -1499,11 +1499,12 @@ def _list(items: list[str], empty: str) -> str:
 
 
 def _table(headers: list[str], rows: list[list], numeric: set[int] = frozenset()) -> str:
-    """An HTML table; every cell is escaped."""
+    """An HTML table; every cell is escaped, stored UTC times shown as "YYYY-MM-DD HH:MM"
+    (the headings say UTC)."""
     head = "".join(f"<th>{escape(h)}</th>" for h in headers)
     body = "".join(
         "<tr>" + "".join(
-            f"<td class=\"num\">{escape(c)}</td>" if i in numeric else f"<td>{escape(c)}</td>"
+            f"<td class=\"num\">{escape(c)}</td>" if i in numeric else f"<td>{escape(short_time(c))}</td>"
             for i, c in enumerate(row)
         ) + "</tr>"
         for row in rows

@@ -163,14 +163,18 @@ def plot_section(
     fig.suptitle(title)
     ax.grid(True, color="#DDDDDD", linewidth=0.5)
     ax.set_axisbelow(True)
-    # The legend goes below the drawing, where it can never hide the slope ("outside": the
-    # constrained layout makes room for every row of it); the caution sits in a strip at the
-    # foot of the figure that the layout leaves free.
-    strip = 0.28 / fig.get_figheight()
-    fig.get_layout_engine().set(rect=(0, strip, 1, 1 - strip))
-    fig.legend(handles=handles, loc="outside lower center", ncols=min(4, len(handles)),
-               fontsize=8, frameon=False)
-    fig.text(0.5, 0.02 * strip, CAUTION_SHORT, ha="center", va="bottom", fontsize=7,
+    # The legend goes below the drawing, where it can never hide the slope, and the caution
+    # below the legend: the layout keeps a band at the foot for both (rows of 8 pt text).
+    columns = min(4, len(handles))
+    caution_in, row_in = 0.3, 0.2
+    legend_in = row_in * -(-len(handles) // max(columns, 1)) + 0.1
+    fig.set_figheight(fig.get_figheight() + legend_in)
+    height = fig.get_figheight()
+    fig.get_layout_engine().set(rect=(0, (caution_in + legend_in) / height, 1,
+                                      1 - (caution_in + legend_in) / height))
+    fig.legend(handles=handles, loc="lower center", bbox_to_anchor=(0.5, caution_in / height),
+               ncols=columns, fontsize=8, frameon=False)
+    fig.text(0.5, 0.08 / height, CAUTION_SHORT, ha="center", va="bottom", fontsize=7,
              color="#444444")
     fig.savefig(path, dpi=dpi)
     plt.close(fig)
@@ -209,8 +213,9 @@ def _draw_piezometers(ax, piezometers) -> list:
         if p.get("head_m") is not None:
             ax.plot(x, float(p["head_m"]), marker="v", markersize=8, markerfacecolor="white",
                     markeredgecolor=READING_COLOUR, markeredgewidth=1.6, linestyle="none")
-        ax.annotate(str(p["id"]), (x, collar), xytext=(3, 3), textcoords="offset points",
-                    fontsize=7, color=PIEZOMETER_COLOUR)
+        # Named at the tip, clear of the loads and labels along the ground.
+        ax.annotate(str(p["id"]), (x, tip), xytext=(5, -2), textcoords="offset points",
+                    va="top", fontsize=7, color=PIEZOMETER_COLOUR)
     if not drawn:
         return []
     handles = [plt.Line2D([], [], color=PIEZOMETER_COLOUR, linewidth=0.8, marker="s", markersize=5,
