@@ -42,6 +42,12 @@ def site(tmp_path):
     return workspace
 
 
+def _watch(workspace, fos: float, head: float, hours: float = 0.0):
+    """One cycle at AT + ``hours`` with the factor of safety ``fos`` and PZ-1 at ``head`` [m]."""
+    return _cycle(workspace, {"fos-watch": fos, "head-watch": head, "fos-act": fos},
+                  AT + timedelta(hours=hours), fos=fos)
+
+
 def _cycle(workspace, values: dict, at: datetime, fos: float | None = None):
     config = workspace.config()
     settings = alert_settings(config)
@@ -55,8 +61,7 @@ def _cycle(workspace, values: dict, at: datetime, fos: float | None = None):
 
 
 def test_two_rules_of_one_level_firing_together_are_one_message_and_one_request(site):
-    outcome, outbox, inspections = _cycle(site, {"fos-watch": 1.28, "head-watch": 67.8,
-                                                 "fos-act": 1.28}, AT, fos=1.28)
+    outcome, outbox, inspections = _watch(site, 1.28, 67.8)
     firing = [r for r in outbox if r["kind"] == "firing"]
     assert len(firing) == 1
     assert len([r for r in outbox if r["kind"] == "inspection"]) == 1
@@ -70,32 +75,29 @@ def test_two_rules_of_one_level_firing_together_are_one_message_and_one_request(
     assert rules == ["fos-watch", "head-watch"]
     assert "fos-watch" in inspections[0]["reason"] and "PZ-1" in inspections[0]["reason"]
     # Both alerts count as told: a later cycle repeats nothing.
-    _, again, _ = _cycle(site, {"fos-watch": 1.27, "head-watch": 67.9, "fos-act": 1.27},
-                         AT + timedelta(hours=1), fos=1.27)
+    _, again, _ = _watch(site, 1.27, 67.9, hours=1)
     assert len(again) == len(outbox)
 
 
 def test_a_rain_or_head_rule_subject_names_it_not_the_factor_of_safety(site):
-    _, outbox, _ = _cycle(site, {"fos-watch": 1.40, "head-watch": 67.8, "fos-act": 1.40}, AT, fos=1.40)
+    _, outbox, _ = _watch(site, 1.40, 67.8)
     (row,) = [r for r in outbox if r["kind"] == "firing"]
     assert "piezometric head at PZ-1 67.80 m" in row["subject"]
     assert "FoS" not in row["subject"] and "1.40" not in row["subject"]
 
 
 def test_direction_words_follow_the_quantity(site):
-    _cycle(site, {"fos-watch": 1.28, "head-watch": 67.8, "fos-act": 1.28}, AT, fos=1.28)
+    _watch(site, 1.28, 67.8)
     # The factor of safety rises back past its clear value while the head still stands: the
     # level stands; then the head falls back and the level resolves.
-    _, outbox, _ = _cycle(site, {"fos-watch": 1.36, "head-watch": 67.8, "fos-act": 1.36},
-                          AT + timedelta(hours=1), fos=1.36)
+    _, outbox, _ = _watch(site, 1.36, 67.8, hours=1)
     stands = outbox[-1]
     assert stands["kind"] == "resolved"
     assert "is still at level WATCH" in stands["subject"]
     assert "factor of safety 1.36, back above its clear value 1.35" in stands["subject"]
     assert "back below" not in stands["subject"]
     assert "Still firing at level watch: head-watch." in stands["body"]
-    _, outbox, _ = _cycle(site, {"fos-watch": 1.36, "head-watch": 66.9, "fos-act": 1.36},
-                          AT + timedelta(hours=2), fos=1.36)
+    _, outbox, _ = _watch(site, 1.36, 66.9, hours=2)
     resolved = outbox[-1]
     assert resolved["kind"] == "resolved"
     assert "is no longer at level WATCH" in resolved["subject"]
