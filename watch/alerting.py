@@ -245,7 +245,8 @@ def _announce(store: Store, settings: AlertSettings, announcement: Announcement,
         "level": level.name, "rank": level.rank, "old_state": t.old.value, "new_state": t.new.value,
         "value": t.value, "episode": t.episode, "standing_levels": [r.rule.level for r in standing],
         "standing": [{"rule": name, "episode": views[name].episode} for name in announcement.also_told],
-        "rules": [{"rule": x.rule_name, "description": rule_of[x.rule_name].description,
+        "rules": [{"rule": x.rule_name, "alert_id": ids[x.rule_name],
+                   "description": rule_of[x.rule_name].description,
                    "value": x.value, "value_text": value_text(x.value, rule_of[x.rule_name].rule.quantity),
                    "old_state": x.old.value, "new_state": x.new.value, "episode": x.episode}
                   for x in announcement.transitions],
@@ -377,7 +378,9 @@ def happening(rule: SectionRule, transition: Transition) -> str:
     if rule.kind == "data":
         if transition.new is AlertState.RESOLVED:
             return f"{rule.watched or rule.rule.name} back to normal"
-        return f"{rule.description} ({value_text(transition.value, quantity)})"
+        # A yes/no data rule's description says it all; an age is worth its number.
+        return rule.description + (f" ({value_text(transition.value, quantity)})"
+                                   if quantity == "age_h" else "")
     what = rule.watched or rule.description or rule.rule.name
     value = value_text(transition.value, quantity)
     below = rule.rule.direction is Direction.BELOW

@@ -29,13 +29,16 @@ def announced_alarms(workspace) -> tuple[dict, set]:
     told, closed, kinds = set(), [], {}
     for row in rows:
         section, rule, episode, kind = row["idempotency_key"].split("/")
-        key = (section, rule, int(episode))
-        kinds.setdefault(key, []).append(kind)
-        if kind in ("firing", "escalated", "data"):
-            told.add(key)
-        elif kind in ("resolved", "de-escalated"):
-            assert key in told, f"{key} closed without being announced"
-            closed.append(key)
+        # One row announces every rule of its level that changed alike in the cycle (its
+        # payload's "rules"); the key names the first.
+        rules = json.loads(row["payload_json"]).get("rules") or [{"rule": rule, "episode": int(episode)}]
+        for key in [(section, r["rule"], int(r["episode"])) for r in rules]:
+            kinds.setdefault(key, []).append(kind)
+            if kind in ("firing", "escalated", "data"):
+                told.add(key)
+            elif kind in ("resolved", "de-escalated"):
+                assert key in told, f"{key} closed without being announced"
+                closed.append(key)
         if kind == "de-escalated":
             told.update((section, s["rule"], s["episode"]) for s in json.loads(row["payload_json"])["standing"])
     assert len(closed) == len(set(closed)), "an alarm was closed twice"

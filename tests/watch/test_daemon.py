@@ -370,8 +370,11 @@ def test_storm_through_the_real_cycle_every_firing_gets_its_resolved_once(tmp_pa
     received = [n for body in hook.bodies for n in body["notifications"]]
     keys = [n["idempotency_key"] for n in received]
     assert len(keys) == len(set(keys))  # nothing twice
-    told = [n["alert_id"] for n in received if n["kind"] in ("firing", "escalated", "data")]
-    cleared = [n["alert_id"] for n in received if n["kind"] in ("resolved", "de-escalated")]
+    # A notification announces every rule of its level that changed alike in the cycle.
+    def alerts_of(n):
+        return [r["alert_id"] for r in n["details"].get("rules") or [{"alert_id": n["alert_id"]}]]
+    told = [a for n in received if n["kind"] in ("firing", "escalated", "data") for a in alerts_of(n)]
+    cleared = [a for n in received if n["kind"] in ("resolved", "de-escalated") for a in alerts_of(n)]
     with ws.open_store() as store:
         outbox = store.conn.execute("SELECT COUNT(*) FROM notification_outbox").fetchone()[0]
         firing_now = {r[0] for r in store.conn.execute("SELECT id FROM alerts WHERE state = 'firing'")}
