@@ -320,8 +320,11 @@ def _section_status(workspace, store, reader, config, section_id, file, gauge, n
 
 
 def _change(assessed: list[AssessmentRecord], start: datetime) -> float | None:
-    """Change of the factor of safety from the first to the last assessment since ``start``."""
+    """Change of the factor of safety from the first to the last assessment since ``start``
+    on the parameter version of the last: a new version (a calibration, an edited section)
+    changes the model, not the slope, so its step is no change of the slope's state."""
     inside = [a for a in assessed if a.time >= start]
+    inside = [a for a in inside if a.section_version_id == inside[-1].section_version_id] if inside else []
     if len(inside) < 2:
         return None
     return inside[-1].fos - inside[0].fos
@@ -1155,13 +1158,14 @@ def _same_line(a: np.ndarray, b: np.ndarray | None, tolerance: float = 0.01) -> 
 def fos_series(history: list[AssessmentRecord]):
     """(results on live readings, results on the design water lines, breaks) of assessments
     in time order: ``breaks[i]`` is True when an assessment that is not on live readings lies
-    between the i-th and the next result on live readings, where the series must stop."""
+    between the i-th and the next result on live readings, or when the two rest on different
+    parameter versions: there the series must stop."""
     usable, design, breaks = [], [], []
     between = False
     for a in history:
         if a.usable:
             if usable:
-                breaks.append(between)
+                breaks.append(between or a.section_version_id != usable[-1].section_version_id)
             usable.append(a)
             between = False
         else:

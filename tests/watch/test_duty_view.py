@@ -240,3 +240,23 @@ def test_the_section_figure_draws_the_piezometers_and_their_readings(design, tmp
     # Fixture: PZ-1 head 66.0 + 1.5 m over the record, the last reading at NOW (67.50 m).
     assert "head 67.50 m" in page
     assert "rain in the interval 1.0 mm" in page
+
+
+def test_a_new_parameter_version_breaks_the_series_and_is_no_change_of_the_slope(tmp_path):
+    workspace = make_workspace(tmp_path / "ws")
+    with workspace.open_store() as store, store.atomic():
+        old = store.conn.execute("SELECT id, parameters_json FROM section_versions").fetchone()
+        parameters = json.loads(old[1])
+        next(m for m in parameters["material"] if m["name"] == "Weak clay")["cohesion"] = 3.5
+        store.record_section_version("S-1", parameters, "calibrated (test)",
+                                     (NOW - timedelta(days=2)).strftime("%Y-%m-%dT%H:%M:%SZ"))
+        new = store.latest_section_version("S-1")["id"]
+        assert new != old[0]
+        store.conn.execute("UPDATE assessments SET section_version_id = ? WHERE time_utc >= ?",
+                           (new, (NOW - timedelta(days=1)).strftime("%Y-%m-%dT%H:%M:%SZ")))
+    section = _s1(workspace)
+    usable, _, breaks = fos_series(section.history)
+    # Days 9 and 10 run on the new version: the line stops between days 8 and 9.
+    assert breaks == [i == DAYS - 2 for i in range(len(usable) - 1)]
+    # The 7-day change is taken on the new version only (days 9 and 10).
+    assert section.fos_change["7 days"] == pytest.approx(usable[-1].fos - usable[-2].fos, rel=1e-12)
