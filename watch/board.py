@@ -1379,7 +1379,7 @@ def _fos_text(value: float | None) -> str:
 
 def _signed(value: float | None) -> str:
     return ("no trend: fewer than 2 assessments in the window" if value is None
-            else f"change {value:+.2f}")
+            else f"change {round(value, 2) + 0.0:+.2f}")  # never "-0.00"
 
 
 def _overview_page(status: SiteStatus, trends: dict) -> str:

@@ -90,8 +90,10 @@ def format_sections(rows: list[dict]) -> list[str]:
         fos = "  n/a" if s["fos"] is None else f"{s['fos']:.2f}"
         if s["fos_on_design_lines"] is not None:
             fos += f" (newer on design lines {s['fos_on_design_lines']:.2f})"
-        trend = "" if s["fos_change_24h"] is None else f" ({s['fos_change_24h']:+.2f}/24 h)"
-        age = "never" if s["reading_age_h"] is None else f"{s['reading_age_h']:.1f} h"
+        # Rounded first, so that a change below 0.005 reads +0.00, never -0.00.
+        trend = "" if s["fos_change_24h"] is None else f" ({round(s['fos_change_24h'], 2) + 0.0:+.2f}/24 h)"
+        hours = s["reading_age_h"]
+        age = "never" if hours is None else f"{hours:.1f} h" if hours < 48 else f"{hours / 24:.1f} d"
         lines.append(
             f"  {s['section_id']:<10} FoS {fos}{trend:<15} level {s['level'] or '-':<8} "
             f"newest reading {age:<9} open alerts {len(s['open_alerts'])}, "
