@@ -413,8 +413,11 @@ def _data_problems(reader, instruments, latest, now) -> list[str]:
         elif not latest.usable:
             problems.append(f"latest calculation {assessment_status.status_words(latest.status)}"
                             + (f": {latest.message}" if latest.message else ""))
+        # A line no piezometer feeds is always its design line: that is the model, not a
+        # problem of the data (the report still lists every line's source).
+        fed = {i["water_line"] for i in instruments if i["kind"] == "piezometer"}
         for line in reader.water_lines(latest.id):
-            if _fell_back(line):
+            if _fell_back(line) and line["line_name"] in fed:
                 reason = line.get("fallback_reason") or "no reason stored"
                 problems.append(f"water line '{line['line_name']}' from the {line['fallback']}: "
                                 f"{reason}")
@@ -1442,7 +1445,7 @@ def _overview_page(status: SiteStatus, trends: dict) -> str:
             f"<br><span class=\"small\">{escape(s.name)}</span></td>"
             f"<td>{_badge(s.level)}"
             + (f"<br><span class=\"small\">{escape(s.level.detail)}</span>" if s.level.detail else "")
-            + _expectation(s.level) + f"</td><td>{fos_cell}</td><td>{'<br>'.join(trend_cells)}</td>"
+            + _expectation(s.level) + _overdue_note(s, status.now) + f"</td><td>{fos_cell}</td><td>{'<br>'.join(trend_cells)}</td>"
             f"<td class=\"num\">{escape(rain)}{gauge}</td><td>{age}</td>"
             f"<td>{_list(attention, 'none')}</td>"
             f"<td>{_list([escape(p) for p in s.data_problems], 'none')}</td></tr>"
@@ -1490,6 +1493,13 @@ def _fos_cell(s: SectionStatus) -> str:
     return "<br>".join(parts)
 
 
+def _overdue_note(s: SectionStatus, now: datetime) -> str:
+    """Beside the level: inspection requests past their due time, whatever the level now."""
+    late = sum(_overdue(i, now) for i in s.open_inspections)
+    return (f'<div class="expect"><strong>Also:</strong> {late} inspection request(s) overdue: '
+            "carry them out or close them with a note.</div>" if late else "")
+
+
 def _overdue(inspection: dict, now: datetime) -> bool:
     due = inspection.get("due_utc")
     return bool(due) and _time(due) < now
@@ -1527,7 +1537,7 @@ def _figure(figure: tuple[Path | None, str], alt: str) -> str:
 def _section_page(status: SiteStatus, s: SectionStatus, figures: dict) -> str:
     parts = [f"<p>{_badge(s.level)} "
              + (escape(s.level.detail) if s.level.detail else "") + "</p>"
-             + _expectation(s.level, wide=True)]
+             + _expectation(s.level, wide=True) + _overdue_note(s, status.now)]
     if s.latest is None:
         parts.append("<p class=\"empty\">No assessment of this section is stored in the season "
                      "yet.</p>")

@@ -260,3 +260,21 @@ def test_a_new_parameter_version_breaks_the_series_and_is_no_change_of_the_slope
     assert breaks == [i == DAYS - 2 for i in range(len(usable) - 1)]
     # The 7-day change is taken on the new version only (days 9 and 10).
     assert section.fos_change["7 days"] == pytest.approx(usable[-1].fos - usable[-2].fos, rel=1e-12)
+
+
+def test_only_a_line_fed_by_piezometers_falling_back_is_a_data_problem(tmp_path):
+    workspace = make_workspace(tmp_path / "ws")
+    with workspace.open_store() as store, store.atomic():
+        latest = store.conn.execute("SELECT MAX(id) FROM assessments WHERE section_id = 'S-1'").fetchone()[0]
+        store.conn.execute("UPDATE water_lines SET fallback = 'design line', fallback_reason = "
+                           "'no usable reading of PZ-1' WHERE assessment_id = ?", (latest,))
+        store.conn.execute(
+            "INSERT INTO water_lines (assessment_id, section_id, line_name, time_utc, points_json, "
+            "source, fallback, fallback_reason, readings_json, created_utc) SELECT assessment_id, "
+            "section_id, 'till', time_utc, points_json, 'design line', 'design line', "
+            "'no piezometer informs this line', '[]', created_utc FROM water_lines WHERE assessment_id = ?",
+            (latest,))
+    problems = _s1(workspace).data_problems
+    # PZ-1 feeds 'clay' (site file); no piezometer feeds 'till', which is its design line by design.
+    assert any(p.startswith("water line 'clay' from the design line") for p in problems)
+    assert not any("'till'" in p for p in problems)
