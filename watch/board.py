@@ -997,7 +997,7 @@ td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: now
 .frame { overflow-x: auto; max-width: 100%; }
 .badge { display: inline-block; padding: 0.15em 0.5em; border-radius: 0.2em; font-weight: 700;
          text-transform: uppercase; letter-spacing: 0.04em; border: 2px solid #1a1a1a;
-         white-space: nowrap; }
+         white-space: nowrap; -webkit-print-color-adjust: exact; print-color-adjust: exact; }
 .badge .cue { letter-spacing: 0; margin-right: 0.35em; }
 .lv-none { background: #d9d9d9; border-style: dashed; }
 .lv-0 { background: #ffffff; border-color: #5a5a5a; font-weight: 600; }
