@@ -205,9 +205,12 @@ def process_section_alerts(
                 "old_state": t.old.value, "new_state": t.new.value, "episode": t.episode,
                 "value": t.value, "assessment_id": context.assessment_id, "created_utc": utc_text(now),
             })  # fmt: skip
+            # A yes/no rule's value adds nothing to its state change; a number is said in words
+            # where it is a mark (never "1e+06" for an instrument that never reported).
             outcome.changes.append(f"{name}: {t.old.value} -> {t.new.value}"
                                    + (f" at {value_text(t.value, rule.rule.quantity)}"
-                                      if t.value is not None else ""))  # fmt: skip
+                                      if t.value is not None and rule.rule.quantity not in _YES_NO
+                                      else ""))  # fmt: skip
         window = timedelta(hours=settings.cycle.chatter_window_hours)
         if is_chattering(record, window, settings.cycle.chatter_max_changes, now=at):
             count = sum(at - t <= window for t in record.changes)
@@ -396,6 +399,10 @@ _UNITS = {"fos": "", "head_m": " m", "rise_m_per_h": " m/h", "rain_mm": " mm", "
 _DECIMALS = {"fos": 2, "head_m": 2, "rise_m_per_h": 3, "rain_mm": 1, "rain_id_ratio": 2}
 
 
+#: Quantities that are a yes (1) or a no (0).
+_YES_NO = ("flat", "suspect", "failed")
+
+
 def value_text(value, quantity: str) -> str:
     """A watched value as people read it, with its unit; the cycle's "never reported" age is
     said in words, never as its sentinel number."""
@@ -403,7 +410,7 @@ def value_text(value, quantity: str) -> str:
         return "no value"
     if quantity == "age_h":
         return "never reported" if value >= NEVER_REPORTED_AGE_H else f"{value:.1f} h since the newest reading"
-    if quantity in ("flat", "suspect", "failed"):
+    if quantity in _YES_NO:
         return "yes" if value >= 1 else "no"
     return f"{value:.{_DECIMALS.get(quantity, 2)}f}{_UNITS.get(quantity, '')}"
 

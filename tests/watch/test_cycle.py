@@ -315,7 +315,8 @@ def test_a_failed_ingest_raises_the_site_alert_notified_like_any_other_and_the_c
     report = run_cycle(workspace, clock, sections=["WC-040"], compute=_stand_in)
     assert report.ingest_failures == ["the ingest failed: RuntimeError: stand-in for an ingest bug"]
     assert [s.status for s in report.sections] == ["failed"] and not report.ok
-    assert report.site_changes == ["data-ingest: inactive -> pending at 1", "data-ingest: pending -> firing at 1"]
+    # A yes/no rule's changes carry no value (issue 15: values said in words, no bare marks).
+    assert report.site_changes == ["data-ingest: inactive -> pending", "data-ingest: pending -> firing"]
     with workspace.open_store(read_only=True) as store:
         (row,) = [r for r in store.outbox() if r["section_id"] == "(site)"]
     assert (row["kind"], row["level"], row["idempotency_key"]) == ("data", "data", "(site)/data-ingest/1/data")
@@ -324,7 +325,7 @@ def test_a_failed_ingest_raises_the_site_alert_notified_like_any_other_and_the_c
     monkeypatch.undo()
     clock.advance(STEP)
     again = run_cycle(workspace, clock, sections=["WC-040"], compute=_stand_in)
-    assert again.ingest_failures == [] and again.site_changes == ["data-ingest: firing -> resolved at 0"]
+    assert again.ingest_failures == [] and again.site_changes == ["data-ingest: firing -> resolved"]
 
 
 def test_an_unforeseen_error_preparing_one_section_fails_that_section_only(tmp_path, monkeypatch):
@@ -343,7 +344,7 @@ def test_an_unforeseen_error_preparing_one_section_fails_that_section_only(tmp_p
     first, second = report.sections
     assert first.status == "failed" and "unexpected error KeyError" in first.message
     assert second.message == "stand-in failure"  # it was prepared and calculated
-    assert "data-assessment: pending -> firing at 1" in first.changes
+    assert "data-assessment: pending -> firing" in first.changes
 
 
 def test_assess_exits_non_zero_when_a_section_failed(tmp_path, monkeypatch):
