@@ -253,7 +253,9 @@ def _announce(store: Store, settings: AlertSettings, announcement: Announcement,
                    "value": x.value, "value_text": value_text(x.value, rule_of[x.rule_name].rule.quantity),
                    "old_state": x.old.value, "new_state": x.new.value, "episode": x.episode}
                   for x in announcement.transitions],
-        "expectation": _expectation(announcement.kind, level, standing, settings),
+        "still_firing": list(announcement.still_firing),
+        "expectation": _expectation(announcement.kind, level, standing, settings,
+                                    bool(announcement.still_firing)),
         **context.facts(),
     }  # fmt: skip
     queued = store.queue_notification({
@@ -320,7 +322,7 @@ def _message(announcement: Announcement, rule_of: dict, level, standing: list[Se
     name = context.section_id + (f" ({context.section_name})" if context.section_name else "")
     standing_words = ", ".join(dict.fromkeys(r.rule.level for r in standing)) or "none"
     key = "data resolved" if kind == "resolved" and rule.kind == "data" else kind
-    if kind == "resolved" and standing and rule.kind == "level":
+    if kind == "resolved" and announcement.still_firing:
         key = "level stands"  # this rule cleared, another of its level still fires
     headline = _HEADLINES[key].format(level=level.name.upper(), standing=standing_words.upper())
     happened = [happening(rule_of[x.rule_name], x) for x in announcement.transitions]
@@ -334,7 +336,7 @@ def _message(announcement: Announcement, rule_of: dict, level, standing: list[Se
         what = "cleared" if x.new is AlertState.RESOLVED else "triggered"
         lines.append(f"Rule {x.rule_name} {what}: {words}.")
     if key == "level stands":
-        lines.append(f"Still firing at level {level.name}: " + ", ".join(announcement.also_told) + ".")
+        lines.append(f"Still firing at level {level.name}: " + ", ".join(announcement.still_firing) + ".")
     if context.section_id == SITE_ALERTS:
         lines.append(f"What failed: {context.message or 'nothing any more'}.")
     elif context.fos is not None:
@@ -356,13 +358,14 @@ def _message(announcement: Announcement, rule_of: dict, level, standing: list[Se
         lines.append(f"Data age: newest readings {min(ages)[0]:.1f} h old; oldest {oldest:.1f} h ({which}).")
     if missing:
         lines.append(f"No reading at all from {', '.join(missing)}.")
-    lines.append(f"What is expected of you: {_expectation(kind, level, standing, None)}")
+    lines.append("What is expected of you: "
+                 + _expectation(kind, level, standing, None, bool(announcement.still_firing)))
     lines.append(CAUTION)
     return subject, "\n".join(lines)
 
 
-def _expectation(kind: str, level, standing: list, settings) -> str:
-    if kind == "resolved" and standing:  # one rule resolved, its level still stands
+def _expectation(kind: str, level, standing: list, settings, stands: bool = False) -> str:
+    if kind == "resolved" and stands:  # one rule resolved, its level still stands
         return "the level still stands: " + (level.expectation or "review the slope's readings and trend.")
     if kind == "resolved":
         return ("nothing more for this alert; close any inspection request still open once the "

@@ -301,13 +301,15 @@ class Announcement:
     """A notification due for a transition: kind is one of firing, escalated, resolved,
     de-escalated, data (a data-quality alert firing); ``also_told`` lists alerts that the
     message reports as standing (a de-escalation names the level that still fires), which
-    count as notified from then on; ``together`` holds the other transitions of the same kind
+    count as notified from then on; ``still_firing`` names the rules by which a resolved rule's
+    level still stands (the section's highest level); ``together`` holds the other transitions of the same kind
     and level in the same cycle, announced in this one message (and one inspection request)."""
 
     transition: Transition
     kind: str
     also_told: tuple[str, ...] = ()
     together: tuple[Transition, ...] = ()
+    still_firing: tuple[str, ...] = ()  # a resolution's level still stands by these rules
 
     @property
     def transitions(self) -> tuple[Transition, ...]:
@@ -320,9 +322,9 @@ def announcements(transitions: list[Transition], alerts: dict[str, AlertView]) -
 
     Rules (issue 6): one notification per state change that people must hear about, and one
     for all the rules of one level that change alike in one cycle (issue 15: two amber rules
-    firing together are one message and one inspection request; one rule of a level resolving
-    while another rule of that level still fires is announced with the rules that stand, so
-    that nobody reads the level as over); a firing
+    firing together are one message and one inspection request; one rule of the section's
+    highest level resolving while another rule of that level still fires is announced with the
+    rules that stand, so that nobody reads the level as over); a firing
     of the owner's levels is suppressed while a higher level of the section fires (it is
     reported as "escalated" when a lower level had been announced); a shelved alert's firing
     is held until it is un-shelved; every firing that was announced gets its resolution
@@ -358,11 +360,11 @@ def announcements(transitions: list[Transition], alerts: dict[str, AlertView]) -
             told.discard(transition.rule_name)
             same = [a.rule_name for a in levels if a.state is AlertState.FIRING
                     and a.rank == transition.rank and a.rule_name != transition.rule_name]
-            if view.kind == "level" and same:
-                # This rule's alarm is over, but its level still stands by another rule: the
-                # message names those (``also_told``) instead of saying the level cleared.
-                result.append(Announcement(transition, "resolved", tuple(same)))
-                told.update(same)
+            if view.kind == "level" and same and top == transition.rank:
+                # This rule's alarm is over, but the section's level still stands by another
+                # rule: the message names those (``still_firing``) instead of saying the level
+                # cleared.
+                result.append(Announcement(transition, "resolved", still_firing=tuple(same)))
                 continue
             standing = sorted(
                 (a for a in levels if a.state is AlertState.FIRING and a.rank < transition.rank
@@ -390,5 +392,8 @@ def _together(result: list[Announcement], alerts: dict[str, AlertView]) -> list[
             continue
         also = tuple(dict.fromkeys(n for n in (*first.also_told, *item.also_told)
                                    if n not in {t.rule_name for t in (*first.transitions, item.transition)}))
-        merged[key] = replace(first, also_told=also, together=(*first.together, item.transition))
+        gone = {t.rule_name for t in (*first.transitions, item.transition)}
+        still = tuple(n for n in dict.fromkeys((*first.still_firing, *item.still_firing)) if n not in gone)
+        merged[key] = replace(first, also_told=also, together=(*first.together, item.transition),
+                              still_firing=still)
     return list(merged.values())
