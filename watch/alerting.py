@@ -403,7 +403,7 @@ _DECIMALS = {"fos": 2, "head_m": 2, "rise_m_per_h": 3, "rain_mm": 1, "rain_id_ra
 
 
 #: Quantities that are a yes (1) or a no (0).
-_YES_NO = ("flat", "suspect", "failed")
+_YES_NO = ("flat", "suspect", "failed", "section_file")
 
 
 def value_text(value, quantity: str) -> str:

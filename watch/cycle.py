@@ -28,7 +28,7 @@ import math
 import shutil
 import time
 from collections import Counter
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
@@ -54,12 +54,12 @@ from watch.errors import BusyError, UserError
 from watch.executors import InProcessExecutor, SectionExecutor, SectionFailure, executor_for
 from watch.groundwater import rate_of_rise
 from watch.ingest import ingest, record_first_look
-from watch.parameters import current_section
+from watch.parameters import current_section, follow_section_file
 from watch.rainfall import DEFAULT_DRY_GAP_H, event_exceedance, rain_record_reach, window_totals
 from watch.store import Store, parse_utc_text, utc_text
 from watch.text import printable
-from watch.triggers import (NEVER_REPORTED_AGE_H, RAIN_CURVES, SITE_ALERTS, AlertSettings, SectionRule,
-                            alert_settings, section_gauge)
+from watch.triggers import (NEVER_REPORTED_AGE_H, RAIN_CURVES, SECTION_FILE_RULE, SITE_ALERTS, AlertSettings,
+                            SectionRule, alert_settings, section_gauge)
 from watch.waterlines import section_with_lines, store_water_lines, water_lines_from_store
 from watch.workspace import Workspace
 
@@ -372,6 +372,7 @@ class _Calculation:
     inputs: dict = field(default_factory=dict)
     inputs_key: str = ""
     live: bool = True
+    file_problem: str | None = None  # what is wrong with the section file (the last valid version runs)
 
 
 @dataclass(frozen=True)
@@ -436,7 +437,9 @@ def _record_section(store: Store, config, settings: AlertSettings, section_id: s
     alerts of one section, inside the caller's transaction. ``seconds``: the preparation and
     calculation time so far (the time spent waiting for a worker is not the section's)."""
     started = time.perf_counter() - seconds
-    rules = settings.rules_for(config, section_id)
+    rules = [replace(r, description=f"section file problem: {calc.file_problem}")
+             if r.rule.name == SECTION_FILE_RULE and calc.file_problem else r
+             for r in settings.rules_for(config, section_id)]  # fmt: skip
     context = _context(store, config, settings, section_id, calc, at, gauges)
     values = {r.rule.name: _observe(store, r, calc, context, at, gauges) for r in rules}
     outcome = SectionOutcome(
@@ -469,6 +472,10 @@ def _prepare(workspace, store: Store, config, settings: AlertSettings, section_i
     is settled without one (inputs could not be prepared, or unchanged since its last
     assessment). Any library error becomes a failed calculation."""
     try:
+        check = follow_section_file(workspace, store, section_id, now, config=config)
+        if check.version_id is None:
+            return _Calculation("failed", message=f"inputs could not be prepared: {check.problem}",
+                                file_problem=check.problem), None  # fmt: skip
         section, version_id = current_section(workspace, store, section_id, now, config=config)
         lines = water_lines_from_store(store, section, config, at)
     except (UserError, SolverError) as error:
@@ -476,7 +483,12 @@ def _prepare(workspace, store: Store, config, settings: AlertSettings, section_i
     except Exception as error:  # noqa: BLE001 - one section's unforeseen error must not stop the others
         return _Calculation("failed", message=f"inputs could not be prepared (unexpected error "
                                               f"{type(error).__name__}: {error})"), None  # fmt: skip
-    calc = _Calculation("pending", section=section, version_id=version_id, lines=lines)
+    calc = _Calculation("pending", section=section, version_id=version_id, lines=lines,
+                        file_problem=check.problem)
+    if check.new_version is not None:
+        calc.warnings.append(f"section file {check.file} changed: parameter version {check.new_version}")
+    if check.problem is not None:
+        calc.warnings.append(f"section file problem: {check.problem}")
     instrumented = {p.water_line for p in config.piezometers_of(section_id)}
     for name, line in lines.items():
         if line.fallback != "none":
@@ -659,6 +671,8 @@ def _observe(store: Store, rule: SectionRule, calc: _Calculation, context: Secti
     at_text = utc_text(at)
     if quantity == "fos":
         return calc.fos if calc.status == "ok" else None
+    if quantity == "section_file":
+        return 1.0 if calc.file_problem else 0.0
     if quantity == "failed":
         if calc.status in ("unchanged", ON_DESIGN_LINES):
             return None

@@ -943,7 +943,7 @@ def _prepare(workspace: Workspace, store: Store, config: SiteConfig, section_id:
     from watch.parameters import current_section  # the back-analysis issue's module
 
     at = _utc(at)
-    section, version_id = current_section(workspace, store, section_id, config=config)
+    section, version_id = current_section(workspace, store, section_id, at, config=config)
     on_lines = {line.name for line in section.water_lines}
     piezometers = [p for p in config.piezometers_of(section_id) if p.water_line in on_lines]
     if not piezometers:

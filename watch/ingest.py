@@ -166,7 +166,7 @@ def ingest(workspace: Workspace, files: list[Path | str] | None = None, now: dat
         config = workspace.config()
         with workspace.open_store() as store:
             with store.atomic():
-                store.sync_site(config)
+                store.sync_site(config, utc_text(now))
             report.reconciled = reconcile(workspace, store)
             if files:
                 claims = [_claim_named(workspace, Path(f)) for f in files]

@@ -3,15 +3,20 @@ used, and where they came from.
 
 Every section has a history of parameter versions in the store's ``section_versions`` table
 (the section as ``solver.section.section_to_dict`` JSON, a checksum, a provenance line and the
-time it was recorded). The newest version is the one in force. Before any version is stored
-the section file listed in site.toml is the section, and the first use records it as version 1
-with provenance "section file <path>". A back-analysis (:func:`calibrate`) adds a version
-whose provenance names the case, the failure date and who ran it; earlier assessments keep
-the version id they recorded, so their inputs can always be recovered.
+time it was recorded, by the caller's clock) and the digest of the section file it rests on.
+The newest version is the one in force. Versions follow the section file listed in site.toml
+(:func:`follow_section_file`, run by every cycle): the first use records it as version 1, and
+every change of the file's content becomes a new version with provenance "section file <path>
+(sha256 <digest>, seen <time>)"; a missing or invalid file keeps the last valid version in
+force. A back-analysis (:func:`calibrate`) adds a version whose provenance names the case, the
+failure date and who ran it; it stays in force until the section file is edited, when the file
+wins. Earlier assessments keep the version id they recorded, so their inputs can always be
+recovered.
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 import math
 from dataclasses import dataclass
@@ -22,13 +27,15 @@ from solver.backcalc import with_strength
 from solver.section import Section, section_from_dict, section_to_dict
 from watch.config import SiteConfig
 from watch.errors import ConfigError, StoreError
-from watch.sections import load_section
+from watch.sections import read_section_file
 from watch.store import Store, utc_text
 from watch.workspace import Workspace
 
 __all__ = [
     "SectionVersion",
     "Calibration",
+    "SectionFileCheck",
+    "follow_section_file",
     "current_section",
     "section_version",
     "section_history",
@@ -60,20 +67,108 @@ class SectionVersion:
         )  # fmt: skip
 
 
+@dataclass(frozen=True)
+class SectionFileCheck:
+    """What :func:`follow_section_file` found.
+
+    ``version_id``: row id of the version in force afterwards (None: no valid version at all);
+    ``new_version``: the version number recorded from the file by this check, or None;
+    ``problem``: what is wrong with the file (missing, unreadable, invalid, another id),
+    naming the file, or None; ``file``: the file as site.toml lists it.
+    """
+
+    section_id: str
+    file: str
+    version_id: int | None
+    new_version: int | None = None
+    problem: str | None = None
+
+
+def follow_section_file(workspace: Workspace, store: Store, section_id: str, now: datetime, *,
+                        config: SiteConfig | None = None) -> SectionFileCheck:  # fmt: skip
+    """Make the parameter version in force follow the section file (writing store; inside or
+    outside an open transaction).
+
+    The file that site.toml lists for the section is read and the SHA-256 digest of its bytes
+    compared with the digest the newest version rests on. When they differ, the file's section
+    becomes a new version, with provenance "section file <path> (sha256 <digest>, seen <now>)"
+    and ``created_utc`` = ``now`` (the cycle's clock). Any change of the file's bytes counts.
+
+    What wins after a calibration: the file, when it is edited later. A calibrated version
+    (:func:`calibrate`) rests on the digest of the file version it was calibrated from, so it
+    stays in force while the file is unchanged; once the file is edited, the edited file is
+    the version in force and the back-calculated strength is not carried over (the new
+    version's provenance names the calibrated version it replaces). Calibrate again to apply
+    the back-analysis to the edited file.
+
+    A missing, unreadable or invalid file, or one whose [section] id differs, changes nothing:
+    the newest valid version stays in force and ``problem`` says what is wrong. Raises
+    ConfigError only when site.toml does not list the section.
+    """
+    if config is None:
+        config = workspace.config()
+    ref = config.section(section_id)
+    latest = store.latest_section_version(section_id)
+    path = workspace.root / ref.file
+    try:
+        section, digest = read_section_file(path)
+        if section.id != section_id:
+            raise ConfigError(f"{path}: [section] id = {section.id!r}, but site.toml lists this file "
+                              f"for section {section_id!r}; make them agree")  # fmt: skip
+    except ConfigError as error:
+        kept = ("no valid version is stored yet" if latest is None else
+                f"version {latest['version']} ({latest['provenance']}) stays in force")
+        return SectionFileCheck(section_id, ref.file, None if latest is None else latest["id"],
+                                problem=f"{error}; {kept}")  # fmt: skip
+    if latest is not None and latest["file_sha256"] == digest:
+        return SectionFileCheck(section_id, ref.file, latest["id"])
+
+    def record() -> SectionFileCheck:
+        if latest is not None and latest["file_sha256"] is None and _rests_on_file(store, latest, section):
+            # Stored before versions recorded their file's digest (migration 8): the version in
+            # force is taken to rest on the file as it is now.
+            store.set_version_file_digest(latest["id"], digest)
+            return SectionFileCheck(section_id, ref.file, latest["id"])
+        # A section added to site.toml after the last sync has no row yet to refer to.
+        if store.conn.execute("SELECT 1 FROM sections WHERE id = ?", (section_id,)).fetchone() is None:
+            store.sync_site(config, utc_text(now))
+        provenance = f"section file {ref.file} (sha256 {digest[:12]}, seen {utc_text(now)})"
+        if latest is not None and _calibrated(store, latest):
+            provenance += (f"; edited after calibrated version {latest['version']}, whose "
+                           "back-calculated strength is not carried over")  # fmt: skip
+        version = store.record_section_version(section_id, section_to_dict(section), provenance,
+                                               utc_text(now), file_sha256=digest)  # fmt: skip
+        return SectionFileCheck(section_id, ref.file, store.latest_section_version(section_id)["id"], version)
+
+    if store.conn.in_transaction:
+        return record()
+    with store.atomic():
+        return record()
+
+
+def _rests_on_file(store: Store, row: dict, section: Section) -> bool:
+    """Whether a version stored without a file digest is the file's section or calibrated."""
+    text = json.dumps(section_to_dict(section), sort_keys=True, default=str)
+    return row["checksum"] == hashlib.sha256(text.encode()).hexdigest() or _calibrated(store, row)
+
+
+def _calibrated(store: Store, row: dict) -> bool:
+    return any(c["section_version_id"] == row["id"] for c in store.calibration_rows(row["section_id"]))
+
+
 def current_section(
     workspace: Workspace, store: Store, section_id: str, now: datetime | None = None, *,
     config: SiteConfig | None = None,
 ) -> tuple[Section, int | None]:
     """The section with its parameter version in force, and that version's row id.
 
-    The newest stored version of ``section_id``; when none is stored yet, the section file
-    that site.toml lists for it, which is then recorded as version 1 with provenance
-    "section file <path>" (at ``now``, default the time of writing). Works inside or outside
-    an open transaction of ``store``. A read-only store cannot record the first version: the
-    section file is returned with version id None, and the caller must not claim a version.
-    ``config`` is site.toml as already loaded by a caller that handles many sections (a
-    cycle reads it once: reading it again for every new section made the first cycle of a
-    large network quadratic in its size); None reads it here.
+    The newest stored version of ``section_id`` (the cycle makes it follow the section file
+    first: :func:`follow_section_file`); when none is stored yet, the section file that
+    site.toml lists for it, which is then recorded as version 1 (at ``now``, required then).
+    Works inside or outside an open transaction of ``store``. A read-only store cannot record
+    the first version: the section file is returned with version id None, and the caller must
+    not claim a version. ``config`` is site.toml as already loaded by a caller that handles
+    many sections; None reads it here.
 
     Raises ConfigError when site.toml does not list the section, its file is invalid, or the
     file's [section] id differs from ``section_id``; StoreError for a stored version that no
@@ -85,29 +180,20 @@ def current_section(
     if config is None:
         config = workspace.config()
     ref = config.section(section_id)
-    section = load_section(workspace.root / ref.file)
-    if section.id != section_id:
-        raise ConfigError(
-            f"{workspace.root / ref.file}: [section] id = {section.id!r}, but site.toml lists "
-            f"this file for section {section_id!r}; make them agree"
-        )
     if store.read_only:
+        section, _ = read_section_file(workspace.root / ref.file)
+        if section.id != section_id:
+            raise ConfigError(f"{workspace.root / ref.file}: [section] id = {section.id!r}, but site.toml "
+                              f"lists this file for section {section_id!r}; make them agree")  # fmt: skip
         return section, None
-    def record() -> int:
-        # A section added to site.toml after the last sync has no row yet for the version
-        # to refer to.
-        if store.conn.execute("SELECT 1 FROM sections WHERE id = ?", (section_id,)).fetchone() is None:
-            store.sync_site(config)
-        store.record_section_version(
-            section_id, section_to_dict(section), f"section file {ref.file}",
-            utc_text(now) if now is not None else None,
-        )
-        return store.latest_section_version(section_id)["id"]
-
-    if store.conn.in_transaction:
-        return section, record()
-    with store.atomic():
-        return section, record()
+    if now is None:
+        raise StoreError(f"section {section_id} has no stored version yet, and no time was given to "
+                         "record its file as version 1")  # fmt: skip
+    check = follow_section_file(workspace, store, section_id, now, config=config)
+    if check.problem is not None:
+        raise ConfigError(check.problem)
+    row = store.section_version_row(check.version_id)
+    return _section_of(row), row["id"]
 
 
 def section_version(store: Store, version_id: int) -> tuple[Section, SectionVersion]:
@@ -211,7 +297,9 @@ def calibrate(
     done = []
     with store.atomic():
         for section_id in sections:
+            follow_section_file(workspace, store, section_id, now)
             section, previous_id = current_section(workspace, store, section_id, now=now)
+            base = store.section_version_row(previous_id)
             if material not in {m.name for m in section.materials}:
                 raise ConfigError(
                     f"section {section_id!r} has no material {material!r} (known: "
@@ -223,8 +311,11 @@ def calibrate(
                 new_section = with_strength(section, material, **strength)
             except SectionError as error:
                 raise ConfigError(f"section {section_id!r}: {error}") from None
+            # The calibrated version rests on the same file as its base: it stays in force
+            # until the file is edited (follow_section_file).
             version = store.record_section_version(
-                section_id, section_to_dict(new_section), provenance, utc_text(now)
+                section_id, section_to_dict(new_section), provenance, utc_text(now),
+                file_sha256=base["file_sha256"],
             )
             row = store.latest_section_version(section_id)
             calibration_id = store.add_calibration({

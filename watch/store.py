@@ -436,6 +436,34 @@ MIGRATIONS: list[tuple[int, str, str]] = [
         CREATE INDEX superseded_values_key ON superseded_values(instrument_id, time_utc);
         """,
     ),
+    (
+        8,
+        "section files and service states",
+        """
+        -- The digest of the section file each parameter version rests on: a file whose content
+        -- changed becomes a new version (watch.parameters.follow_section_file); a calibrated
+        -- version carries the digest of the file version it was calibrated from.
+        ALTER TABLE section_versions ADD COLUMN file_sha256 TEXT;
+        -- The expiry of a 'shelved' event, so that an alert's state at any past time can be
+        -- rebuilt from its events alone (watch.alert_history).
+        ALTER TABLE alert_events ADD COLUMN until_utc TEXT;
+        -- Service state of each section, set by an engineer: 'in-service', 'slipped',
+        -- 'closed', 'under-repair'. The newest row at or before a time is the state then; a
+        -- section without rows is in service. section_version_id: the version in force when
+        -- the state was set (a slipped section returns to service on a newer one).
+        CREATE TABLE service_states (
+            id INTEGER PRIMARY KEY,
+            section_id TEXT NOT NULL,
+            state TEXT NOT NULL CHECK (state IN ('in-service', 'slipped', 'closed', 'under-repair')),
+            time_utc TEXT NOT NULL,
+            by_name TEXT NOT NULL,
+            note TEXT NOT NULL,
+            section_version_id INTEGER REFERENCES section_versions(id),
+            created_utc TEXT NOT NULL
+        );
+        CREATE INDEX service_states_section ON service_states(section_id, time_utc);
+        """,
+    ),
 ]
 
 _READING_COLUMNS = (
@@ -611,9 +639,10 @@ class Store:
 
     # --- configuration ------------------------------------------------------------------------
 
-    def sync_site(self, config) -> None:
-        """Record the site, its sections and instruments as configured now (inside atomic())."""
-        now = _now_text()
+    def sync_site(self, config, updated_utc: str) -> None:
+        """Record the site, its sections and instruments as configured at ``updated_utc``
+        (the caller's clock; inside atomic())."""
+        now = updated_utc
         self.conn.execute(
             "INSERT INTO sites (id, name, owner, time_zone, updated_utc) VALUES (?, ?, ?, ?, ?) "
             "ON CONFLICT (id) DO UPDATE SET name = excluded.name, owner = excluded.owner, "
@@ -636,27 +665,48 @@ class Store:
                 (item.id, item.kind, getattr(item, "section", None), _config_json(item), now),
             )
 
-    def record_section_version(
-        self, section_id: str, parameters: dict, provenance: str, created_utc: str | None = None
-    ) -> int:
-        """Store the section's parameters as a new version when they changed; return the
-        version number in force (inside atomic()). ``created_utc`` defaults to now."""
+    def record_section_version(self, section_id: str, parameters: dict, provenance: str, created_utc: str,
+                               file_sha256: str | None = None) -> int:  # fmt: skip
+        """Store the section's parameters as a new version when they, or the digest of the
+        section file they rest on, differ from the newest version's; return the version number
+        in force (inside atomic()). ``created_utc``: the caller's clock."""
         text = json.dumps(parameters, sort_keys=True, default=str)
         checksum = hashlib.sha256(text.encode()).hexdigest()
         last = self.conn.execute(
-            "SELECT version, checksum FROM section_versions WHERE section_id = ? "
+            "SELECT version, checksum, file_sha256 FROM section_versions WHERE section_id = ? "
             "ORDER BY version DESC LIMIT 1",
             (section_id,),
         ).fetchone()
-        if last and last[1] == checksum:
+        if last and last[1] == checksum and (file_sha256 is None or last[2] == file_sha256):
             return last[0]
         version = (last[0] + 1) if last else 1
         self.conn.execute(
             "INSERT INTO section_versions (section_id, version, parameters_json, checksum, "
-            "provenance, created_utc) VALUES (?, ?, ?, ?, ?, ?)",
-            (section_id, version, text, checksum, provenance, created_utc or _now_text()),
+            "provenance, created_utc, file_sha256) VALUES (?, ?, ?, ?, ?, ?, ?)",
+            (section_id, version, text, checksum, provenance, created_utc, file_sha256),
         )
         return version
+
+    def set_version_file_digest(self, version_id: int, file_sha256: str) -> None:
+        """Note the section-file digest of a version stored before migration 8 (inside atomic())."""
+        self.conn.execute("UPDATE section_versions SET file_sha256 = ? WHERE id = ?", (file_sha256, version_id))
+
+    # --- service states of sections (migration 8; watch.service) -------------------------------
+
+    def add_service_state(self, row: dict) -> int:
+        """Add a ``service_states`` row (inside atomic()); return its id."""
+        return self._insert_row("service_states", row)
+
+    def service_state_rows(self, section_id: str | None = None, at_or_before_utc: str | None = None) -> list[dict]:
+        """Service-state changes, in time order (of a section; up to a time)."""
+        sql, params = "SELECT * FROM service_states WHERE 1 = 1", []
+        if section_id is not None:
+            sql += " AND section_id = ?"
+            params.append(section_id)
+        if at_or_before_utc is not None:
+            sql += " AND time_utc <= ?"
+            params.append(at_or_before_utc)
+        return list(self.db.query(sql + " ORDER BY time_utc, id", params))
 
     # --- ingest (all inside atomic()) ---------------------------------------------------------
 
@@ -677,15 +727,15 @@ class Store:
         )
 
     def add_file(self, name: str, feed: str | None, sha256: str, size_bytes: int, archived_as: str,
-                 ingested_utc: str | None = None, purpose: str = "delivery", applied_by: str | None = None,
+                 ingested_utc: str, purpose: str = "delivery", applied_by: str | None = None,
                  note: str | None = None) -> int:  # fmt: skip
         """Record a file being ingested; ``ingested_utc`` is the ingest's clock time (a replay
-        passes its manual clock), else the system time. ``purpose``: 'delivery', 'correction'
+        passes its manual clock). ``purpose``: 'delivery', 'correction'
         (with who applied it and why) or 'reread' (migration 7)."""
         cursor = self.conn.execute(
             "INSERT INTO ingested_files (name, feed, sha256, size_bytes, status, archived_as, "
             "ingested_utc, purpose, applied_by, note) VALUES (?, ?, ?, ?, 'ingested', ?, ?, ?, ?, ?)",
-            (name, feed, sha256, size_bytes, archived_as, ingested_utc or _now_text(), purpose, applied_by, note),
+            (name, feed, sha256, size_bytes, archived_as, ingested_utc, purpose, applied_by, note),
         )
         return cursor.lastrowid
 
@@ -1256,6 +1306,23 @@ class Store:
         if alert_id is not None:
             sql, params = sql + " WHERE alert_id = ?", [alert_id]
         return list(self.db.query(sql + " ORDER BY id", params))
+
+    def alert_event_rows(self, start_utc: str | None = None, end_utc: str | None = None,
+                         section_id: str | None = None, alert_ids: Sequence[int] | None = None) -> list[dict]:  # fmt: skip
+        """Alert events in [start_utc, end_utc] (either open), in time order, each with its
+        alert's section, rule, kind, level and rank (``event_id`` is the event's row id)."""
+        sql = ("SELECT e.*, e.id AS event_id, a.section_id, a.rule, a.kind, a.level, a.rank, a.quantity "
+               "FROM alert_events e JOIN alerts a ON a.id = e.alert_id WHERE 1 = 1")
+        params: list = []
+        for clause, value in (("e.time_utc >= ?", start_utc), ("e.time_utc <= ?", end_utc),
+                              ("a.section_id = ?", section_id)):
+            if value is not None:
+                sql += f" AND {clause}"
+                params.append(value)
+        if alert_ids is not None:
+            sql += f" AND e.alert_id IN ({', '.join('?' * len(alert_ids))})"
+            params.extend(alert_ids)
+        return list(self.db.query(sql + " ORDER BY e.time_utc, e.id", params))
 
     def queue_notification(self, row: dict) -> int | None:
         """Add a ``notification_outbox`` row; an idempotency key already queued is left alone

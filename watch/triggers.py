@@ -36,6 +36,7 @@ __all__ = [
     "DATA_LEVEL",
     "SITE_ALERTS",
     "NEVER_REPORTED_AGE_H",
+    "SECTION_FILE_RULE",
     "Level",
     "TriggerSpec",
     "SectionRule",
@@ -72,6 +73,9 @@ NEVER_REPORTED_AGE_H = 1.0e6
 #: Section id under which the site's own data-quality alerts are stored (the watch itself
 #: failing: an ingest that could not read its files); not a [[section]] id.
 SITE_ALERTS = "(site)"
+
+#: Name of the data alert a section raises while its section file cannot be used.
+SECTION_FILE_RULE = "data-section-file"
 
 
 @dataclass(frozen=True)
@@ -262,6 +266,13 @@ class AlertSettings:
                     watched=f"suspect readings of {iid}",
                 ))  # fmt: skip
         if data.assessment:
+            file = config.section(section_id).file
+            rules.append(SectionRule(
+                TriggerRule(name=SECTION_FILE_RULE, quantity="section_file", trigger=1.0, clear=0.0,
+                            **common),
+                "data", description=f"section file {file} missing, unreadable or invalid (the last "
+                                    "valid parameter version stays in force)",
+            ))  # fmt: skip
             rules.append(SectionRule(
                 TriggerRule(name="data-assessment", quantity="failed", trigger=1.0, clear=0.0,
                             **common),

@@ -119,8 +119,11 @@ def init_workspace(directory: Path | str, site_template: Path | str | None = Non
     for folder in (workspace.root, *workspace.folders):
         folder.mkdir(parents=True, exist_ok=True)
     workspace.site_file.write_text(text, encoding="utf-8")
+    from watch.clock import SystemClock  # `slipwatch init` runs on the system clock
+    from watch.store import utc_text
+
     with workspace.open_store() as store, store.atomic():
-        store.sync_site(workspace.config())
+        store.sync_site(workspace.config(), utc_text(SystemClock().now()))
     return workspace
 
 

@@ -156,7 +156,8 @@ def fill_store(workspace, store, first: str, second: str) -> dict:
     store.record_section_version(first, section_to_dict(section), "section file sections/first.toml",
                                  utc_text(NOW - timedelta(days=DAYS + 1)))
     version_id = store.latest_section_version(first)["id"]
-    file_id = store.add_file("test_feed.csv", None, "0" * 64, 100, "processed/test_feed.csv")
+    file_id = store.add_file("test_feed.csv", None, "0" * 64, 100, "processed/test_feed.csv",
+                             utc_text(NOW - timedelta(days=DAYS)))
     start = NOW - timedelta(days=DAYS)
     hours = DAYS * 24
     readings, rain = [], []

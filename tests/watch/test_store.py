@@ -13,7 +13,8 @@ def _reading(instrument="P1", time="2026-10-01T00:00:00Z", raw=10.0, file_id=1, 
 
 
 def _file(store, name="a.csv", sha="s1"):
-    return store.add_file(name, "feed", sha, 10, archived_as=f"processed/{name}")
+    return store.add_file(name, "feed", sha, 10, archived_as=f"processed/{name}",
+                          ingested_utc="2026-10-01T06:00:00Z")
 
 
 def test_new_store_is_migrated_and_in_wal_mode(tmp_path):
@@ -121,9 +122,12 @@ def test_section_versions_change_only_with_parameters(tmp_path):
     with Store(tmp_path / "s.db") as store, store.atomic():
         store.conn.execute("INSERT INTO sites (id, updated_utc) VALUES ('s', 'x')")
         store.conn.execute("INSERT INTO sections (id, site_id, file, updated_utc) VALUES ('A', 's', 'a.toml', 'x')")
-        assert store.record_section_version("A", {"c": 5.0}, "sections/a.toml") == 1
-        assert store.record_section_version("A", {"c": 5.0}, "sections/a.toml") == 1
-        assert store.record_section_version("A", {"c": 4.0}, "back-analysis 2026-11-02") == 2
+        when = "2026-11-02T00:00:00Z"
+        assert store.record_section_version("A", {"c": 5.0}, "sections/a.toml", when, "d1") == 1
+        assert store.record_section_version("A", {"c": 5.0}, "sections/a.toml", when, "d1") == 1
+        assert store.record_section_version("A", {"c": 4.0}, "back-analysis 2026-11-02", when, "d1") == 2
+        # the same parameters from an edited file (another digest) are a new version
+        assert store.record_section_version("A", {"c": 4.0}, "sections/a.toml", when, "d2") == 3
 
 
 def test_utc_text_round_trip():
