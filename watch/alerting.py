@@ -18,6 +18,7 @@ from datetime import datetime, timedelta
 
 import pandas as pd
 
+from watch.alert_history import alerts_as_at
 from watch.alerts import (
     AlertRecord,
     AlertState,
@@ -52,6 +53,7 @@ __all__ = [
     "record_of",
     "value_text",
     "happening",
+    "record_json",
 ]
 
 #: Longest a person may shelve an alert for. Shelving is for a known nuisance (an instrument
@@ -134,7 +136,8 @@ def record_of(row: dict) -> AlertRecord:
     )  # fmt: skip
 
 
-def _record_json(record: AlertRecord) -> str:
+def record_json(record: AlertRecord) -> str:
+    """The ``state_json`` of a stored alert (the inverse of :func:`record_of`'s reading)."""
     text = lambda moment: None if moment is None else utc_text(moment)  # noqa: E731
     return json.dumps({
         "since": text(record.since), "condition_since": text(record.condition_since),
@@ -188,7 +191,7 @@ def process_section_alerts(
     ids = {}
     for name, (rule, record, transitions) in evaluated.items():
         row = rows.get(name)
-        state = {"state": record.state.value, "state_json": _record_json(record),
+        state = {"state": record.state.value, "state_json": record_json(record),
                  "episode": record.episode, "last_value": record.last_value,
                  "level": rule.rule.level, "rank": rule.rule.rank, "kind": rule.kind,
                  "quantity": rule.rule.quantity, "message": rule.description,
@@ -484,16 +487,18 @@ def _stored_context(store: Store, config: SiteConfig, section_id: str, now: date
     )  # fmt: skip
 
 
-def list_alerts(workspace: Workspace, clock: Clock, open_only: bool = False) -> list[dict]:
+def list_alerts(workspace: Workspace, clock: Clock, open_only: bool = False, at: datetime | None = None) -> list[dict]:
     """Every stored alert (open ones: pending or firing), worst first, with acknowledgement,
-    shelving and the number of state changes in the chattering window."""
+    shelving and the number of state changes in the chattering window; with ``at``, as they
+    stood then (rebuilt from their events: ``last_value`` is the value at the newest change)."""
     config = workspace.config()
     settings = alert_settings(config)
-    now = clock.now()
+    now = clock.now() if at is None else at
     window = timedelta(hours=settings.cycle.chatter_window_hours)
     states = [AlertState.PENDING.value, AlertState.FIRING.value] if open_only else None
     with workspace.open_store(read_only=True) as store:
-        rows = store.alert_rows(states=states)
+        rows = store.alert_rows(states=states) if at is None else [
+            r for r in alerts_as_at(store, at) if states is None or r["state"] in states]
     result = []
     for row in rows:
         record = record_of(row)
@@ -558,7 +563,8 @@ def shelve(workspace: Workspace, clock: Clock, alert_id: int, until: datetime, r
                                       "shelved_reason": reason, "shelved_utc": utc_text(now)})  # fmt: skip
         store.add_alert_event({"alert_id": alert_id, "time_utc": utc_text(now), "event": "shelved",
                                "episode": row["episode"], "by_name": by,
-                               "note": f"until {utc_text(until)}: {reason}", "created_utc": utc_text(now)})  # fmt: skip
+                               "note": f"until {utc_text(until)}: {reason}", "until_utc": utc_text(until),
+                               "created_utc": utc_text(now)})  # fmt: skip
         return store.alert_row(alert_id)
 
 

@@ -20,7 +20,12 @@ def register(group: click.Group) -> None:
 @click.option("--interval", type=float, metavar="MINUTES",
               help="Minutes between assessment cycles (default: [daemon] interval_minutes, 15).")  # fmt: skip
 @click.option("--once", is_flag=True, help="Run one cycle and deliver what is due, then exit.")
-def run(workspace: Path, interval: float | None, once: bool) -> None:
+@click.option("--at", "at", help="Run on a clock set to this time, ISO 8601 (UTC unless it carries an offset), "
+                                 "as `assess --at` does: one cycle and delivery at it, every record "
+                                 "carrying it, then exit (or step on with --until).")
+@click.option("--until", "until", help="With --at: step the clock on by the interval and run a cycle at each "
+                                       "step up to this time, ISO 8601.")
+def run(workspace: Path, interval: float | None, once: bool, at: str | None, until: str | None) -> None:
     """Watch the workspace: every interval ingest the feeds, assess every section, raise
     alerts and send the notifications due; in between, send grouped and retried messages.
     Logs to slipwatch.log in the workspace and to standard error. Stop with SIGTERM or
@@ -31,11 +36,16 @@ def run(workspace: Path, interval: float | None, once: bool) -> None:
     Example:
         slipwatch run --workspace /srv/slipwatch/quillmarsh --interval 10
         slipwatch run --once -w /srv/slipwatch/quillmarsh
+        slipwatch run --at 2026-01-14T00:00Z --until 2026-01-20T00:00Z --interval 360
     """
+    from watch.commands_watch import parse_time_option, clock_at
     from watch.daemon import run_daemon
     from watch.workspace import open_workspace
 
-    sys.exit(run_daemon(open_workspace(workspace), interval_minutes=interval, once=once, echo=True))
+    first = None if at is None else clock_at(at).now()  # refuses a time later than now
+    last = parse_time_option(until, "--until")
+    sys.exit(run_daemon(open_workspace(workspace), interval_minutes=interval, once=once, echo=True,
+                        at=first, until=last))  # fmt: skip
 
 
 @click.command()

@@ -128,23 +128,29 @@ def backup(destination: Path, workspace: Path) -> None:
 
 @click.command()
 @workspace_option
+@click.option("--at", "at", help="The state as it was at this time, ISO 8601 (UTC unless it carries an "
+                                 "offset), from the stored assessments and alert events [default: now].")
 @json_option
-def status(workspace: Path, as_json: bool) -> None:
-    """Show every section, worst first (factor of safety, level, trend, age of the newest
-    reading, open alerts and inspections, data problems), then each instrument's newest
-    reading, its age and whether it is stale, and the files waiting in incoming/.
+def status(workspace: Path, at: str | None, as_json: bool) -> None:
+    """Show every section, worst first (service state, factor of safety, level, trend, age of
+    the newest reading, open alerts and inspections, data problems), then each instrument's
+    newest reading, its age and whether it is stale, and the files waiting in incoming/.
 
     \b
     Example:
         slipwatch status --workspace /srv/slipwatch/quillmarsh --json
+        slipwatch status --at 2026-01-16T06:00Z
     """
     from watch.caution import CAUTION
     from watch.clock import SystemClock
     from watch.ingest import workspace_status
     from watch.section_status import format_sections, sections_status
+    from watch.store import parse_utc_text
     from watch.workspace import open_workspace
 
-    ws, now = open_workspace(workspace), SystemClock().now()
+    moment = _utc_option(at, "--at")
+    ws = open_workspace(workspace)
+    now = SystemClock().now() if moment is None else parse_utc_text(moment)
     result = workspace_status(ws, now)
     result["sections"] = sections_status(ws, now)
     if as_json:

@@ -14,11 +14,11 @@ from watch.errors import UserError
 
 
 def register(group: click.Group) -> None:
-    for command in (assess, alerts, inspections):
+    for command in (assess, alerts, inspections, section_state):
         group.add_command(command)
 
 
-def _time_option(text: str | None, option: str) -> datetime | None:
+def parse_time_option(text: str | None, option: str) -> datetime | None:
     if text is None:
         return None
     try:
@@ -28,10 +28,31 @@ def _time_option(text: str | None, option: str) -> datetime | None:
     return (moment if moment.tzinfo else moment.replace(tzinfo=timezone.utc)).astimezone(timezone.utc)
 
 
+def clock_at(text: str | None, option: str = "--at"):
+    """The clock of a command: the system clock, or with ``--at T`` a clock standing at T, so
+    that every record the command writes carries T (T must not be later than now)."""
+    from watch.clock import ManualClock, SystemClock
+
+    moment = parse_time_option(text, option)
+    if moment is None:
+        return SystemClock()
+    now = SystemClock().now()
+    if moment > now:
+        raise UserError(f"{option} {text!r} is later than now ({now:%Y-%m-%dT%H:%M:%SZ})")
+    return ManualClock(moment)
+
+
+def _at_option(function):
+    return click.option("--at", "at", help="Do it as at this time, ISO 8601 (UTC unless it carries an "
+                                           "offset): every record written carries it; default now.")(function)  # fmt: skip
+
+
 @click.command()
 @click.option("--section", "sections", multiple=True, help="Section id to assess (repeatable).")
 @click.option("--all", "every", is_flag=True, help="Assess every section, with a progress bar.")
-@click.option("--at", "at", help="Time to assess, ISO 8601 (UTC unless it carries an offset); default now.")
+@click.option("--at", "at", help="Assess as at this time, ISO 8601 (UTC unless it carries an offset): the "
+                                 "cycle runs on a clock set to it, so every record it writes (alerts, "
+                                 "inspections, notifications, versions, ingest) carries it; default now.")
 @click.option("--cluster", help="Calculate on Dask: a scheduler address (tcp://HOST:8786) or local:N for "
                                 "a local cluster of N workers; default the site file's [cycle] cluster.")
 @click.option("--workers", type=int, help="Calculate in a local pool of N processes.")
@@ -48,11 +69,11 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str 
     Example:
         slipwatch assess --all -w /srv/slipwatch/quillmarsh
         slipwatch assess --section WC-040 --json
+        slipwatch assess --all --at 2026-01-16T06:00Z
         slipwatch assess --all --workers 2
         slipwatch assess --all --cluster tcp://10.0.0.5:8786
     """
     from watch.assessment_status import status_words
-    from watch.clock import SystemClock
     from watch.cycle import cycle_executor, run_cycle
     from watch.caution import CAUTION
     from watch.workspace import open_workspace
@@ -60,7 +81,7 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str 
     if not sections and not every:
         raise UserError("say what to assess: --section ID (repeatable) or --all")
     opened = open_workspace(workspace)
-    report = run_cycle(opened, SystemClock(), sections=list(sections) or None, at=_time_option(at, "--at"),
+    report = run_cycle(opened, clock_at(at), sections=list(sections) or None,
                        progress=every and not as_json, executor=cycle_executor(opened, cluster, workers))  # fmt: skip
     if as_json:
         echo_json(report.to_dict() | {"ok": report.ok, "caution": CAUTION})
@@ -96,16 +117,19 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str 
 
 @click.group(invoke_without_command=True)
 @click.option("--open", "open_only", is_flag=True, help="Only alerts that are pending or firing.")
+@click.option("--at", "at", help="The alerts as they stood at this time, ISO 8601, rebuilt from their "
+                                 "stored events [default: now, as stored].")
 @workspace_option
 @json_option
 @click.pass_context
-def alerts(ctx: click.Context, open_only: bool, workspace: Path, as_json: bool) -> None:
+def alerts(ctx: click.Context, open_only: bool, at: str | None, workspace: Path, as_json: bool) -> None:
     """List the alerts, worst first: state, level, value, acknowledgement, shelving and
-    chattering. Subcommands acknowledge and shelve.
+    chattering. Subcommands acknowledge, shelve, close and list the history.
 
     \b
     Example:
         slipwatch alerts --open
+        slipwatch alerts --at 2026-01-16T06:00Z
         slipwatch alerts ack 12 --by "J. Ferrand" --note "inspection booked"
     """
     if ctx.invoked_subcommand is not None:
@@ -114,7 +138,7 @@ def alerts(ctx: click.Context, open_only: bool, workspace: Path, as_json: bool) 
     from watch.clock import SystemClock
     from watch.workspace import open_workspace
 
-    rows = list_alerts(open_workspace(workspace), SystemClock(), open_only=open_only)
+    rows = list_alerts(open_workspace(workspace), SystemClock(), open_only=open_only, at=parse_time_option(at, "--at"))
     if as_json:
         echo_json(rows)
         return
@@ -135,9 +159,10 @@ def alerts(ctx: click.Context, open_only: bool, workspace: Path, as_json: bool) 
 @click.argument("alert_id", type=int)
 @click.option("--by", required=True, help="Who acknowledges.")
 @click.option("--note", default="", help="What is being done about it.")
+@_at_option
 @workspace_option
 @json_option
-def ack(alert_id: int, by: str, note: str, workspace: Path, as_json: bool) -> None:
+def ack(alert_id: int, by: str, note: str, at: str | None, workspace: Path, as_json: bool) -> None:
     """Acknowledge a pending or firing alert (who, when, note). It keeps being evaluated.
 
     \b
@@ -145,10 +170,9 @@ def ack(alert_id: int, by: str, note: str, workspace: Path, as_json: bool) -> No
         slipwatch alerts ack 12 --by "J. Ferrand" --note "inspection booked for 14:00"
     """
     from watch.alerting import acknowledge
-    from watch.clock import SystemClock
     from watch.workspace import open_workspace
 
-    row = acknowledge(open_workspace(workspace), SystemClock(), alert_id, by, note)
+    row = acknowledge(open_workspace(workspace), clock_at(at), alert_id, by, note)
     if as_json:
         echo_json(row)
     else:
@@ -174,7 +198,7 @@ def shelve_command(alert_id: int, until: str, reason: str, by: str, workspace: P
     from watch.clock import SystemClock
     from watch.workspace import open_workspace
 
-    row = shelve(open_workspace(workspace), SystemClock(), alert_id, _time_option(until, "--until"), reason, by)
+    row = shelve(open_workspace(workspace), SystemClock(), alert_id, parse_time_option(until, "--until"), reason, by)
     if as_json:
         echo_json(row)
     else:
@@ -227,22 +251,146 @@ def inspections(ctx: click.Context, open_only: bool, csv_path: Path | None, work
 @click.argument("inspection_id", type=int)
 @click.option("--note", required=True, help="What was found and done.")
 @click.option("--by", required=True, help="Who inspected.")
+@_at_option
 @workspace_option
 @json_option
-def close(inspection_id: int, note: str, by: str, workspace: Path, as_json: bool) -> None:
+def close(inspection_id: int, note: str, by: str, at: str | None, workspace: Path, as_json: bool) -> None:
     """Close an inspection request with what was found.
 
     \b
     Example:
         slipwatch inspections close 3 --note "no new cracks; toe drain cleared" --by "A. Marsh"
     """
-    from watch.clock import SystemClock
     from watch.inspections import close_inspection
     from watch.workspace import open_workspace
 
-    row = close_inspection(open_workspace(workspace), SystemClock(), inspection_id, note, by)
+    row = close_inspection(open_workspace(workspace), clock_at(at), inspection_id, note, by)
     if as_json:
         echo_json(row)
     else:
         click.echo(f"inspection request {inspection_id} ({row['section_id']}) closed by {by}")
 
+
+
+@alerts.command("close")
+@click.argument("alert_id", type=int)
+@click.option("--by", required=True, help="Who closes it.")
+@click.option("--note", required=True, help="Why: what was found and done.")
+@click.option("--at", "at", help="When it was closed, ISO 8601 [default: now]; the time it is recorded is kept too.")
+@workspace_option
+@json_option
+def close_alert_command(alert_id: int, by: str, note: str, at: str | None, workspace: Path, as_json: bool) -> None:
+    """Close an open alert of a section that is not in service (slipped, closed, under
+    repair), with who and why. Alerts of a section in service clear by themselves.
+
+    \b
+    Example:
+        slipwatch alerts close 12 --by "J. Ferrand" --note "slip confirmed; section closed to traffic"
+    """
+    from watch.clock import SystemClock
+    from watch.lifecycle import close_alert
+    from watch.workspace import open_workspace
+
+    row = close_alert(open_workspace(workspace), SystemClock(), alert_id, by, note, at=parse_time_option(at, "--at"))
+    if as_json:
+        echo_json(row)
+    else:
+        click.echo(f"alert {alert_id} ({row['section_id']}/{row['rule']}) closed by {by}")
+
+
+@alerts.command("history")
+@click.option("--from", "start", help="Start of the period, ISO 8601 [default: the first event].")
+@click.option("--to", "end", help="End of the period, ISO 8601 [default: now].")
+@click.option("--section", help="Only this section.")
+@workspace_option
+@json_option
+def alert_history_command(start: str | None, end: str | None, section: str | None, workspace: Path,
+                          as_json: bool) -> None:  # fmt: skip
+    """List the state changes of the alerts in a period, oldest first: time, section, rule,
+    level, change, value, and who acknowledged, shelved or closed them.
+
+    \b
+    Example:
+        slipwatch alerts history --from 2026-01-14 --to 2026-01-20 --section WC-060
+    """
+    from watch.alert_history import alert_history
+    from watch.workspace import open_workspace
+
+    with open_workspace(workspace).open_store(read_only=True) as store:
+        rows = alert_history(store, parse_time_option(start, "--from"), parse_time_option(end, "--to"), section)
+    if as_json:
+        echo_json(rows)
+        return
+    if not rows:
+        click.echo("no alert events in that period")
+    for r in rows:
+        value = "" if r["value"] is None else f" value {r['value']:.3g}"
+        who = f" by {r['by']}" if r["by"] else ""
+        note = f": {r['note']}" if r["note"] else ""
+        click.echo(f"{r['time_utc']}  {r['section_id'] or '-':<8} {r['rule']:<24} {r['level'] or '-':<6} "
+                   f"{r['what']}{value}{who}{note}")  # fmt: skip
+
+
+@click.group("section-state", invoke_without_command=True)
+@click.option("--section", help="Only this section.")
+@workspace_option
+@json_option
+@click.pass_context
+def section_state(ctx: click.Context, section: str | None, workspace: Path, as_json: bool) -> None:
+    """List the service states set on the sections (in service, slipped, closed, under
+    repair), oldest first; `set` records a new one.
+
+    \b
+    Example:
+        slipwatch section-state
+        slipwatch section-state set WC-060 slipped --at 2026-01-16T04:00Z --by "J. Ferrand" --note "rotational slip, 30 m of verge"
+    """
+    if ctx.invoked_subcommand is not None:
+        return
+    from dataclasses import asdict
+
+    from watch.lifecycle import state_history
+    from watch.workspace import open_workspace
+
+    with open_workspace(workspace).open_store(read_only=True) as store:
+        rows = state_history(store, section)
+    if as_json:
+        echo_json([asdict(r) for r in rows])
+        return
+    if not rows:
+        click.echo("no section state set: every section is in service")
+    for r in rows:
+        click.echo(f"{r.time_utc}  {r.section_id:<8} {r.words:<13} by {r.by}: {r.note}")
+
+
+@section_state.command("set")
+@click.argument("section")
+@click.argument("state", type=click.Choice(["in-service", "slipped", "closed", "under-repair"]))
+@click.option("--by", required=True, help="Who sets it.")
+@click.option("--note", required=True, help="Why: what happened or was done.")
+@click.option("--at", "at", help="When the state began, ISO 8601 [default: now]; the time it is recorded is kept too.")
+@workspace_option
+@json_option
+def set_state(section: str, state: str, by: str, note: str, at: str | None, workspace: Path, as_json: bool) -> None:
+    """Set the service state of SECTION from now (or --at). A section that is not in service
+    is not assessed and its open alerts stay open until closed with `alerts close`; a slipped
+    section returns to service on a new version of its section file.
+
+    \b
+    Example:
+        slipwatch section-state set WC-060 slipped --by "J. Ferrand" --note "rotational slip at the verge"
+        slipwatch section-state set WC-060 in-service --by "J. Ferrand" --note "rebuilt; new geometry"
+    """
+    from dataclasses import asdict
+
+    from watch.lifecycle import set_service_state
+    from watch.workspace import open_workspace
+
+    from watch.clock import SystemClock
+
+    result = set_service_state(open_workspace(workspace), SystemClock(), section, state, by, note,
+                               at=parse_time_option(at, "--at"))  # fmt: skip
+    if as_json:
+        echo_json(asdict(result))
+    else:
+        click.echo(f"{section}: {result.describe()}")

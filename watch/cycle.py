@@ -54,6 +54,7 @@ from watch.errors import BusyError, UserError
 from watch.executors import InProcessExecutor, SectionExecutor, SectionFailure, executor_for
 from watch.groundwater import rate_of_rise
 from watch.ingest import ingest, record_first_look
+from watch.lifecycle import OUT_OF_SERVICE, service_state
 from watch.parameters import current_section, follow_section_file
 from watch.rainfall import DEFAULT_DRY_GAP_H, event_exceedance, rain_record_reach, window_totals
 from watch.store import Store, parse_utc_text, utc_text
@@ -93,7 +94,7 @@ class SectionOutcome:
     """What one cycle did for one section."""
 
     section_id: str
-    status: str  # ok | no live data | not converged | failed | unchanged
+    status: str  # ok | no live data | not converged | failed | unchanged | a state out of service
     fos: float | None = None
     method: str | None = None
     evaluation: str | None = None  # full search | warm re-evaluation
@@ -437,6 +438,8 @@ def _record_section(store: Store, config, settings: AlertSettings, section_id: s
     alerts of one section, inside the caller's transaction. ``seconds``: the preparation and
     calculation time so far (the time spent waiting for a worker is not the section's)."""
     started = time.perf_counter() - seconds
+    if calc.status in OUT_OF_SERVICE:
+        return SectionOutcome(section_id, calc.status, message=calc.message)
     rules = [replace(r, description=f"section file problem: {calc.file_problem}")
              if r.rule.name == SECTION_FILE_RULE and calc.file_problem else r
              for r in settings.rules_for(config, section_id)]  # fmt: skip
@@ -473,6 +476,12 @@ def _prepare(workspace, store: Store, config, settings: AlertSettings, section_i
     assessment). Any library error becomes a failed calculation."""
     try:
         check = follow_section_file(workspace, store, section_id, now, config=config)
+        state = service_state(store, section_id, at)
+        if state is not None and not state.in_service:
+            # Versions still follow the file (the post-slip or repaired geometry is loaded so),
+            # but the section is neither calculated nor are its alerts evaluated.
+            return _Calculation(state.state, version_id=check.version_id,
+                                message=f"not assessed: {state.describe()}; its alerts are held"), None  # fmt: skip
         if check.version_id is None:
             return _Calculation("failed", message=f"inputs could not be prepared: {check.problem}",
                                 file_problem=check.problem), None  # fmt: skip

@@ -39,14 +39,14 @@ import socket
 import threading
 import time
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
 from apscheduler.executors.pool import ThreadPoolExecutor
 from apscheduler.schedulers.background import BackgroundScheduler
 from apscheduler.triggers.interval import IntervalTrigger
 
-from watch.clock import Clock, SystemClock
+from watch.clock import Clock, ManualClock, SystemClock
 from watch.config import SiteConfig, TableReader
 from watch.errors import ConfigError, UserError, WorkspaceError
 from watch.notify import DeliveryReport, deliver_pending, missing_credentials, notify_settings
@@ -221,15 +221,22 @@ class _Jobs:
 
 def run_daemon(workspace: Workspace, *, interval_minutes: float | None = None, once: bool = False,
                clock: Clock | None = None, stop: threading.Event | None = None,
-               install_signal_handlers: bool = True, echo: bool = False) -> int:  # fmt: skip
+               install_signal_handlers: bool = True, echo: bool = False,
+               at: datetime | None = None, until: datetime | None = None) -> int:  # fmt: skip
     """Run the service until SIGTERM/SIGINT (or ``stop`` is set); return the exit status.
 
     ``once``: one assessment cycle and delivery, then return. ``interval_minutes`` overrides
-    ``[daemon] interval_minutes``. Raises WorkspaceError when another daemon holds the
-    workspace, ConfigError for a bad configuration or a credential variable that is not set.
-    ``echo`` also writes the log to standard error (the journal under systemd).
+    ``[daemon] interval_minutes``. ``at``: step through time on a manual clock instead: one
+    cycle and delivery at ``at``, then (with ``until``) one every interval up to ``until``,
+    every record carrying the clock's time; then return. Raises WorkspaceError when another
+    daemon holds the workspace, ConfigError for a bad configuration or a credential variable
+    that is not set. ``echo`` also writes the log to standard error (the journal under systemd).
     """
-    clock = clock or SystemClock()
+    if until is not None and at is None:
+        raise UserError("--until needs --at (the first time to step from)")
+    if at is not None and until is not None and until < at:
+        raise UserError(f"--until {utc_text(until)} is before --at {utc_text(at)}")
+    clock = clock or (SystemClock() if at is None else ManualClock(at))
     stop = stop or threading.Event()
     config = workspace.config()
     settings = daemon_settings(config, workspace.root)
@@ -245,6 +252,14 @@ def run_daemon(workspace: Workspace, *, interval_minutes: float | None = None, o
     with DaemonLock(workspace, clock):
         log, handlers = _open_log(settings.log_file, echo)
         try:
+            if at is not None:
+                step = timedelta(minutes=settings.interval_minutes)
+                while True:
+                    log.info("cycle as at %s (slipwatch run --at) in %s", utc_text(clock.now()), workspace.root)
+                    run_once(workspace, clock, log=log)
+                    if until is None or clock.now() + step > until or stop.is_set():
+                        return _EXIT_CLEAN
+                    clock.advance(step)
             if once:
                 log.info("one cycle (slipwatch run --once) in %s", workspace.root)
                 cycle_report, _ = run_once(workspace, clock, log=log)

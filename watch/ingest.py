@@ -953,7 +953,7 @@ def workspace_status(workspace: Workspace, now: datetime | None = None) -> dict:
     now = now or datetime.now(timezone.utc)
     config = workspace.config()
     with workspace.open_store(read_only=True) as store:
-        summary = {row["instrument_id"]: row for row in store.instrument_summary()}
+        summary = {row["instrument_id"]: row for row in store.instrument_summary(utc_text(now))}
         totals = store.counts()
     instruments = []
     for iid, instrument in config.instruments.items():

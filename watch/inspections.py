@@ -15,7 +15,7 @@ from watch.formatting import plain_number
 from watch.store import Store, parse_utc_text, utc_text
 from watch.workspace import Workspace
 
-__all__ = ["open_request", "list_inspections", "close_inspection", "write_csv", "CSV_COLUMNS"]
+__all__ = ["open_request", "open_at", "list_inspections", "close_inspection", "write_csv", "CSV_COLUMNS"]
 
 CSV_COLUMNS = ("id", "section_id", "level", "status", "requested_utc", "due_utc", "overdue", "reason",
                "checklist", "alert_id", "episode", "completed_utc", "closed_by", "notes")  # fmt: skip
@@ -31,6 +31,14 @@ def open_request(store: Store, section_id: str, alert_id: int, rule: str, level,
         "due_utc": utc_text(now + timedelta(hours=level.inspection_due_hours)),
         "checklist_json": json.dumps(list(level.checklist)),
     })  # fmt: skip
+
+
+def open_at(rows: list[dict], at: datetime) -> list[dict]:
+    """The inspection requests (rows of ``inspections``) that were open at ``at``: requested
+    by then and not closed by then."""
+    at_text = utc_text(at)
+    return [r for r in rows if r["requested_utc"] <= at_text
+            and (r["completed_utc"] is None or r["completed_utc"] > at_text)]  # fmt: skip
 
 
 def list_inspections(workspace: Workspace, clock: Clock, open_only: bool = False) -> list[dict]:

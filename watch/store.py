@@ -963,15 +963,16 @@ class Store:
             row["superseded"] = replaced.get(row["time_utc"], [])
         return rows
 
-    def instrument_summary(self) -> list[dict]:
-        """Per configured instrument: kind, newest reading time, count, count by quality."""
+    def instrument_summary(self, at_or_before_utc: str = "9999") -> list[dict]:
+        """Per configured instrument: kind, newest reading time, count, count by quality (of the
+        readings at or before a time; default all)."""
         rows = []
         for instrument_id, kind in self.conn.execute("SELECT id, kind FROM instruments ORDER BY id"):
             table, id_column = ("rainfall", "gauge_id") if kind == "rain_gauge" else ("readings", "instrument_id")
             newest, count, flagged = self.conn.execute(
                 f"SELECT MAX(time_utc), COUNT(*), COALESCE(SUM(quality != 'ok'), 0) FROM {table} "
-                f"WHERE {id_column} = ?",
-                (instrument_id,),
+                f"WHERE {id_column} = ? AND time_utc <= ?",
+                (instrument_id, at_or_before_utc),
             ).fetchone()
             rows.append(
                 {"instrument_id": instrument_id, "kind": kind, "newest_utc": newest,
