@@ -30,9 +30,12 @@ import numpy as np
 import pandas as pd
 
 from watch import assessment_status
+from watch.alert_history import alert_history, alerts_as_at
 from watch.caution import CAUTION
 from watch.errors import UserError, WorkspaceError
 from watch.formatting import number_text, short_time
+from watch.inspections import open_at
+from watch.lifecycle import service_state
 from watch.store import parse_utc_text, utc_text
 from watch.triggers import DATA_LEVEL
 
@@ -70,8 +73,6 @@ HISTORY_ROWS = 200
 DEFAULT_STALE_HOURS = 6.0
 #: Alert states that are still open (shown on the board as needing attention).
 OPEN_ALERT_STATES = ("pending", "firing")
-#: Inspection statuses that close a request.
-CLOSED_INSPECTION_STATUSES = ("done", "completed", "closed", "cancelled", "canceled")
 #: Written into the board folder; only a folder holding it (or an empty one) is written to, and
 #: it lists the files of the last build so that stale pages of removed sections go away.
 _MANIFEST = ".slipwatch-board"
@@ -185,6 +186,8 @@ class SectionStatus:
     back_analyses: list[dict]
     calibrations: list[dict]
     notes: list[str]  # what the store does not hold yet, in words
+    service_state: object = None  # watch.lifecycle.ServiceState set on the section, or None
+    alert_timeline: list[dict] = field(default_factory=list)  # alert events of the season, oldest first
 
 
 @dataclass(frozen=True)
@@ -281,8 +284,9 @@ def _section_status(workspace, store, reader, config, section_id, file, gauge, n
     instruments = reader.section_instruments(section_id, gauge, config, now)
     newest = max((i["newest"] for i in instruments if i["newest"] is not None), default=None)
     rules, levels = _trigger_levels(config, section_id, notes)
-    open_alerts = reader.open_alerts(section_id, {name: rank for name, (rank, _) in levels.items()})
-    level = _level(open_alerts, latest, levels)
+    open_alerts = reader.open_alerts(section_id, {name: rank for name, (rank, _) in levels.items()}, now)
+    state = service_state(store, section_id, now) if reader.has("service_states") else None
+    level = _level(open_alerts, latest, levels) if state is None or state.in_service else _out_of_service(state)
     problems = _data_problems(reader, instruments, latest, now)
     name = ""
     version = None
@@ -307,7 +311,7 @@ def _section_status(workspace, store, reader, config, section_id, file, gauge, n
         rain_mm=rain,
         newest_reading=newest,
         open_alerts=open_alerts,
-        open_inspections=reader.open_inspections(section_id),
+        open_inspections=reader.open_inspections(section_id, now),
         data_problems=problems,
         fos_levels=rules.get("fos", {}),
         head_levels=rules.get("head_m", {}),
@@ -316,6 +320,8 @@ def _section_status(workspace, store, reader, config, section_id, file, gauge, n
         back_analyses=reader.back_analyses(section_id),
         calibrations=reader.calibrations(section_id),
         notes=notes,
+        service_state=state,
+        alert_timeline=alert_history(store, season_start, now, section_id) if reader.has("alert_events") else [],
     )
 
 
@@ -328,6 +334,17 @@ def _change(assessed: list[AssessmentRecord], start: datetime) -> float | None:
     if len(inside) < 2:
         return None
     return inside[-1].fos - inside[0].fos
+
+
+#: Rank of a slipped section: above every owner's level, so it heads the board.
+SLIPPED_RANK = 100
+
+
+def _out_of_service(state) -> Level:
+    """A section not in service shows its state instead of a level: slipped above every
+    level; closed and under repair as "safety unknown" (it is not being assessed)."""
+    return Level(state.words, SLIPPED_RANK if state.state == "slipped" else -1, state.describe(),
+                 "not assessed while out of service; its open alerts stay open until closed with a note")
 
 
 def _level(open_alerts: list[dict], latest: AssessmentRecord | None,
@@ -652,15 +669,12 @@ class _Reader:
 
     # --- alerts and inspections -------------------------------------------------------------
 
-    def open_alerts(self, section_id: str, ranks: dict[str, int] | None = None) -> list[dict]:
+    def open_alerts(self, section_id: str, ranks: dict[str, int] | None, at: datetime) -> list[dict]:
+        """The section's alerts that were open at ``at`` (rebuilt from their events)."""
         if not self.has("alerts", "state"):
             return []
-        placeholders = ", ".join("?" * len(OPEN_ALERT_STATES))
-        rows = self.all(
-            f"SELECT * FROM alerts WHERE section_id = ? AND state IN ({placeholders}) "
-            "ORDER BY raised_utc DESC, id DESC",
-            (section_id, *OPEN_ALERT_STATES),
-        )
+        rows = [r for r in alerts_as_at(self.store, at, section_id) if r["state"] in OPEN_ALERT_STATES]
+        rows.sort(key=lambda r: (r["raised_utc"], r["id"]), reverse=True)
         for row in rows:
             state = _json(row.get("state_json"), {})
             if row.get("rank") is None and isinstance(state, dict):
@@ -679,15 +693,11 @@ class _Reader:
             (section_id, utc_text(end), utc_text(start)),
         )
 
-    def open_inspections(self, section_id: str) -> list[dict]:
+    def open_inspections(self, section_id: str, at: datetime) -> list[dict]:
+        """The section's inspection requests that were open at ``at``, newest first."""
         if not self.has("inspections", "status"):
             return []
-        placeholders = ", ".join("?" * len(CLOSED_INSPECTION_STATUSES))
-        return self.all(
-            f"SELECT * FROM inspections WHERE section_id = ? AND completed_utc IS NULL "
-            f"AND lower(status) NOT IN ({placeholders}) ORDER BY requested_utc DESC, id DESC",
-            (section_id, *CLOSED_INSPECTION_STATUSES),
-        )
+        return open_at(self.store.inspection_rows(section_id=section_id), at)[::-1]
 
     def inspections_between(self, section_id: str, start: datetime, end: datetime) -> list[dict]:
         if not self.has("inspections", "requested_utc"):
@@ -889,6 +899,7 @@ class BoardResult:
             "images": [str(p) for p in self.images],
             "sections": [
                 {"section_id": s.id, "level": s.level.word, "level_rank": s.level.rank,
+                 "service_state": s.service_state.state if s.service_state else "in-service",
                  "fos": s.latest.fos if s.latest else None,
                  "assessment_status": s.latest.status if s.latest else None,
                  "fos_basis": assessment_status.fos_basis(s.latest.status) if s.latest else None,
@@ -1569,6 +1580,19 @@ def _section_page(status: SiteStatus, s: SectionStatus, figures: dict) -> str:
     parts.append(_table(["Status", "Reason", "Requested (UTC)", "Due (UTC)", "Checklist", "Notes"],
                         inspection_rows)
                  if inspection_rows else "<p>No open inspection requests.</p>")
+    parts.append("<h2>Alert timeline</h2>")
+    if s.alert_timeline:
+        shown = s.alert_timeline[-HISTORY_ROWS:]
+        if len(s.alert_timeline) > HISTORY_ROWS:
+            parts.append(f"<p>The newest {HISTORY_ROWS} of {len(s.alert_timeline)} alert events in the season.</p>")
+        parts.append(_table(
+            ["Time (UTC)", "Rule", "Level", "Change", "Value", "By", "Note"],
+            [[e["time_utc"], e["rule"], e["level"] or "", e["what"],
+              "" if e["value"] is None else f"{e['value']:.3g}", e["by"] or "", e["note"] or ""]
+             for e in shown],
+        ))
+    else:
+        parts.append("<p>No alert changed state in the season.</p>")
     parts.append("<h2>Section, water lines and slip surfaces</h2>")
     parts.append(_figure(figures["section"], f"Drawing of section {s.id}"))
     parts.append("<h2>Factor of safety through the season</h2>")

@@ -216,6 +216,10 @@ def fill_store(workspace, store, first: str, second: str) -> dict:
         alert["rank"] = 1
     cursor = conn.execute(f"INSERT INTO alerts ({', '.join(alert)}) VALUES ({', '.join('?' * len(alert))})",
                           list(alert.values()))
+    if "alert_events" in store.db.table_names():  # the board rebuilds alert states from events
+        conn.execute("INSERT INTO alert_events (alert_id, time_utc, event, old_state, new_state, episode, "
+                     "value, created_utc) VALUES (?, ?, 'state change', 'inactive', 'firing', 1, 1.25, ?)",
+                     (cursor.lastrowid, alert["raised_utc"], alert["raised_utc"]))
     conn.execute("INSERT INTO inspections (section_id, alert_id, reason, status, requested_utc) "
                  "VALUES (?, ?, ?, ?, ?)",
                  (first, cursor.lastrowid, "walk the crest for cracks", "open",
