@@ -683,16 +683,6 @@ class _Reader:
                 row["rank"] = (ranks or {}).get(row.get("level"))
         return rows
 
-    def alerts_between(self, section_id: str, start: datetime, end: datetime) -> list[dict]:
-        """Alerts of the section raised or updated in [start, end]."""
-        if not self.has("alerts", "raised_utc", "updated_utc"):
-            return []
-        return self.all(
-            "SELECT * FROM alerts WHERE section_id = ? AND raised_utc <= ? AND updated_utc >= ? "
-            "ORDER BY raised_utc, id",
-            (section_id, utc_text(end), utc_text(start)),
-        )
-
     def open_inspections(self, section_id: str, at: datetime) -> list[dict]:
         """The section's inspection requests that were open at ``at``, newest first."""
         if not self.has("inspections", "status"):

@@ -21,10 +21,11 @@ extracted.
 
 from __future__ import annotations
 
+import json
 import math
 import tempfile
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -46,9 +47,11 @@ from watch.board import (
     water_lines_of,
 )
 from watch import assessment_status
+from watch.alert_history import alert_history, alerts_as_at
 from watch.caution import CAUTION
 from watch.formatting import number_text, short_time
 from watch.errors import UserError
+from watch.lifecycle import state_history
 from watch.store import utc_text
 
 __all__ = ["ReportResult", "build_report", "default_report_path", "LINES_PER_PAGE"]
@@ -184,8 +187,10 @@ class _Content:
     governing: dict | None
     slice_rows: list[list[str]]
     method_note: str
-    alerts: list[dict]
+    alerts: list[dict]  # alert events of the period (watch.alert_history)
     inspections: list[dict]
+    open_at_end: list[dict] = field(default_factory=list)  # alerts still open at the end of the period
+    service: list = field(default_factory=list)  # service states set up to the end (watch.lifecycle)
 
     @classmethod
     def gather(cls, workspace, store, site, section, start, end) -> _Content:
@@ -204,7 +209,9 @@ class _Content:
             water_lines=reader.water_lines(reported.id) if reported else [],
             water_points=water_points, water_source=water_source, methods=methods,
             governing=governing, slice_rows=slice_rows, method_note=note,
-            alerts=reader.alerts_between(section.id, start, end),
+            alerts=alert_history(store, start, end, section.id),
+            open_at_end=[a for a in alerts_as_at(store, end, section.id) if a["state"] in ("pending", "firing")],
+            service=state_history(store, section.id, end),
             inspections=reader.inspections_between(section.id, start, end),
         )
 
@@ -326,9 +333,13 @@ def _inputs_lines(c: _Content) -> list[str]:
         f"Period: {_when(c.start)} to {_when(c.end)}",
         f"Generated: {_when(site.now, site.time_zone)} from store {site.store_path.resolve()} "
         f"(schema version {site.schema_version})",
-        "",
-        "Assessments in the period",
+        f"State at {_when(site.now, site.time_zone)}: {s.level.word.upper()}"
+        + (f" ({s.level.detail})" if s.level.detail else ""),
     ]
+    if c.service:
+        lines += ["", "Service state of the section (set by engineers)"]
+        lines += [f"  {item.time_utc}  {item.words} (set by {item.by}: {item.note})" for item in c.service]
+    lines += ["", "Assessments in the period"]
     assessed = [a for a in c.history if a.usable]
     if not c.history:
         lines.append("  none stored")
@@ -373,15 +384,16 @@ def _inputs_lines(c: _Content) -> list[str]:
         total = reader.rain_total(s.gauge_id, c.start, c.end)
         lines += ["", f"Rain at gauge {s.gauge_id} in the period: "
                   + ("no usable readings" if total is None else f"{total:.1f} mm")]
-    files = reader.one(
-        "SELECT COUNT(*) AS n, COALESCE(SUM(rows_rejected), 0) AS rejected, "
-        "COALESCE(SUM(rows_flagged), 0) AS flagged FROM ingested_files "
-        "WHERE ingested_utc >= ? AND ingested_utc <= ?",
-        (utc_text(c.start), utc_text(c.end)),
-    ) or {"n": 0, "rejected": 0, "flagged": 0}
-    lines += ["", f"Feed files ingested in the period (all instruments): {files['n']}, with "
-              f"{files['rejected']} rows rejected and {files['flagged']} readings flagged "
-              "(each rejected row is kept in the store with its file, line and reason)."]
+    files = c.store.files_with_readings([i["id"] for i in s.instruments], utc_text(c.start), utc_text(c.end))
+    lines += ["", f"Feed files with readings of this section in the period: {len(files)}, with "
+              f"{sum(f['rows_rejected'] for f in files)} rows rejected and "
+              f"{sum(f['rows_flagged'] for f in files)} readings flagged (each rejected row is kept "
+              "in the store with its file, line and reason)."]
+    if files:
+        lines += ["  " + l for l in _columns(
+            ["File", "Ingested (UTC)", "Readings in period", "First (UTC)", "Last (UTC)", "Rejected", "Flagged"],
+            [[f["name"], f["ingested_utc"], f["readings_in_period"], f["first_utc"], f["last_utc"],
+              f["rows_rejected"], f["rows_flagged"]] for f in files])]
     if s.data_problems:
         lines += ["", "Data-quality problems now"] + [f"  - {p}" for p in s.data_problems]
     if site.notes:
@@ -552,13 +564,20 @@ def _slice_lines(c: _Content) -> list[str]:
 
 
 def _alerts_lines(c: _Content) -> list[str]:
-    lines = ["Alerts raised or still open in the period"]
+    lines = ["Alert events in the period (state changes, acknowledgements, shelving, closing)"]
     if c.alerts:
-        lines += _columns(["Level", "Rule", "State", "Raised (UTC)", "Updated (UTC)",
-                           "Acknowledged", "Message"],
-                          [[a.get("level"), a.get("rule"), a.get("state"), a.get("raised_utc"),
-                            a.get("updated_utc"), a.get("acknowledged_by") or "-", a.get("message")]
-                           for a in c.alerts])
+        lines += _columns(["Time (UTC)", "Level", "Rule", "Change", "Value", "By", "Note"],
+                          [[e["time_utc"], e["level"] or "-", e["rule"], e["what"],
+                            "-" if e["value"] is None else f"{e['value']:.3g}", e["by"] or "-",
+                            e["note"] or ""] for e in c.alerts])
+    else:
+        lines.append("  none")
+    lines += ["", f"Alerts still open at the end of the period ({_when(c.end)})"]
+    if c.open_at_end:
+        lines += _columns(["Level", "Rule", "State", "Since (UTC)", "Message"],
+                          [[a["level"] or "-", a["rule"], a["state"],
+                            json.loads(a["state_json"]).get("since") or "-", a["message"] or ""]
+                           for a in c.open_at_end])
     else:
         lines.append("  none")
     lines += ["", "Inspection requests in the period"]

@@ -980,6 +980,24 @@ class Store:
             )
         return rows
 
+    def files_with_readings(self, instrument_ids: Sequence[str], start_utc: str, end_utc: str) -> list[dict]:
+        """The ingested files that hold readings (piezometer or rain) of the instruments in
+        [start_utc, end_utc]: name, ingested_utc, row counts, and the number, first and last
+        time of those readings; in order of their first reading."""
+        marks = ", ".join("?" * len(instrument_ids))
+        if not instrument_ids:
+            return []
+        return list(self.db.query(
+            "WITH used AS (SELECT source_file_id AS id, time_utc FROM readings WHERE instrument_id IN "
+            f"({marks}) AND time_utc >= ? AND time_utc <= ? UNION ALL SELECT source_file_id, time_utc "
+            f"FROM rainfall WHERE gauge_id IN ({marks}) AND time_utc >= ? AND time_utc <= ?) "
+            "SELECT f.id, f.name, f.ingested_utc, f.status, f.rows_accepted, f.rows_rejected, "
+            "f.rows_flagged, COUNT(*) AS readings_in_period, MIN(u.time_utc) AS first_utc, "
+            "MAX(u.time_utc) AS last_utc FROM used u JOIN ingested_files f ON f.id = u.id "
+            "GROUP BY f.id ORDER BY first_utc, f.id",
+            [*instrument_ids, start_utc, end_utc, *instrument_ids, start_utc, end_utc],
+        ))
+
     def counts(self) -> dict[str, int]:
         tables = ("ingested_files", "readings", "rainfall", "rejected_rows")
         return {t: self.conn.execute(f"SELECT COUNT(*) FROM {t}").fetchone()[0] for t in tables}
