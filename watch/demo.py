@@ -8,9 +8,11 @@ job the way the service would, with a manual clock instead of the wall clock:
    safety, evaluates the trigger levels, queues notifications and opens inspection requests,
    and the notifications are delivered (to the log channel: the demo sends nothing out);
 2. a forecast on the eve of the January storm: rain to each trigger level and a 60 mm storm;
+   on 16 January an engineer marks WC-060 slipped: from then on it is not assessed on its
+   pre-slip geometry and its alerts stay open;
 3. the back-analysis of the WC-060 slip, and the calibration of its neighbours with it;
 4. one more cycle, now on the calibrated parameters;
-5. the status board and a PDF report for the engineering file.
+5. the status board, a PDF report for the engineering file and one of the slipped section.
 """
 
 from __future__ import annotations
@@ -51,6 +53,11 @@ class DemoSettings:
     slip_case: str = "slips/wc_060_2026-01.toml"
     calibrate_sections: tuple[str, ...] = ("WC-040", "WC-080")
     report_section: str = "WC-040"
+    #: The slip of the season: the section an engineer marks slipped, when, and the note.
+    slipped_section: str = "WC-060"
+    slipped_at: datetime = datetime(2026, 1, 16, 6, 0, tzinfo=_UTC)
+    slipped_note: str = ("composite slide of the upper face after the storm of 15 January; line "
+                         "closed, section out of the watch until rebuilt")
     forecast: bool = True
     back_analysis: bool = True
     board: bool = True
@@ -68,6 +75,7 @@ def run_demo(
     Returns a summary dict of what was made (also told through ``echo``).
     """
     from watch.cycle import replay_season, run_cycle, season_summary
+    from watch.lifecycle import set_service_state
     from watch.notify import deliver_pending
 
     config_dir, feeds_dir = root / "config", root / "demo_feeds"
@@ -89,9 +97,17 @@ def run_demo(
          f"cycle every {_span(settings.step)}: logger files arrive, are ingested, water lines "
          "are rebuilt, factors of safety re-evaluated, trigger levels checked ...")
 
+    marked = []
+
     def deliver(_report) -> None:
         with ws.open_store() as store:
             deliver_pending(ws, store, clock)
+        # The engineer marks the slipped section as soon as the replay reaches the slip: from
+        # then on it is not assessed on its pre-slip geometry and its alerts stay open.
+        if settings.slipped_section and not marked and clock.now() >= settings.slipped_at:
+            marked.append(set_service_state(ws, clock, settings.slipped_section, "slipped",
+                                            "demo engineer", settings.slipped_note,
+                                            at=settings.slipped_at))  # fmt: skip
 
     replay = replay_season(
         ws, settings.start, settings.end, settings.step, clock,
@@ -103,6 +119,9 @@ def run_demo(
     echo("   Alerts raised during the season (time UTC, section, level, rule; when resolved):")
     for line in lines:
         echo(f"   {line}")
+    for state in marked:
+        echo(f"   {state.section_id} marked {state.describe()}: not assessed since, its alerts "
+             "held open")
     echo(f"   Messages delivered to {ws.root / 'notifications.log'} (log channel; e-mail and "
          "webhooks are configured in site.toml [notify])")
 
@@ -177,6 +196,10 @@ def run_demo(
         report = build_report(ws, settings.report_section, settings.start, settings.end,
                               clock.now())
         summary["report"] = str(getattr(report, "path", report))
+        if marked:
+            slip_report = build_report(ws, settings.slipped_section, settings.start, settings.end,
+                                       clock.now())
+            summary["slip_report"] = str(slip_report.path)
 
     echo("")
     echo("Outputs:")
@@ -185,6 +208,8 @@ def run_demo(
              f"`slipwatch serve --workspace {ws.root}`)")
     if settings.report:
         echo(f"   PDF report for the engineering file: {summary['report']}")
+        if "slip_report" in summary:
+            echo(f"   PDF report of the slipped section: {summary['slip_report']}")
     echo(f"   figures: {ws.reports}")
     echo(f"   try: slipwatch status --workspace {ws.root}; slipwatch alerts --workspace "
          f"{ws.root}; slipwatch inspections --workspace {ws.root}")
