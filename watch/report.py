@@ -391,8 +391,8 @@ def _inputs_lines(c: _Content) -> list[str]:
               "in the store with its file, line and reason)."]
     if files:
         lines += ["  " + l for l in _columns(
-            ["File", "Ingested (UTC)", "Readings in period", "First (UTC)", "Last (UTC)", "Rejected", "Flagged"],
-            [[f["name"], f["ingested_utc"], f["readings_in_period"], f["first_utc"], f["last_utc"],
+            ["File", "Ingested (UTC)", "Readings", "Rejected", "Flagged"],
+            [[f["name"], f["ingested_utc"][:16].replace("T", " "), f["readings_in_period"],
               f["rows_rejected"], f["rows_flagged"]] for f in files])]
     if s.data_problems:
         lines += ["", "Data-quality problems now"] + [f"  - {p}" for p in s.data_problems]
