@@ -1004,7 +1004,7 @@ def season_summary(workspace: Workspace) -> list[str]:
         alerts = {a["id"]: a for a in store.alert_rows()}
         opened: dict[tuple, dict] = {}
         for event in store.alert_events():
-            if event["event"] != "state change":
+            if event["event"] not in ("state change", "closed"):
                 continue
             key = (event["alert_id"], event["episode"])
             if event["new_state"] == "firing":
@@ -1014,7 +1014,9 @@ def season_summary(workspace: Workspace) -> list[str]:
         for (alert_id, episode), item in sorted(opened.items(), key=lambda kv: kv[1]["fired"]["time_utc"]):
             alert, fired, resolved = alerts[alert_id], item["fired"], item["resolved"]
             value = "" if fired["value"] is None else f", value {fired['value']:.3g}"
-            end = f"resolved {resolved['time_utc']}" if resolved else "still firing"
+            end = "still firing" if resolved is None else (
+                f"closed {resolved['time_utc']} by {resolved['by_name']}: {resolved['note']}"
+                if resolved["event"] == "closed" else f"resolved {resolved['time_utc']}")
             lines.append(f"{fired['time_utc']}  {alert['section_id']:<7} {alert['level'].upper():<6} "
                          f"{alert['rule']} ({alert['message']}{value}); {end}")  # fmt: skip
         kinds = Counter(row["kind"] for row in store.outbox())

@@ -99,12 +99,7 @@ def set_service_state(workspace: Workspace, clock: Clock, section_id: str, state
     state = state.strip().lower().replace(" ", "-")
     if state not in STATES:
         raise UserError(f"unknown section state {state!r}; choose one of {', '.join(STATES)}")
-    if not by.strip() or not note.strip():
-        raise UserError("a section state needs who sets it (--by NAME) and why (--note TEXT)")
-    now = clock.now()
-    at = now if at is None else at
-    if at > now:
-        raise UserError(f"--at {utc_text(at)} is later than now ({utc_text(now)})")
+    now, at = _who_why_when(clock, by, note, at, "a section state")
     config = workspace.config()
     config.section(section_id)  # unknown id: the error lists the known ones
     with workspace.open_store() as store, store.atomic():
@@ -123,6 +118,18 @@ def set_service_state(workspace: Workspace, clock: Clock, section_id: str, state
             "note": note.strip(), "section_version_id": version.version_id, "created_utc": utc_text(now),
         })  # fmt: skip
         return ServiceState(section_id, state, utc_text(at), by.strip(), note.strip(), version.version_id)
+
+
+def _who_why_when(clock: Clock, by: str, note: str, at: datetime | None, what: str) -> tuple[datetime, datetime]:
+    """(now, when it happened) of a person's record; UserError without a name or note, or for a
+    time later than now."""
+    if not by.strip() or not note.strip():
+        raise UserError(f"{what} needs who (--by NAME) and why (--note TEXT)")
+    now = clock.now()
+    at = now if at is None else at
+    if at > now:
+        raise UserError(f"--at {utc_text(at)} is later than now ({utc_text(now)})")
+    return now, at
 
 
 def _check_return(store: Store, section_id: str, history: list[ServiceState], version_id: int | None) -> None:
@@ -148,12 +155,7 @@ def close_alert(workspace: Workspace, clock: Clock, alert_id: int, by: str, note
     """Close an open alert of a section that is not in service, with who and why (its state
     becomes resolved; the event says it was closed by a person). Alerts of a section in
     service clear by themselves when their condition clears."""
-    if not by.strip() or not note.strip():
-        raise UserError("closing an alert needs who (--by NAME) and why (--note TEXT)")
-    now = clock.now()
-    at = now if at is None else at
-    if at > now:
-        raise UserError(f"--at {utc_text(at)} is later than now ({utc_text(now)})")
+    now, at = _who_why_when(clock, by, note, at, "closing an alert")
     with workspace.open_store() as store, store.atomic():
         row = store.alert_row(alert_id)
         if row is None:

@@ -699,13 +699,8 @@ class Store:
 
     def service_state_rows(self, section_id: str | None = None, at_or_before_utc: str | None = None) -> list[dict]:
         """Service-state changes, in time order (of a section; up to a time)."""
-        sql, params = "SELECT * FROM service_states WHERE 1 = 1", []
-        if section_id is not None:
-            sql += " AND section_id = ?"
-            params.append(section_id)
-        if at_or_before_utc is not None:
-            sql += " AND time_utc <= ?"
-            params.append(at_or_before_utc)
+        sql, params = _filtered("SELECT * FROM service_states WHERE 1 = 1",
+                                (("section_id = ?", section_id), ("time_utc <= ?", at_or_before_utc)))
         return list(self.db.query(sql + " ORDER BY time_utc, id", params))
 
     # --- ingest (all inside atomic()) ---------------------------------------------------------
@@ -1082,13 +1077,8 @@ class Store:
         self, *, assessment_id: int | None = None, section_id: str | None = None
     ) -> list[dict]:
         """Stored water lines of an assessment or a section, in time and name order."""
-        sql, params = "SELECT * FROM water_lines WHERE 1 = 1", []
-        if assessment_id is not None:
-            sql += " AND assessment_id = ?"
-            params.append(assessment_id)
-        if section_id is not None:
-            sql += " AND section_id = ?"
-            params.append(section_id)
+        sql, params = _filtered("SELECT * FROM water_lines WHERE 1 = 1",
+                                (("assessment_id = ?", assessment_id), ("section_id = ?", section_id)))
         return list(self.db.query(sql + " ORDER BY time_utc, line_name, id", params))
 
     def insert_response_model(self, row: dict) -> int:
@@ -1330,14 +1320,10 @@ class Store:
                          section_id: str | None = None, alert_ids: Sequence[int] | None = None) -> list[dict]:  # fmt: skip
         """Alert events in [start_utc, end_utc] (either open), in time order, each with its
         alert's section, rule, kind, level and rank (``event_id`` is the event's row id)."""
-        sql = ("SELECT e.*, e.id AS event_id, a.section_id, a.rule, a.kind, a.level, a.rank, a.quantity "
-               "FROM alert_events e JOIN alerts a ON a.id = e.alert_id WHERE 1 = 1")
-        params: list = []
-        for clause, value in (("e.time_utc >= ?", start_utc), ("e.time_utc <= ?", end_utc),
-                              ("a.section_id = ?", section_id)):
-            if value is not None:
-                sql += f" AND {clause}"
-                params.append(value)
+        sql, params = _filtered(
+            "SELECT e.*, e.id AS event_id, a.section_id, a.rule, a.kind, a.level, a.rank, a.quantity "
+            "FROM alert_events e JOIN alerts a ON a.id = e.alert_id WHERE 1 = 1",
+            (("e.time_utc >= ?", start_utc), ("e.time_utc <= ?", end_utc), ("a.section_id = ?", section_id)))
         if alert_ids is not None:
             sql += f" AND e.alert_id IN ({', '.join('?' * len(alert_ids))})"
             params.extend(alert_ids)
@@ -1413,6 +1399,17 @@ def _between(column: str, start_utc: str | None, end_utc: str | None) -> tuple[s
         sql, params = sql + f" AND {column} >= ?", [*params, start_utc]
     if end_utc is not None:
         sql, params = sql + f" AND {column} <= ?", [*params, end_utc]
+    return sql, params
+
+
+def _filtered(sql: str, conditions: Iterable[tuple[str, object]]) -> tuple[str, list]:
+    """``sql`` (ending in a WHERE clause) with ``AND condition`` for each (condition, value)
+    whose value is not None, and the ? parameters."""
+    params = []
+    for condition, value in conditions:
+        if value is not None:
+            sql += f" AND {condition}"
+            params.append(value)
     return sql, params
 
 
