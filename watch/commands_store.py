@@ -148,7 +148,7 @@ def status(workspace: Path, at: str | None, as_json: bool) -> None:
     from watch.store import parse_utc_text
     from watch.workspace import open_workspace
 
-    moment = _utc_option(at, "--at")
+    moment = utc_option(at, "--at")
     ws = open_workspace(workspace)
     now = SystemClock().now() if moment is None else parse_utc_text(moment)
     result = workspace_status(ws, now)
