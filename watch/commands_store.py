@@ -52,14 +52,21 @@ def ingest(files: tuple[Path, ...], workspace: Path, progress: bool, as_json: bo
         slipwatch ingest --workspace /srv/slipwatch/quillmarsh
         slipwatch ingest north_2026-10-25.csv -w /srv/slipwatch/quillmarsh
     """
+    from watch.clock import SystemClock
     from watch.ingest import ingest as run_ingest
+    from watch.store import utc_text
+    from watch.text import printable
     from watch.workspace import open_workspace
 
-    report = run_ingest(open_workspace(workspace), list(files), progress=progress,
+    now = SystemClock().now()
+    report = run_ingest(open_workspace(workspace), list(files), now=now, progress=progress,
                         echo=None if as_json else click.echo)  # fmt: skip
+    due = report.second_look_due
     if as_json:
         echo_json({"files": [f.__dict__ for f in report.files], "waiting": report.waiting,
-                   "reconciled": report.reconciled, "failed": [f.name for f in report.failures]})  # fmt: skip
+                   "reconciled": report.reconciled, "failed": [f.name for f in report.failures],
+                   "second_looks": {printable(name): utc_text(at) for name, at in report.second_looks.items()},
+                   "second_look_due_utc": None if due is None else utc_text(due)})  # fmt: skip
         if report.failures:
             sys.exit(1)
         return
@@ -67,6 +74,10 @@ def ingest(files: tuple[Path, ...], workspace: Path, progress: bool, as_json: bo
         click.echo(f"reconciled: {line}")
     for line in report.waiting:
         click.echo(f"waiting: {line}")
+    if due is not None:
+        click.echo(f"{len(report.second_looks)} file(s) wait for their second look: run `slipwatch ingest` "
+                   f"again in {max(0.0, (due - now).total_seconds()):.0f} s (at {utc_text(due)}) and what is "
+                   "unchanged by then is taken; or leave it to `slipwatch run`, which looks again then by itself")  # fmt: skip
     if not report.files and not report.waiting:
         click.echo("nothing to ingest")
     if report.failures:

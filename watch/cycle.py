@@ -116,6 +116,10 @@ class CycleReport:
     started: datetime
     files: list[str] = field(default_factory=list)  # ingest summary lines
     ingest_failures: list[str] = field(default_factory=list)  # what the watch failed on while ingesting
+    #: Files the ingest left waiting for their second look (IngestReport.second_looks), and
+    #: when the first of them can be taken: the daemon runs a cycle then.
+    second_looks: int = 0
+    second_look_due: datetime | None = None
     site_changes: list[str] = field(default_factory=list)  # state changes of the site's own alerts
     site_notifications: int = 0  # queued by them
     sections: list[SectionOutcome] = field(default_factory=list)
@@ -146,6 +150,8 @@ class CycleReport:
             "seconds": round(self.seconds, 3),
             "files": self.files,
             "ingest_failures": self.ingest_failures,
+            "second_looks": self.second_looks,
+            "second_look_due_utc": None if self.second_look_due is None else utc_text(self.second_look_due),
             "site_changes": self.site_changes,
             "sections": [asdict(s) | {"fos_basis": fos_basis(s.status)} for s in self.sections],
             "released": self.released,
@@ -211,6 +217,7 @@ def run_cycle(
         else:
             report.files = [f.line() for f in ingested.files]
             report.ingest_failures = [f.line() for f in ingested.failures]
+            report.second_looks, report.second_look_due = len(ingested.second_looks), ingested.second_look_due
     config = workspace.config()
     settings = alert_settings(config)
     chosen = _chosen_sections(config, sections)

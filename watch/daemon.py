@@ -13,6 +13,16 @@ Both jobs have ``coalesce=True``, ``max_instances=1`` and an explicit ``misfire_
 Each run processes everything pending, not one time window, so a late, skipped or coalesced
 run loses nothing: the next one picks it all up.
 
+Second looks: the ingest takes a file from incoming/ only when two looks at least
+``min_file_age_seconds`` apart found it unchanged (watch.ingest). When a cycle leaves files
+waiting for their second look, a one-off cycle is scheduled for the moment the first of them
+can be taken (by the injected clock), so that a file arriving just after a cycle is assessed
+about ``min_file_age_seconds`` after that cycle's first look instead of one whole interval
+later. It is left out when the regular cycle comes within :data:`SECOND_LOOK_SLACK_SECONDS`
+of it; each cycle replaces the one-off cycle planned before it; and only one cycle runs at a
+time: a cycle that finds another one running skips its turn (the running one ingests
+everything waiting and plans the next second look itself).
+
 One daemon per workspace: ``.daemon.lock`` is held with ``fcntl.flock`` for the life of the
 process (the OS drops it if the process dies) and names the holder (pid, host, start time), so
 a second ``slipwatch run`` refuses with a message saying who holds it.
@@ -39,11 +49,12 @@ import socket
 import threading
 import time
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
 from apscheduler.executors.pool import ThreadPoolExecutor
 from apscheduler.schedulers.background import BackgroundScheduler
+from apscheduler.triggers.date import DateTrigger
 from apscheduler.triggers.interval import IntervalTrigger
 
 from watch.clock import Clock, SystemClock
@@ -53,13 +64,20 @@ from watch.notify import DeliveryReport, deliver_pending, missing_credentials, n
 from watch.store import utc_text
 from watch.workspace import Workspace
 
-__all__ = ["DaemonSettings", "DaemonLock", "daemon_settings", "run_once", "run_daemon", "LOCK_FILE", "LOGGER"]
+__all__ = ["DaemonSettings", "DaemonLock", "daemon_settings", "run_once", "run_daemon", "LOCK_FILE", "LOGGER",
+           "SECOND_LOOK_SLACK_SECONDS"]
 
 LOCK_FILE = ".daemon.lock"
 LOGGER = "slipwatch"
 
 _EXIT_CLEAN, _EXIT_FORCED = 0, 1
 _EXIT_FAILED = 1  # run --once: the cycle, the ingest or a section failed
+
+#: A second-look cycle due less than this before the next regular cycle is left to that one
+#: [s]: two cycles a few seconds apart would do the same work twice.
+SECOND_LOOK_SLACK_SECONDS = 60.0
+
+_SECOND_LOOK_JOB = "second-look"
 
 
 @dataclass(frozen=True)
@@ -190,25 +208,76 @@ def _report_lines(report) -> list[str]:
             text += f"; {s.message}"
         lines.append(text + "".join(f"; {c}" for c in s.changes))
     lines += [f"un-shelved: {r}" for r in report.released] + [f"warning: {c}" for c in report.chattering]
+    if report.second_look_due is not None:
+        lines.append(f"{report.second_looks} file(s) in incoming/ wait for their second look; the first "
+                     f"can be taken at {utc_text(report.second_look_due)}")  # fmt: skip
     lines.append(f"cycle at {utc_text(report.at)}: {len(report.sections)} sections, "
                  f"{len(report.failed)} failed, {report.notifications} notifications queued")  # fmt: skip
     return lines
 
 
 class _Jobs:
-    """The two scheduled jobs; one runs at a time (``busy``)."""
+    """The scheduled jobs. One job runs at a time (``busy``) and one cycle at a time
+    (``cycling``); ``scheduler`` is set once the scheduler exists, for the second looks."""
 
     def __init__(self, workspace: Workspace, clock: Clock, stop: threading.Event, log: logging.Logger):
         self.workspace, self.clock, self.stop, self.log = workspace, clock, stop, log
         self.busy = threading.Lock()
+        self.cycling = threading.Lock()
+        self.scheduler: BackgroundScheduler | None = None
 
     def assess(self) -> None:
+        """The regular assessment cycle."""
+        self._cycle("assessment cycle")
+
+    def second_look(self) -> None:
+        """The one-off cycle that takes the files whose second look is due."""
+        self._cycle("second-look cycle")
+
+    def _cycle(self, what: str) -> None:
         if self.stop.is_set():
             return
-        with self.busy:
-            self.log.info("assessment cycle starting")
-            run_once(self.workspace, self.clock, should_stop=self.stop.is_set, log=self.log)
-            self.log.info("assessment cycle done")
+        if not self.cycling.acquire(blocking=False):
+            self.log.info("%s skipped: another cycle is running (it takes whatever is waiting)", what)
+            return
+        try:
+            with self.busy:
+                self.log.info("%s starting", what)
+                cycle_report, _ = run_once(self.workspace, self.clock, should_stop=self.stop.is_set, log=self.log)
+                self.log.info("%s done", what)
+                self._plan_second_look(cycle_report)
+        finally:
+            self.cycling.release()
+
+    def _plan_second_look(self, cycle_report) -> None:
+        """Replace the planned second-look cycle by the one this cycle's ingest asks for: at
+        the moment the first waiting file can be taken, unless the regular cycle comes first
+        (within SECOND_LOOK_SLACK_SECONDS)."""
+        if self.scheduler is None or self.stop.is_set():
+            return
+        due = None if cycle_report is None else cycle_report.second_look_due
+        if due is None:
+            self._drop_second_look()
+            return
+        # The scheduler runs on the system clock; the wait is measured on the injected one.
+        wait = max(0.0, (due - self.clock.now()).total_seconds())
+        run_at = datetime.now(timezone.utc) + timedelta(seconds=wait)
+        regular = self.scheduler.get_job("assess")
+        if regular is not None and regular.next_run_time is not None and \
+                regular.next_run_time <= run_at + timedelta(seconds=SECOND_LOOK_SLACK_SECONDS):
+            self._drop_second_look()
+            self.log.info("second look left to the regular cycle at %s", utc_text(regular.next_run_time))
+            return
+        self.scheduler.add_job(
+            self.second_look, DateTrigger(run_at, timezone=timezone.utc), id=_SECOND_LOOK_JOB,
+            name="second-look cycle", replace_existing=True, coalesce=True, max_instances=1,
+            misfire_grace_time=None,
+        )  # fmt: skip
+        self.log.info("second-look cycle planned in %.0f s (%s by the service's clock)", wait, utc_text(due))
+
+    def _drop_second_look(self) -> None:
+        if self.scheduler.get_job(_SECOND_LOOK_JOB) is not None:
+            self.scheduler.remove_job(_SECOND_LOOK_JOB)
 
     def deliver(self) -> None:
         if self.stop.is_set() or not self.busy.acquire(blocking=False):
@@ -287,10 +356,13 @@ def _serve(workspace: Workspace, clock: Clock, settings: DaemonSettings, stop: t
 
 
 def _scheduler(jobs: _Jobs, settings: DaemonSettings) -> BackgroundScheduler:
-    """The two jobs on interval triggers in UTC; the assessment job's first run is at once."""
+    """The two jobs on interval triggers in UTC; the assessment job's first run is at once.
+    The jobs plan their second-look cycles on this scheduler."""
     interval = settings.interval_minutes * 60.0
     grace = settings.misfire_grace_seconds
-    scheduler = BackgroundScheduler(timezone=timezone.utc, executors={"default": ThreadPoolExecutor(2)})
+    # Three threads: the regular cycle, a second-look cycle (which skips its turn while the
+    # regular one runs) and the delivery.
+    scheduler = BackgroundScheduler(timezone=timezone.utc, executors={"default": ThreadPoolExecutor(3)})
     scheduler.add_job(
         jobs.assess, IntervalTrigger(seconds=interval, timezone=timezone.utc),
         id="assess", name="assessment cycle", next_run_time=datetime.now(timezone.utc),
@@ -301,6 +373,7 @@ def _scheduler(jobs: _Jobs, settings: DaemonSettings) -> BackgroundScheduler:
         id="deliver", name="notification delivery", coalesce=True, max_instances=1,
         misfire_grace_time=max(1, round(grace or settings.delivery_seconds)),
     )  # fmt: skip
+    jobs.scheduler = scheduler
     return scheduler
 
 

@@ -33,7 +33,7 @@ import sqlite3
 import stat
 import time
 from dataclasses import dataclass, field, replace
-from datetime import datetime, timezone
+from datetime import datetime, timedelta, timezone
 from itertools import repeat
 from pathlib import Path
 
@@ -145,6 +145,14 @@ class IngestReport:
     files: list[FileSummary] = field(default_factory=list)
     waiting: list[str] = field(default_factory=list)  # left for the next pass, with the reason
     reconciled: list[str] = field(default_factory=list)
+    #: Files left waiting only for their second look: name -> the earliest time (by the
+    #: ingest's clock) at which a pass takes them if they have not changed by then.
+    second_looks: dict[str, datetime] = field(default_factory=dict)
+
+    @property
+    def second_look_due(self) -> datetime | None:
+        """When the first of the files waiting for their second look can be taken, or None."""
+        return min(self.second_looks.values(), default=None)
 
     @property
     def failures(self) -> list[FileSummary]:
@@ -244,6 +252,7 @@ def _claim_waiting(workspace: Workspace, config: SiteConfig, now: datetime, repo
             looks[name] = first
             unchanged = (now - parse_utc_text(first[2])).total_seconds()
             if unchanged < settings.min_file_age_seconds:
+                report.second_looks[name] = parse_utc_text(first[2]) + timedelta(seconds=settings.min_file_age_seconds)
                 report.waiting.append(f"{name} (unchanged for {max(unchanged, 0):.0f} s of the "
                                       f"{settings.min_file_age_seconds:g} s of min_file_age_seconds)")  # fmt: skip
                 continue
