@@ -143,12 +143,14 @@ def backup(destination: Path, workspace: Path) -> None:
 def status(workspace: Path, as_json: bool) -> None:
     """Show every section, worst first (factor of safety, level, trend, age of the newest
     reading, open alerts and inspections, data problems), then each instrument's newest
-    reading, its age and whether it is stale, and the files waiting in incoming/.
+    reading, its age and whether it is stale, and the files waiting in incoming/. An open
+    alert of the watch itself (its ingest failing) comes first, as a warning.
 
     \b
     Example:
         slipwatch status --workspace /srv/slipwatch/quillmarsh --json
     """
+    from watch.alerting import watch_failures
     from watch.caution import CAUTION
     from watch.clock import SystemClock
     from watch.ingest import workspace_status
@@ -158,9 +160,12 @@ def status(workspace: Path, as_json: bool) -> None:
     ws, now = open_workspace(workspace), SystemClock().now()
     result = workspace_status(ws, now)
     result["sections"] = sections_status(ws, now)
+    result["watch_failing"] = watch_failures(ws)
     if as_json:
         echo_json(result | {"caution": CAUTION})
         return
+    for failure in result["watch_failing"]:
+        click.echo(f"WARNING: {failure['headline']}")
     for line in format_sections(result["sections"])[:-1]:
         click.echo(line)
     click.echo(f"site {result['site']} at {result['now_utc']} (stale after {result['stale_hours']:g} h)")

@@ -101,7 +101,8 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str 
 @click.pass_context
 def alerts(ctx: click.Context, open_only: bool, workspace: Path, as_json: bool) -> None:
     """List the alerts, worst first: state, level, value, acknowledgement, shelving and
-    chattering. Subcommands acknowledge and shelve.
+    chattering; an open alert of the watch itself (section "(site)") comes first, with a
+    warning. Subcommands acknowledge and shelve.
 
     \b
     Example:
@@ -110,14 +111,17 @@ def alerts(ctx: click.Context, open_only: bool, workspace: Path, as_json: bool) 
     """
     if ctx.invoked_subcommand is not None:
         return
-    from watch.alerting import list_alerts
+    from watch.alerting import list_alerts, watch_failures
     from watch.clock import SystemClock
     from watch.workspace import open_workspace
 
-    rows = list_alerts(open_workspace(workspace), SystemClock(), open_only=open_only)
+    ws = open_workspace(workspace)
+    rows = list_alerts(ws, SystemClock(), open_only=open_only)
     if as_json:
-        echo_json(rows)
+        echo_json(rows)  # an open alert of the watch itself comes first, with watch_failing true
         return
+    for failure in watch_failures(ws):
+        click.echo(f"WARNING: {failure['headline']}")
     if not rows:
         click.echo("no open alerts" if open_only else "no alerts stored yet")
     for a in rows:

@@ -45,7 +45,8 @@ from solver.search import (
     warm_reevaluate,
 )
 from solver.slicing import slice_surface
-from watch.alerting import SectionContext, last_evaluations, process_section_alerts, release_shelved
+from watch.alerting import (SectionContext, last_evaluations, process_section_alerts, release_shelved,
+                            site_context)
 from watch.analysis import analyse, surface_of
 from watch.assessment_status import ON_DESIGN_LINES, fos_basis
 from watch.clock import Clock, ManualClock
@@ -256,11 +257,7 @@ def _record_site_alerts(store: Store, config: SiteConfig, settings: AlertSetting
     rules = settings.site_rules()
     if not rules:
         return
-    failed = "; ".join(report.ingest_failures)
-    context = SectionContext(
-        site_id=config.id, site_name=config.name, section_id=SITE_ALERTS, section_name="the watch itself",
-        at=now, status="failed" if failed else "ok", message=failed[:2000],
-    )  # fmt: skip
+    context = site_context(config, now, report.ingest_failures)
     values = {rule.rule.name: float(bool(report.ingest_failures)) for rule in rules}
     result = process_section_alerts(store, config, settings, SITE_ALERTS, rules, values, now, now, context)
     report.site_changes = result.changes
