@@ -5,22 +5,24 @@ Two jobs run on an APScheduler ``BackgroundScheduler`` with interval triggers in
 * the assessment job, every ``interval_minutes``: one assessment cycle (watch.cycle.run_cycle:
   ingest what is waiting, water lines, factors of safety, triggers, queued notifications), then
   the delivery of everything due;
-* the delivery job, every ``delivery_seconds``: only the delivery, so that grouped messages and
-  retries go out between cycles. It skips its turn while the assessment job runs (that job
-  delivers at its end).
+* the delivery job, every ``delivery_seconds``: a look at incoming/ (watch.ingest.look_at_incoming,
+  which records the first look at new files and takes nothing) and the delivery, so that
+  grouped messages and retries go out between cycles. It skips its turn while the assessment
+  job runs (that job ingests and delivers itself).
 
 Both jobs have ``coalesce=True``, ``max_instances=1`` and an explicit ``misfire_grace_time``.
 Each run processes everything pending, not one time window, so a late, skipped or coalesced
 run loses nothing: the next one picks it all up.
 
 Second looks: the ingest takes a file from incoming/ only when two looks at least
-``min_file_age_seconds`` apart found it unchanged (watch.ingest). When a cycle leaves files
-waiting for their second look, a one-off cycle is scheduled for the moment the first of them
-can be taken (by the injected clock), so that a file arriving just after a cycle is assessed
-about ``min_file_age_seconds`` after that cycle's first look instead of one whole interval
-later. It is left out when the regular cycle comes within :data:`SECOND_LOOK_SLACK_SECONDS`
-of it; each cycle replaces the one-off cycle planned before it; and only one cycle runs at a
-time: a cycle that finds another one running skips its turn (the running one ingests
+``min_file_age_seconds`` apart found it unchanged (watch.ingest). When a cycle, or the look
+of the delivery job, leaves files waiting for their second look, a one-off cycle is scheduled
+for the moment the first of them can be taken (by the injected clock). So a file arriving
+just after a cycle is assessed about ``delivery_seconds + min_file_age_seconds`` after it
+arrived (90 s by default) instead of up to two intervals later. The one-off cycle is left out
+when the regular cycle comes within :data:`SECOND_LOOK_SLACK_SECONDS` of it; each cycle
+replaces the one planned before it (a look only brings it forward); and only one cycle runs at
+a time: a cycle that finds another one running skips its turn (the running one ingests
 everything waiting and plans the next second look itself).
 
 One daemon per workspace: ``.daemon.lock`` is held with ``fcntl.flock`` for the life of the
@@ -60,6 +62,7 @@ from apscheduler.triggers.interval import IntervalTrigger
 from watch.clock import Clock, SystemClock
 from watch.config import SiteConfig, TableReader
 from watch.errors import ConfigError, UserError, WorkspaceError
+from watch.ingest import look_at_incoming
 from watch.notify import DeliveryReport, deliver_pending, missing_credentials, notify_settings
 from watch.store import utc_text
 from watch.workspace import Workspace
@@ -245,23 +248,26 @@ class _Jobs:
                 self.log.info("%s starting", what)
                 cycle_report, _ = run_once(self.workspace, self.clock, should_stop=self.stop.is_set, log=self.log)
                 self.log.info("%s done", what)
-                self._plan_second_look(cycle_report)
+                # The cycle's ingest has seen everything waiting: its plan replaces any other.
+                self._plan_second_look(None if cycle_report is None else cycle_report.second_look_due)
         finally:
             self.cycling.release()
 
-    def _plan_second_look(self, cycle_report) -> None:
-        """Replace the planned second-look cycle by the one this cycle's ingest asks for: at
-        the moment the first waiting file can be taken, unless the regular cycle comes first
-        (within SECOND_LOOK_SLACK_SECONDS)."""
+    def _plan_second_look(self, due: datetime | None, keep_earlier: bool = False) -> None:
+        """Plan the second-look cycle at ``due`` (by the injected clock; None: none is needed),
+        replacing the one planned before (``keep_earlier``: unless that one comes first), and
+        leaving it out when the regular cycle comes first (within SECOND_LOOK_SLACK_SECONDS)."""
         if self.scheduler is None or self.stop.is_set():
             return
-        due = None if cycle_report is None else cycle_report.second_look_due
         if due is None:
             self._drop_second_look()
             return
         # The scheduler runs on the system clock; the wait is measured on the injected one.
         wait = max(0.0, (due - self.clock.now()).total_seconds())
         run_at = datetime.now(timezone.utc) + timedelta(seconds=wait)
+        planned = self.scheduler.get_job(_SECOND_LOOK_JOB)
+        if keep_earlier and planned is not None and planned.next_run_time <= run_at:
+            return
         regular = self.scheduler.get_job("assess")
         if regular is not None and regular.next_run_time is not None and \
                 regular.next_run_time <= run_at + timedelta(seconds=SECOND_LOOK_SLACK_SECONDS):
@@ -280,12 +286,27 @@ class _Jobs:
             self.scheduler.remove_job(_SECOND_LOOK_JOB)
 
     def deliver(self) -> None:
+        """The delivery of what is due, after a look at incoming/ (so that a file's first look
+        does not wait for the next cycle)."""
         if self.stop.is_set() or not self.busy.acquire(blocking=False):
-            return  # a running cycle delivers at its end
+            return  # a running cycle ingests and delivers itself
         try:
+            self._look()
             _deliver(self.workspace, self.clock, self.stop.is_set, self.log)
         finally:
             self.busy.release()
+
+    def _look(self) -> None:
+        try:
+            due = look_at_incoming(self.workspace, self.clock.now())
+        except UserError as error:
+            self.log.error("look at incoming/ failed: %s", error)
+            return
+        except Exception:  # noqa: BLE001 - the service keeps running; the next cycle's ingest reports it
+            self.log.exception("look at incoming/ failed unexpectedly")
+            return
+        if due is not None:
+            self._plan_second_look(due, keep_earlier=True)
 
 
 def run_daemon(workspace: Workspace, *, interval_minutes: float | None = None, once: bool = False,

@@ -332,6 +332,36 @@ def test_a_file_arriving_after_a_cycle_is_taken_at_its_second_look_not_an_interv
         assert [r["pore_pressure_kpa"] for r in store.readings("PZ-1", None, None)] == [12.5]
 
 
+def test_between_cycles_the_delivery_job_looks_at_incoming_and_plans_the_second_look(tmp_path):
+    # A file arriving after a cycle gets its first look from the delivery job (every
+    # delivery_seconds), not from the next cycle 15 minutes later; the look takes nothing.
+    from watch.ingest import SIGHTINGS_FILE
+
+    ws = _workspace(tmp_path)
+    clock = ManualClock(START)
+    jobs, scheduler = _paused_scheduler(ws, clock)
+    try:
+        jobs.assess()  # nothing waiting: nothing planned
+        assert scheduler.get_job("second-look") is None
+        clock.advance(timedelta(seconds=60))
+        (ws.incoming / FH_FILE).write_text(FH_ROWS, encoding="utf-8")
+        before = datetime.now(timezone.utc)
+        jobs.deliver()
+        after = datetime.now(timezone.utc)
+        planned = scheduler.get_job("second-look").next_run_time
+        assert before + timedelta(seconds=30) <= planned <= after + timedelta(seconds=30)
+        assert json.loads((ws.root / SIGHTINGS_FILE).read_text())[FH_FILE][2] == "2026-01-15T06:01:00Z"
+        assert (ws.incoming / FH_FILE).exists()
+        clock.advance(timedelta(seconds=10))
+        jobs.deliver()  # looked at again, unchanged: the plan stands
+        assert scheduler.get_job("second-look").next_run_time == planned
+        clock.advance(timedelta(seconds=20))
+        scheduler.get_job("second-look").func()
+        assert (ws.processed / FH_FILE).exists() and scheduler.get_job("second-look") is None
+    finally:
+        scheduler.shutdown(wait=False)
+
+
 def test_a_second_look_close_to_the_regular_cycle_is_left_to_it(tmp_path, fake_cycle, caplog):
     ws = _workspace(tmp_path)
     calls = fake_cycle(_waiting(30))
