@@ -71,6 +71,10 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str 
         click.echo(f"ingested: {line}")
     for line in report.ingest_failures:
         click.echo(f"INGEST FAILED: {line}")
+    if report.second_look_due is not None:
+        click.echo(f"{report.second_looks} file(s) in incoming/ wait for their second look, due "
+                   f"{report.second_look_due:%Y-%m-%dT%H:%M:%SZ}: a cycle from then on takes what is unchanged "
+                   "(`slipwatch run` runs one then by itself)")  # fmt: skip
     for change in report.site_changes:
         click.echo(f"site alert {change}")
     for name in report.released:

@@ -411,15 +411,21 @@ def test_a_second_look_never_runs_a_cycle_while_another_runs(tmp_path, fake_cycl
 
 
 def test_ingest_says_when_waiting_files_can_be_taken(tmp_path):
+    # Each command meets a new file (first looked at by that command), so that whatever time
+    # passes between the commands, there is a file waiting for its second look.
     ws = _workspace(tmp_path)
-    (ws.incoming / FH_FILE).write_text(FH_ROWS, encoding="utf-8")
-    result = CliRunner().invoke(main, ["ingest", "-w", str(ws.root)])
+    runner, where = CliRunner(), ["-w", str(ws.root)]
+    (ws.incoming / "fh_a.csv").write_text(FH_ROWS, encoding="utf-8")
+    result = runner.invoke(main, ["ingest"] + where)
     assert result.exit_code == 0, result.output
-    assert "1 file(s) wait for their second look: run `slipwatch ingest` again in " in result.output
+    assert "file(s) wait for their second look: run `slipwatch ingest` again in " in result.output
     assert "or leave it to `slipwatch run`" in result.output
-    listed = CliRunner().invoke(main, ["ingest", "--json", "-w", str(ws.root)])
-    data = json.loads(listed.output)
-    assert list(data["second_looks"]) == [FH_FILE] and data["second_look_due_utc"] == data["second_looks"][FH_FILE]
+    (ws.incoming / "fh_b.csv").write_text(FH_ROWS.replace("05:45", "05:50"), encoding="utf-8")
+    assessed = runner.invoke(main, ["assess", "--all"] + where)
+    assert "file(s) in incoming/ wait for their second look, due " in assessed.output
+    (ws.incoming / "fh_c.csv").write_text(FH_ROWS.replace("05:45", "05:55"), encoding="utf-8")
+    data = json.loads(runner.invoke(main, ["ingest", "--json"] + where).output)
+    assert "fh_c.csv" in data["second_looks"] and data["second_look_due_utc"] == min(data["second_looks"].values())
 
 
 @pytest.mark.parametrize(
