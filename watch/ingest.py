@@ -59,8 +59,8 @@ from watch.workspace import Workspace
 
 __all__ = [
     "FileSummary", "IngestReport", "Correction", "ingest", "reread", "apply_corrections", "reconcile",
-    "record_first_look", "look_at_incoming", "settle_rain_record", "settle_piezometer_flags", "SUMMARY_ROWS", "TEMPORARY_SUFFIXES",
-    "SIGHTINGS_FILE",
+    "record_first_look", "look_at_incoming", "settle_rain_record", "settle_piezometer_flags", "SUMMARY_ROWS",
+    "TEMPORARY_SUFFIXES", "SIGHTINGS_FILE",
 ]  # fmt: skip
 
 #: Names that loggers and copy tools use while a file is still being written.
