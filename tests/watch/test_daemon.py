@@ -10,6 +10,7 @@ bounded; nothing asserts on speed.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import signal
 import subprocess
@@ -280,15 +281,19 @@ def test_daemon_stops_when_asked_and_the_delivery_job_waits_for_a_running_cycle(
 # --- second looks: a file is taken as soon as it is safely finished ------------------------------
 
 
-def _paused_scheduler(ws, clock, log_name="test-second-look"):
+@contextlib.contextmanager
+def _paused_scheduler(ws, clock):
     """The daemon's jobs on its scheduler, started paused: nothing runs by itself; the test calls
     the jobs as the scheduler would. The regular cycle is moved to where it stands after its
     first run (one interval, 15 minutes, ahead)."""
-    jobs = daemon._Jobs(ws, clock, threading.Event(), daemon.logging.getLogger(log_name))
+    jobs = daemon._Jobs(ws, clock, threading.Event(), daemon.logging.getLogger("test-second-look"))
     scheduler = daemon._scheduler(jobs, daemon.DaemonSettings())
     scheduler.start(paused=True)
-    scheduler.modify_job("assess", next_run_time=datetime.now(timezone.utc) + timedelta(minutes=15))
-    return jobs, scheduler
+    try:
+        scheduler.modify_job("assess", next_run_time=datetime.now(timezone.utc) + timedelta(minutes=15))
+        yield jobs, scheduler
+    finally:
+        scheduler.shutdown(wait=False)
 
 
 def _waiting(seconds: float):
@@ -313,8 +318,7 @@ def test_a_file_arriving_after_a_cycle_is_taken_at_its_second_look_not_an_interv
     # clock) later; that cycle takes it and plans nothing more.
     ws = _workspace(tmp_path)
     clock = ManualClock(START)
-    jobs, scheduler = _paused_scheduler(ws, clock)
-    try:
+    with _paused_scheduler(ws, clock) as (jobs, scheduler):
         (ws.incoming / FH_FILE).write_text(FH_ROWS, encoding="utf-8")
         before = datetime.now(timezone.utc)
         jobs.assess()
@@ -326,8 +330,6 @@ def test_a_file_arriving_after_a_cycle_is_taken_at_its_second_look_not_an_interv
         planned.func()  # what the scheduler runs when it comes due
         assert not (ws.incoming / FH_FILE).exists() and (ws.processed / FH_FILE).exists()
         assert scheduler.get_job("second-look") is None
-    finally:
-        scheduler.shutdown(wait=False)
     with ws.open_store(read_only=True) as store:
         assert [r["pore_pressure_kpa"] for r in store.readings("PZ-1", None, None)] == [12.5]
 
@@ -339,8 +341,7 @@ def test_between_cycles_the_delivery_job_looks_at_incoming_and_plans_the_second_
 
     ws = _workspace(tmp_path)
     clock = ManualClock(START)
-    jobs, scheduler = _paused_scheduler(ws, clock)
-    try:
+    with _paused_scheduler(ws, clock) as (jobs, scheduler):
         jobs.assess()  # nothing waiting: nothing planned
         assert scheduler.get_job("second-look") is None
         clock.advance(timedelta(seconds=60))
@@ -358,29 +359,23 @@ def test_between_cycles_the_delivery_job_looks_at_incoming_and_plans_the_second_
         clock.advance(timedelta(seconds=20))
         scheduler.get_job("second-look").func()
         assert (ws.processed / FH_FILE).exists() and scheduler.get_job("second-look") is None
-    finally:
-        scheduler.shutdown(wait=False)
 
 
 def test_a_second_look_close_to_the_regular_cycle_is_left_to_it(tmp_path, fake_cycle, caplog):
     ws = _workspace(tmp_path)
     calls = fake_cycle(_waiting(30))
-    jobs, scheduler = _paused_scheduler(ws, ManualClock(START))
-    try:
+    with _paused_scheduler(ws, ManualClock(START)) as (jobs, scheduler):
         scheduler.modify_job("assess", next_run_time=datetime.now(timezone.utc) + timedelta(seconds=45))
         with caplog.at_level("INFO"):
             jobs.assess()
         assert calls == [START] and scheduler.get_job("second-look") is None
         assert "second look left to the regular cycle" in caplog.text
-    finally:
-        scheduler.shutdown(wait=False)
 
 
 def test_each_cycle_replaces_the_planned_second_look(tmp_path, fake_cycle):
     ws = _workspace(tmp_path)
     fake_cycle(_waiting(120))
-    jobs, scheduler = _paused_scheduler(ws, ManualClock(START))
-    try:
+    with _paused_scheduler(ws, ManualClock(START)) as (jobs, scheduler):
         jobs.assess()
         first = scheduler.get_job("second-look").next_run_time
         fake_cycle(_waiting(300))
@@ -390,15 +385,12 @@ def test_each_cycle_replaces_the_planned_second_look(tmp_path, fake_cycle):
         fake_cycle(lambda workspace, clock, **kwargs: CycleReport(at=clock.now(), started=clock.now()))
         jobs.assess()  # nothing waits any more
         assert scheduler.get_job("second-look") is None
-    finally:
-        scheduler.shutdown(wait=False)
 
 
 def test_a_second_look_never_runs_a_cycle_while_another_runs(tmp_path, fake_cycle, caplog):
     ws = _workspace(tmp_path)
     calls = fake_cycle(_waiting(30))
-    jobs, scheduler = _paused_scheduler(ws, ManualClock(START))
-    try:
+    with _paused_scheduler(ws, ManualClock(START)) as (jobs, scheduler):
         with jobs.cycling, caplog.at_level("INFO"):  # a cycle under way
             jobs.second_look()
             jobs.assess()
@@ -406,8 +398,6 @@ def test_a_second_look_never_runs_a_cycle_while_another_runs(tmp_path, fake_cycl
         assert caplog.text.count("skipped: another cycle is running") == 2
         jobs.second_look()
         assert calls == [START]
-    finally:
-        scheduler.shutdown(wait=False)
 
 
 def test_ingest_says_when_waiting_files_can_be_taken(tmp_path):
