@@ -43,6 +43,8 @@ from watch.workspace import Workspace
 __all__ = [
     "MAX_SHELVE",
     "SectionContext",
+    "site_context",
+    "watch_failures",
     "AlertOutcome",
     "process_section_alerts",
     "release_shelved",
@@ -107,6 +109,16 @@ class SectionContext:
             "reading_age_h": {k: None if v is None else round(v, 2) for k, v in self.ages_h.items()},
             "assessment_id": self.assessment_id,
         }  # fmt: skip
+
+
+def site_context(config: SiteConfig, now: datetime, failures: list[str]) -> SectionContext:
+    """The context of the site's own alerts (stored under :data:`SITE_ALERTS`): the watch
+    itself, and what of it failed (``failures``, in words; none: it works)."""
+    failed = "; ".join(failures)
+    return SectionContext(
+        site_id=config.id, site_name=config.name, section_id=SITE_ALERTS, section_name="the watch itself",
+        at=now, status="failed" if failed else "ok", message=failed[:2000],
+    )  # fmt: skip
 
 
 @dataclass
@@ -446,8 +458,12 @@ def release_shelved(store: Store, config: SiteConfig, settings: AlertSettings, n
         if not row["shelved_until_utc"] or parse_utc_text(row["shelved_until_utc"]) > now:
             continue
         section_id = row["section_id"]
-        rules = ({r.rule.name: r for r in settings.rules_for(config, section_id)}
-                 if config.section_ref(section_id) is not None else {})
+        if section_id == SITE_ALERTS:
+            rules = {r.rule.name: r for r in settings.site_rules()}
+        elif config.section_ref(section_id) is not None:
+            rules = {r.rule.name: r for r in settings.rules_for(config, section_id)}
+        else:
+            rules = {}  # a section no longer in the site file
         with store.atomic():
             store.update_alert(row["id"], {"shelved_until_utc": None, "shelved_by": None,
                                            "shelved_reason": None, "shelved_utc": None})  # fmt: skip
@@ -463,7 +479,11 @@ def release_shelved(store: Store, config: SiteConfig, settings: AlertSettings, n
                      for name, r in section_rows.items() if name in rules}  # fmt: skip
             held = Transition(section_id, row["rule"], rule.rule.level, rule.rule.rank, AlertState.FIRING,
                               AlertState.FIRING, now, row["last_value"], row["episode"])  # fmt: skip
-            context = _stored_context(store, config, section_id, now)
+            if section_id == SITE_ALERTS:
+                last = store.last_ingest_failures()
+                context = site_context(config, now, last[1] if last else [])
+            else:
+                context = _stored_context(store, config, section_id, now)
             outcome = AlertOutcome()
             for announcement in announcements([held], views):
                 _announce(store, settings, announcement, rules, views,
@@ -516,10 +536,40 @@ def list_alerts(workspace: Workspace, clock: Clock, open_only: bool = False, at:
             "shelved_by": row["shelved_by"], "shelved_reason": row["shelved_reason"],
             "changes_in_window": sum(now - t <= window for t in record.changes),
             "chattering": is_chattering(record, window, settings.cycle.chatter_max_changes, now),
+            "watch_failing": _watch_failing(row),
         })  # fmt: skip
     order = {AlertState.FIRING.value: 0, AlertState.PENDING.value: 1}
-    result.sort(key=lambda a: (order.get(a["state"], 2), -a["rank"] if a["kind"] != "data" else 0,
-                               a["section_id"] or "", a["rule"]))  # fmt: skip
+    # An open alert of the watch itself comes first: while it is open no section's factor of
+    # safety can be trusted to be current.
+    result.sort(key=lambda a: (not a["watch_failing"], order.get(a["state"], 2),
+                               -a["rank"] if a["kind"] != "data" else 0, a["section_id"] or "", a["rule"]))  # fmt: skip
+    return result
+
+
+def _watch_failing(row: dict) -> bool:
+    """Whether a stored alert says that the watch itself is failing: an open site alert."""
+    return row["section_id"] == SITE_ALERTS and row["state"] in (AlertState.PENDING.value, AlertState.FIRING.value)
+
+
+def watch_failures(workspace: Workspace) -> list[dict]:
+    """The open alerts of the watch itself (the site's own alerts, pending or firing), each
+    with a ``headline`` in words for the top of ``status`` and ``alerts``: while one is open,
+    no section's factor of safety can be trusted to be current. Opens the store read-only."""
+    with workspace.open_store(read_only=True) as store:
+        rows = [row for row in store.alert_rows(SITE_ALERTS) if _watch_failing(row)]
+        last = store.last_ingest_failures() if rows else None
+    result = []
+    for row in rows:
+        since = record_of(row).since
+        what = "; ".join(last[1]) if last else row["message"]
+        when = f" (last at {last[0]})" if last else ""
+        result.append({
+            "alert_id": row["id"], "rule": row["rule"], "state": row["state"],
+            "since_utc": utc_text(since) if since else None, "what_failed": last[1] if last else [],
+            "headline": (f"the watch itself is failing: {what}{when}; alert #{row['id']} {row['rule']} "
+                         f"{row['state']} since {utc_text(since) if since else '-'}. No section's factor of "
+                         "safety can be trusted to be current until this is put right."),
+        })  # fmt: skip
     return result
 
 

@@ -52,14 +52,21 @@ def ingest(files: tuple[Path, ...], workspace: Path, progress: bool, as_json: bo
         slipwatch ingest --workspace /srv/slipwatch/quillmarsh
         slipwatch ingest north_2026-10-25.csv -w /srv/slipwatch/quillmarsh
     """
+    from watch.clock import SystemClock
     from watch.ingest import ingest as run_ingest
+    from watch.store import utc_text
+    from watch.text import printable
     from watch.workspace import open_workspace
 
-    report = run_ingest(open_workspace(workspace), list(files), progress=progress,
+    now = SystemClock().now()
+    report = run_ingest(open_workspace(workspace), list(files), now=now, progress=progress,
                         echo=None if as_json else click.echo)  # fmt: skip
+    due = report.second_look_due
     if as_json:
         echo_json({"files": [f.__dict__ for f in report.files], "waiting": report.waiting,
-                   "reconciled": report.reconciled, "failed": [f.name for f in report.failures]})  # fmt: skip
+                   "reconciled": report.reconciled, "failed": [f.name for f in report.failures],
+                   "second_looks": {printable(name): utc_text(at) for name, at in report.second_looks.items()},
+                   "second_look_due_utc": None if due is None else utc_text(due)})  # fmt: skip
         if report.failures:
             sys.exit(1)
         return
@@ -67,6 +74,10 @@ def ingest(files: tuple[Path, ...], workspace: Path, progress: bool, as_json: bo
         click.echo(f"reconciled: {line}")
     for line in report.waiting:
         click.echo(f"waiting: {line}")
+    if due is not None:
+        click.echo(f"{len(report.second_looks)} file(s) wait for their second look: run `slipwatch ingest` "
+                   f"again in {max(0.0, (due - now).total_seconds()):.0f} s (at {utc_text(due)}) and what is "
+                   "unchanged by then is taken; or leave it to `slipwatch run`, which looks again then by itself")  # fmt: skip
     if not report.files and not report.waiting:
         click.echo("nothing to ingest")
     if report.failures:
@@ -134,13 +145,15 @@ def backup(destination: Path, workspace: Path) -> None:
 def status(workspace: Path, at: str | None, as_json: bool) -> None:
     """Show every section, worst first (service state, factor of safety, level, trend, age of
     the newest reading, open alerts and inspections, data problems), then each instrument's
-    newest reading, its age and whether it is stale, and the files waiting in incoming/.
+    newest reading, its age and whether it is stale, and the files waiting in incoming/. An open
+    alert of the watch itself (its ingest failing) comes first, as a warning.
 
     \b
     Example:
         slipwatch status --workspace /srv/slipwatch/quillmarsh --json
         slipwatch status --at 2026-01-16T06:00Z
     """
+    from watch.alerting import watch_failures
     from watch.caution import CAUTION
     from watch.clock import SystemClock
     from watch.ingest import workspace_status
@@ -153,9 +166,13 @@ def status(workspace: Path, at: str | None, as_json: bool) -> None:
     now = SystemClock().now() if moment is None else parse_utc_text(moment)
     result = workspace_status(ws, now)
     result["sections"] = sections_status(ws, now)
+    # The failing watch is told as it stands now; a past --at shows it in the alerts instead.
+    result["watch_failing"] = watch_failures(ws) if moment is None else []
     if as_json:
         echo_json(result | {"caution": CAUTION})
         return
+    for failure in result["watch_failing"]:
+        click.echo(f"WARNING: {failure['headline']}")
     for line in format_sections(result["sections"])[:-1]:
         click.echo(line)
     click.echo(f"site {result['site']} at {result['now_utc']} (stale after {result['stale_hours']:g} h)")

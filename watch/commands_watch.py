@@ -92,6 +92,10 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str 
         click.echo(f"ingested: {line}")
     for line in report.ingest_failures:
         click.echo(f"INGEST FAILED: {line}")
+    if report.second_look_due is not None:
+        click.echo(f"{report.second_looks} file(s) in incoming/ wait for their second look, due "
+                   f"{report.second_look_due:%Y-%m-%dT%H:%M:%SZ}: a cycle from then on takes what is unchanged "
+                   "(`slipwatch run` runs one then by itself)")  # fmt: skip
     for change in report.site_changes:
         click.echo(f"site alert {change}")
     for name in report.released:
@@ -124,7 +128,8 @@ def assess(sections: tuple[str, ...], every: bool, at: str | None, cluster: str 
 @click.pass_context
 def alerts(ctx: click.Context, open_only: bool, at: str | None, workspace: Path, as_json: bool) -> None:
     """List the alerts, worst first: state, level, value, acknowledgement, shelving and
-    chattering. Subcommands acknowledge, shelve, close and list the history.
+    chattering; an open alert of the watch itself (section "(site)") comes first, with a
+    warning. Subcommands acknowledge, shelve, close and list the history.
 
     \b
     Example:
@@ -134,14 +139,17 @@ def alerts(ctx: click.Context, open_only: bool, at: str | None, workspace: Path,
     """
     if ctx.invoked_subcommand is not None:
         return
-    from watch.alerting import list_alerts
+    from watch.alerting import list_alerts, watch_failures
     from watch.clock import SystemClock
     from watch.workspace import open_workspace
 
-    rows = list_alerts(open_workspace(workspace), SystemClock(), open_only=open_only, at=parse_time_option(at, "--at"))
+    ws = open_workspace(workspace)
+    rows = list_alerts(ws, SystemClock(), open_only=open_only, at=parse_time_option(at, "--at"))
     if as_json:
-        echo_json(rows)
+        echo_json(rows)  # an open alert of the watch itself comes first, with watch_failing true
         return
+    for failure in (watch_failures(ws) if at is None else []):
+        click.echo(f"WARNING: {failure['headline']}")
     if not rows:
         click.echo("no open alerts" if open_only else "no alerts stored yet")
     for a in rows:

@@ -45,7 +45,8 @@ from solver.search import (
     warm_reevaluate,
 )
 from solver.slicing import slice_surface
-from watch.alerting import SectionContext, last_evaluations, process_section_alerts, release_shelved
+from watch.alerting import (SectionContext, last_evaluations, process_section_alerts, release_shelved,
+                            site_context)
 from watch.analysis import analyse, surface_of
 from watch.assessment_status import ON_DESIGN_LINES, fos_basis
 from watch.clock import Clock, ManualClock
@@ -117,6 +118,10 @@ class CycleReport:
     started: datetime
     files: list[str] = field(default_factory=list)  # ingest summary lines
     ingest_failures: list[str] = field(default_factory=list)  # what the watch failed on while ingesting
+    #: Files the ingest left waiting for their second look (IngestReport.second_looks), and
+    #: when the first of them can be taken: the daemon runs a cycle then.
+    second_looks: int = 0
+    second_look_due: datetime | None = None
     site_changes: list[str] = field(default_factory=list)  # state changes of the site's own alerts
     site_notifications: int = 0  # queued by them
     sections: list[SectionOutcome] = field(default_factory=list)
@@ -147,6 +152,8 @@ class CycleReport:
             "seconds": round(self.seconds, 3),
             "files": self.files,
             "ingest_failures": self.ingest_failures,
+            "second_looks": self.second_looks,
+            "second_look_due_utc": None if self.second_look_due is None else utc_text(self.second_look_due),
             "site_changes": self.site_changes,
             "sections": [asdict(s) | {"fos_basis": fos_basis(s.status)} for s in self.sections],
             "released": self.released,
@@ -212,6 +219,7 @@ def run_cycle(
         else:
             report.files = [f.line() for f in ingested.files]
             report.ingest_failures = [f.line() for f in ingested.failures]
+            report.second_looks, report.second_look_due = len(ingested.second_looks), ingested.second_look_due
     config = workspace.config()
     settings = alert_settings(config)
     chosen = _chosen_sections(config, sections)
@@ -250,11 +258,7 @@ def _record_site_alerts(store: Store, config: SiteConfig, settings: AlertSetting
     rules = settings.site_rules()
     if not rules:
         return
-    failed = "; ".join(report.ingest_failures)
-    context = SectionContext(
-        site_id=config.id, site_name=config.name, section_id=SITE_ALERTS, section_name="the watch itself",
-        at=now, status="failed" if failed else "ok", message=failed[:2000],
-    )  # fmt: skip
+    context = site_context(config, now, report.ingest_failures)
     values = {rule.rule.name: float(bool(report.ingest_failures)) for rule in rules}
     result = process_section_alerts(store, config, settings, SITE_ALERTS, rules, values, now, now, context)
     report.site_changes = result.changes

@@ -5,13 +5,25 @@ Two jobs run on an APScheduler ``BackgroundScheduler`` with interval triggers in
 * the assessment job, every ``interval_minutes``: one assessment cycle (watch.cycle.run_cycle:
   ingest what is waiting, water lines, factors of safety, triggers, queued notifications), then
   the delivery of everything due;
-* the delivery job, every ``delivery_seconds``: only the delivery, so that grouped messages and
-  retries go out between cycles. It skips its turn while the assessment job runs (that job
-  delivers at its end).
+* the delivery job, every ``delivery_seconds``: a look at incoming/ (watch.ingest.look_at_incoming,
+  which records the first look at new files and takes nothing) and the delivery, so that
+  grouped messages and retries go out between cycles. It skips its turn while the assessment
+  job runs (that job ingests and delivers itself).
 
 Both jobs have ``coalesce=True``, ``max_instances=1`` and an explicit ``misfire_grace_time``.
 Each run processes everything pending, not one time window, so a late, skipped or coalesced
 run loses nothing: the next one picks it all up.
+
+Second looks: the ingest takes a file from incoming/ only when two looks at least
+``min_file_age_seconds`` apart found it unchanged (watch.ingest). When a cycle, or the look
+of the delivery job, leaves files waiting for their second look, a one-off cycle is scheduled
+for the moment the first of them can be taken (by the injected clock). So a file arriving
+just after a cycle is assessed about ``delivery_seconds + min_file_age_seconds`` after it
+arrived (90 s by default) instead of up to two intervals later. The one-off cycle is left out
+when the regular cycle comes within :data:`SECOND_LOOK_SLACK_SECONDS` of it; each cycle
+replaces the one planned before it (a look only brings it forward); and only one cycle runs at
+a time: a cycle that finds another one running skips its turn (the running one ingests
+everything waiting and plans the next second look itself).
 
 One daemon per workspace: ``.daemon.lock`` is held with ``fcntl.flock`` for the life of the
 process (the OS drops it if the process dies) and names the holder (pid, host, start time), so
@@ -44,22 +56,31 @@ from pathlib import Path
 
 from apscheduler.executors.pool import ThreadPoolExecutor
 from apscheduler.schedulers.background import BackgroundScheduler
+from apscheduler.triggers.date import DateTrigger
 from apscheduler.triggers.interval import IntervalTrigger
 
 from watch.clock import Clock, ManualClock, SystemClock
 from watch.config import SiteConfig, TableReader
 from watch.errors import ConfigError, UserError, WorkspaceError
+from watch.ingest import look_at_incoming
 from watch.notify import DeliveryReport, deliver_pending, missing_credentials, notify_settings
 from watch.store import utc_text
 from watch.workspace import Workspace
 
-__all__ = ["DaemonSettings", "DaemonLock", "daemon_settings", "run_once", "run_daemon", "LOCK_FILE", "LOGGER"]
+__all__ = ["DaemonSettings", "DaemonLock", "daemon_settings", "run_once", "run_daemon", "LOCK_FILE", "LOGGER",
+           "SECOND_LOOK_SLACK_SECONDS"]
 
 LOCK_FILE = ".daemon.lock"
 LOGGER = "slipwatch"
 
 _EXIT_CLEAN, _EXIT_FORCED = 0, 1
 _EXIT_FAILED = 1  # run --once: the cycle, the ingest or a section failed
+
+#: A second-look cycle due less than this before the next regular cycle is left to that one
+#: [s]: two cycles a few seconds apart would do the same work twice.
+SECOND_LOOK_SLACK_SECONDS = 60.0
+
+_SECOND_LOOK_JOB = "second-look"
 
 
 @dataclass(frozen=True)
@@ -190,33 +211,102 @@ def _report_lines(report) -> list[str]:
             text += f"; {s.message}"
         lines.append(text + "".join(f"; {c}" for c in s.changes))
     lines += [f"un-shelved: {r}" for r in report.released] + [f"warning: {c}" for c in report.chattering]
+    if report.second_look_due is not None:
+        lines.append(f"{report.second_looks} file(s) in incoming/ wait for their second look; the first "
+                     f"can be taken at {utc_text(report.second_look_due)}")  # fmt: skip
     lines.append(f"cycle at {utc_text(report.at)}: {len(report.sections)} sections, "
                  f"{len(report.failed)} failed, {report.notifications} notifications queued")  # fmt: skip
     return lines
 
 
 class _Jobs:
-    """The two scheduled jobs; one runs at a time (``busy``)."""
+    """The scheduled jobs. One job runs at a time (``busy``) and one cycle at a time
+    (``cycling``); ``scheduler`` is set once the scheduler exists, for the second looks."""
 
     def __init__(self, workspace: Workspace, clock: Clock, stop: threading.Event, log: logging.Logger):
         self.workspace, self.clock, self.stop, self.log = workspace, clock, stop, log
         self.busy = threading.Lock()
+        self.cycling = threading.Lock()
+        self.scheduler: BackgroundScheduler | None = None
 
     def assess(self) -> None:
+        """The regular assessment cycle."""
+        self._cycle("assessment cycle")
+
+    def second_look(self) -> None:
+        """The one-off cycle that takes the files whose second look is due."""
+        self._cycle("second-look cycle")
+
+    def _cycle(self, what: str) -> None:
         if self.stop.is_set():
             return
-        with self.busy:
-            self.log.info("assessment cycle starting")
-            run_once(self.workspace, self.clock, should_stop=self.stop.is_set, log=self.log)
-            self.log.info("assessment cycle done")
+        if not self.cycling.acquire(blocking=False):
+            self.log.info("%s skipped: another cycle is running (it takes whatever is waiting)", what)
+            return
+        try:
+            with self.busy:
+                self.log.info("%s starting", what)
+                cycle_report, _ = run_once(self.workspace, self.clock, should_stop=self.stop.is_set, log=self.log)
+                self.log.info("%s done", what)
+                # The cycle's ingest has seen everything waiting: its plan replaces any other.
+                self._plan_second_look(None if cycle_report is None else cycle_report.second_look_due)
+        finally:
+            self.cycling.release()
+
+    def _plan_second_look(self, due: datetime | None, keep_earlier: bool = False) -> None:
+        """Plan the second-look cycle at ``due`` (by the injected clock; None: none is needed),
+        replacing the one planned before (``keep_earlier``: unless that one comes first), and
+        leaving it out when the regular cycle comes first (within SECOND_LOOK_SLACK_SECONDS)."""
+        if self.scheduler is None or self.stop.is_set():
+            return
+        if due is None:
+            self._drop_second_look()
+            return
+        # The scheduler runs on the system clock; the wait is measured on the injected one.
+        wait = max(0.0, (due - self.clock.now()).total_seconds())
+        run_at = datetime.now(timezone.utc) + timedelta(seconds=wait)
+        planned = self.scheduler.get_job(_SECOND_LOOK_JOB)
+        if keep_earlier and planned is not None and planned.next_run_time <= run_at:
+            return
+        regular = self.scheduler.get_job("assess")
+        if regular is not None and regular.next_run_time is not None and \
+                regular.next_run_time <= run_at + timedelta(seconds=SECOND_LOOK_SLACK_SECONDS):
+            self._drop_second_look()
+            self.log.info("second look left to the regular cycle at %s", utc_text(regular.next_run_time))
+            return
+        self.scheduler.add_job(
+            self.second_look, DateTrigger(run_at, timezone=timezone.utc), id=_SECOND_LOOK_JOB,
+            name="second-look cycle", replace_existing=True, coalesce=True, max_instances=1,
+            misfire_grace_time=None,
+        )  # fmt: skip
+        self.log.info("second-look cycle planned in %.0f s (%s by the service's clock)", wait, utc_text(due))
+
+    def _drop_second_look(self) -> None:
+        if self.scheduler.get_job(_SECOND_LOOK_JOB) is not None:
+            self.scheduler.remove_job(_SECOND_LOOK_JOB)
 
     def deliver(self) -> None:
+        """The delivery of what is due, after a look at incoming/ (so that a file's first look
+        does not wait for the next cycle)."""
         if self.stop.is_set() or not self.busy.acquire(blocking=False):
-            return  # a running cycle delivers at its end
+            return  # a running cycle ingests and delivers itself
         try:
+            self._look()
             _deliver(self.workspace, self.clock, self.stop.is_set, self.log)
         finally:
             self.busy.release()
+
+    def _look(self) -> None:
+        try:
+            due = look_at_incoming(self.workspace, self.clock.now())
+        except UserError as error:
+            self.log.error("look at incoming/ failed: %s", error)
+            return
+        except Exception:  # noqa: BLE001 - the service keeps running; the next cycle's ingest reports it
+            self.log.exception("look at incoming/ failed unexpectedly")
+            return
+        if due is not None:
+            self._plan_second_look(due, keep_earlier=True)
 
 
 def run_daemon(workspace: Workspace, *, interval_minutes: float | None = None, once: bool = False,
@@ -302,10 +392,13 @@ def _serve(workspace: Workspace, clock: Clock, settings: DaemonSettings, stop: t
 
 
 def _scheduler(jobs: _Jobs, settings: DaemonSettings) -> BackgroundScheduler:
-    """The two jobs on interval triggers in UTC; the assessment job's first run is at once."""
+    """The two jobs on interval triggers in UTC; the assessment job's first run is at once.
+    The jobs plan their second-look cycles on this scheduler."""
     interval = settings.interval_minutes * 60.0
     grace = settings.misfire_grace_seconds
-    scheduler = BackgroundScheduler(timezone=timezone.utc, executors={"default": ThreadPoolExecutor(2)})
+    # Three threads: the regular cycle, a second-look cycle (which skips its turn while the
+    # regular one runs) and the delivery.
+    scheduler = BackgroundScheduler(timezone=timezone.utc, executors={"default": ThreadPoolExecutor(3)})
     scheduler.add_job(
         jobs.assess, IntervalTrigger(seconds=interval, timezone=timezone.utc),
         id="assess", name="assessment cycle", next_run_time=datetime.now(timezone.utc),
@@ -316,6 +409,7 @@ def _scheduler(jobs: _Jobs, settings: DaemonSettings) -> BackgroundScheduler:
         id="deliver", name="notification delivery", coalesce=True, max_instances=1,
         misfire_grace_time=max(1, round(grace or settings.delivery_seconds)),
     )  # fmt: skip
+    jobs.scheduler = scheduler
     return scheduler
 
 

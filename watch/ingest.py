@@ -33,7 +33,7 @@ import sqlite3
 import stat
 import time
 from dataclasses import dataclass, field, replace
-from datetime import datetime, timezone
+from datetime import datetime, timedelta, timezone
 from itertools import repeat
 from pathlib import Path
 
@@ -59,8 +59,8 @@ from watch.workspace import Workspace
 
 __all__ = [
     "FileSummary", "IngestReport", "Correction", "ingest", "reread", "apply_corrections", "reconcile",
-    "record_first_look", "settle_rain_record", "settle_piezometer_flags", "SUMMARY_ROWS", "TEMPORARY_SUFFIXES",
-    "SIGHTINGS_FILE",
+    "record_first_look", "look_at_incoming", "settle_rain_record", "settle_piezometer_flags", "SUMMARY_ROWS",
+    "TEMPORARY_SUFFIXES", "SIGHTINGS_FILE",
 ]  # fmt: skip
 
 #: Names that loggers and copy tools use while a file is still being written.
@@ -145,6 +145,14 @@ class IngestReport:
     files: list[FileSummary] = field(default_factory=list)
     waiting: list[str] = field(default_factory=list)  # left for the next pass, with the reason
     reconciled: list[str] = field(default_factory=list)
+    #: Files left waiting only for their second look: name -> the earliest time (by the
+    #: ingest's clock) at which a pass takes them if they have not changed by then.
+    second_looks: dict[str, datetime] = field(default_factory=dict)
+
+    @property
+    def second_look_due(self) -> datetime | None:
+        """When the first of the files waiting for their second look can be taken, or None."""
+        return min(self.second_looks.values(), default=None)
 
     @property
     def failures(self) -> list[FileSummary]:
@@ -219,23 +227,20 @@ def _claim_waiting(workspace: Workspace, config: SiteConfig, now: datetime, repo
     first_looks = _load_sightings(workspace)
     looks: dict[str, list] = {}
     claims = []
-    for path in sorted(workspace.incoming.iterdir()):
+    for path, info, kind in _delivered(workspace, done):
         name = path.name
-        if name.startswith("."):
-            continue
-        info = os.lstat(path)
-        if not stat.S_ISREG(info.st_mode):
+        if kind == "not regular":
             report.files.append(_refuse(workspace, path, info))
             continue
-        if done and name.endswith(done):
+        if kind == "marker":
             if not path.with_name(name[: -len(done)]).exists():
                 _archive_orphan_marker(workspace, path, settings.min_file_age_seconds)
             continue
-        if name.endswith(TEMPORARY_SUFFIXES):
+        if kind == "temporary":
             report.waiting.append(f"{name} (temporary name: still being written)")
             continue
         marker = path.with_name(name + done) if done else None
-        marked = marker is not None and marker.is_file() and not marker.is_symlink()
+        marked = kind == "marked"
         if not marked:
             look = [info.st_size, info.st_mtime_ns]
             first = first_looks.get(name)
@@ -244,6 +249,7 @@ def _claim_waiting(workspace: Workspace, config: SiteConfig, now: datetime, repo
             looks[name] = first
             unchanged = (now - parse_utc_text(first[2])).total_seconds()
             if unchanged < settings.min_file_age_seconds:
+                report.second_looks[name] = parse_utc_text(first[2]) + timedelta(seconds=settings.min_file_age_seconds)
                 report.waiting.append(f"{name} (unchanged for {max(unchanged, 0):.0f} s of the "
                                       f"{settings.min_file_age_seconds:g} s of min_file_age_seconds)")  # fmt: skip
                 continue
@@ -268,6 +274,52 @@ def _claim_waiting(workspace: Workspace, config: SiteConfig, now: datetime, repo
         claims.append(_Claim(target, name, marker if marked else None, complete=marked))
     _save_sightings(workspace, looks)
     return claims
+
+
+def _delivered(workspace: Workspace, done: str | None):
+    """The entries of incoming/ in name order (dot-names left out), each as ``(path, lstat,
+    kind)``: kind is 'not regular' (a link, folder, device...), 'marker' (a done-marker),
+    'temporary' (a name a file has while it is written), 'marked' (a file whose done-marker
+    exists) or 'plain'."""
+    for path in sorted(workspace.incoming.iterdir()):
+        name = path.name
+        if name.startswith("."):
+            continue
+        info = os.lstat(path)
+        if not stat.S_ISREG(info.st_mode):
+            kind = "not regular"
+        elif done and name.endswith(done):
+            kind = "marker"
+        elif name.endswith(TEMPORARY_SUFFIXES):
+            kind = "temporary"
+        else:
+            marker = path.with_name(name + done) if done else None
+            kind = "marked" if marker is not None and marker.is_file() and not marker.is_symlink() else "plain"
+        yield path, info, kind
+
+
+def look_at_incoming(workspace: Workspace, now: datetime) -> datetime | None:
+    """Look at incoming/ between ingest passes, taking nothing: record the first look at
+    every file that is new or changed since it was last looked at, and return when the first
+    of those can be taken (``now`` for a file with its done-marker), or None when there is
+    nothing new (and when an ingest is running: it looks itself). For the daemon, so that a
+    file's first look does not wait for the next cycle."""
+    try:
+        with _IngestLock(workspace):
+            settings = workspace.config().ingest
+            looks = _load_sightings(workspace)
+            seen = utc_text(now)  # as stored: the ingest times the second look from this text
+            due = []
+            for path, info, kind in _delivered(workspace, settings.done_suffix):
+                if kind == "marked":
+                    due.append(now)
+                elif kind == "plain" and looks.get(path.name, [])[:2] != [info.st_size, info.st_mtime_ns]:
+                    looks[path.name] = [info.st_size, info.st_mtime_ns, seen]
+                    due.append(parse_utc_text(seen) + timedelta(seconds=settings.min_file_age_seconds))
+            _save_sightings(workspace, looks)
+    except BusyError:
+        return None
+    return min(due, default=None)
 
 
 def _ends_with_line_end(path: Path, size: int) -> bool:

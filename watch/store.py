@@ -1381,6 +1381,16 @@ class Store:
         self.conn.execute("UPDATE cycles SET finished_utc = ?, report_json = ? WHERE id = ?",
                           (finished_utc, report_json, cycle_id))  # fmt: skip
 
+    def last_ingest_failures(self) -> tuple[str, list[str]] | None:
+        """(when, what) of the newest finished cycle whose ingest failed: its ``at_utc`` and the
+        lines of its report's ``ingest_failures``; None when no cycle's ingest ever failed."""
+        row = self.conn.execute(
+            "SELECT at_utc, json_extract(report_json, '$.ingest_failures') FROM cycles "
+            "WHERE finished_utc IS NOT NULL AND json_array_length(report_json, '$.ingest_failures') > 0 "
+            "ORDER BY id DESC LIMIT 1"
+        ).fetchone()
+        return None if row is None else (row[0], json.loads(row[1]))
+
     def _insert_row(self, table: str, row: dict, conflict: str | None = None) -> int | None:
         # Column names come from our own code, never from input; values are ? parameters.
         columns = ", ".join(row)

@@ -328,6 +328,73 @@ def test_a_failed_ingest_raises_the_site_alert_notified_like_any_other_and_the_c
     assert again.ingest_failures == [] and again.site_changes == ["data-ingest: firing -> resolved"]
 
 
+def _broken_ingest(*args, **kwargs):
+    raise RuntimeError("stand-in for an ingest bug")
+
+
+def test_a_shelved_site_alert_that_expires_while_still_firing_is_announced_again(tmp_path, monkeypatch):
+    import watch.cycle
+    from watch.alerting import list_alerts, shelve
+
+    workspace = make_workspace(tmp_path / "ws")
+    clock = ManualClock(START)
+    real_ingest = watch.cycle.ingest
+
+    def cycle(ingest):
+        monkeypatch.setattr(watch.cycle, "ingest", ingest)
+        return run_cycle(workspace, clock, sections=["WC-040"], compute=_stand_in)
+
+    cycle(_broken_ingest)  # fires (episode 1) and is told
+    (site,) = [a for a in list_alerts(workspace, clock) if a["section_id"] == "(site)"]
+    shelve(workspace, clock, site["id"], START + timedelta(hours=20), "ingest fix under way", "duty engineer")
+    clock.advance(STEP)
+    cycle(real_ingest)  # resolved
+    clock.advance(STEP)
+    cycle(_broken_ingest)  # fires again (episode 2) while shelved: held
+
+    def site_keys():
+        with workspace.open_store(read_only=True) as store:
+            return {r["idempotency_key"]: r for r in store.outbox() if r["section_id"] == "(site)"}
+
+    assert "(site)/data-ingest/2/data" not in site_keys()
+    clock.advance(timedelta(hours=12))  # past the shelving's end, still failing
+    report = cycle(_broken_ingest)
+    assert report.released == ["(site)/data-ingest"]
+    held = site_keys()["(site)/data-ingest/2/data"]
+    assert "What failed: the ingest failed: RuntimeError: stand-in for an ingest bug." in held["body"]
+
+
+def test_status_and_alerts_put_the_watch_failing_at_the_top(tmp_path, monkeypatch):
+    import watch.cycle
+    from click.testing import CliRunner
+
+    from watch.cli import main
+
+    workspace = make_workspace(tmp_path / "ws")
+    monkeypatch.setattr(watch.cycle, "ingest", _broken_ingest)
+    run_cycle(workspace, ManualClock(START), sections=["WC-040"], compute=_stand_in)
+    with workspace.open_store() as store, store.atomic():  # a red level firing elsewhere, worse by rank
+        store.add_alert({"section_id": "WC-060", "rule": "fos-red", "level": "red", "rank": 3, "kind": "level",
+                         "state": "firing", "episode": 1, "state_json": "{}", "message": "FoS below red",
+                         "raised_utc": "2026-01-14T06:00:00Z", "updated_utc": "2026-01-14T06:00:00Z"})  # fmt: skip
+    runner, where = CliRunner(), ["-w", str(workspace.root)]
+    headline = ("the watch itself is failing: the ingest failed: RuntimeError: stand-in for an ingest bug "
+                "(last at 2026-01-14T06:00:00Z); alert #")  # fmt: skip
+    for command in (["status"], ["alerts"], ["alerts", "--open"]):
+        result = runner.invoke(main, command + where)
+        assert result.exit_code == 0, result.output
+        first = result.output.splitlines()[0]
+        assert first.startswith("WARNING: " + headline), first
+        assert "No section's factor of safety can be trusted to be current" in first
+    status = json.loads(runner.invoke(main, ["status", "--json"] + where).output)
+    (failing,) = status["watch_failing"]
+    assert failing["headline"].startswith(headline) and failing["state"] == "firing"
+    assert failing["what_failed"] == ["the ingest failed: RuntimeError: stand-in for an ingest bug"]
+    rows = json.loads(runner.invoke(main, ["alerts", "--json"] + where).output)
+    assert (rows[0]["section_id"], rows[0]["watch_failing"]) == ("(site)", True)
+    assert rows[1]["rule"] == "fos-red" and not any(r["watch_failing"] for r in rows[1:])
+
+
 def test_an_unforeseen_error_preparing_one_section_fails_that_section_only(tmp_path, monkeypatch):
     import watch.cycle
 

@@ -10,6 +10,7 @@ bounded; nothing asserts on speed.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import signal
 import subprocess
@@ -275,6 +276,146 @@ def test_daemon_stops_when_asked_and_the_delivery_job_waits_for_a_running_cycle(
     thread.join(WAIT_S)
     assert result == [0]
     assert "stopped cleanly" in _log(ws)
+
+
+# --- second looks: a file is taken as soon as it is safely finished ------------------------------
+
+
+@contextlib.contextmanager
+def _paused_scheduler(ws, clock):
+    """The daemon's jobs on its scheduler, started paused: nothing runs by itself; the test calls
+    the jobs as the scheduler would. The regular cycle is moved to where it stands after its
+    first run (one interval, 15 minutes, ahead)."""
+    jobs = daemon._Jobs(ws, clock, threading.Event(), daemon.logging.getLogger("test-second-look"))
+    scheduler = daemon._scheduler(jobs, daemon.DaemonSettings())
+    scheduler.start(paused=True)
+    try:
+        scheduler.modify_job("assess", next_run_time=datetime.now(timezone.utc) + timedelta(minutes=15))
+        yield jobs, scheduler
+    finally:
+        scheduler.shutdown(wait=False)
+
+
+def _waiting(seconds: float):
+    """A stand-in cycle that leaves one file waiting for its second look, due ``seconds`` after
+    the clock's now."""
+
+    def cycle(workspace, clock, **kwargs):
+        return CycleReport(at=clock.now(), started=clock.now(), second_looks=1,
+                           second_look_due=clock.now() + timedelta(seconds=seconds))  # fmt: skip
+
+    return cycle
+
+
+FH_FILE = "fh_2026-01-15.csv"
+# One row of the example site's feed (its logger keeps UK time, which is UTC in January).
+FH_ROWS = "Timestamp,PZ1_kPa,PZ2_digits,Rain_tips,PZ2_degC\n2026-01-15 05:45,12.5,,,\n"
+
+
+def test_a_file_arriving_after_a_cycle_is_taken_at_its_second_look_not_an_interval_later(tmp_path):
+    # The real cycle and ingest on the example workspace (min_file_age_seconds = 30, 15-minute
+    # interval): the cycle that first sees the file plans a one-off cycle 30 s (by the service's
+    # clock) later; that cycle takes it and plans nothing more.
+    ws = _workspace(tmp_path)
+    clock = ManualClock(START)
+    with _paused_scheduler(ws, clock) as (jobs, scheduler):
+        (ws.incoming / FH_FILE).write_text(FH_ROWS, encoding="utf-8")
+        before = datetime.now(timezone.utc)
+        jobs.assess()
+        after = datetime.now(timezone.utc)
+        assert (ws.incoming / FH_FILE).exists()  # first look only
+        planned = scheduler.get_job("second-look")
+        assert before + timedelta(seconds=30) <= planned.next_run_time <= after + timedelta(seconds=30)
+        clock.advance(timedelta(seconds=30))
+        planned.func()  # what the scheduler runs when it comes due
+        assert not (ws.incoming / FH_FILE).exists() and (ws.processed / FH_FILE).exists()
+        assert scheduler.get_job("second-look") is None
+    with ws.open_store(read_only=True) as store:
+        assert [r["pore_pressure_kpa"] for r in store.readings("PZ-1", None, None)] == [12.5]
+
+
+def test_between_cycles_the_delivery_job_looks_at_incoming_and_plans_the_second_look(tmp_path):
+    # A file arriving after a cycle gets its first look from the delivery job (every
+    # delivery_seconds), not from the next cycle 15 minutes later; the look takes nothing.
+    from watch.ingest import SIGHTINGS_FILE
+
+    ws = _workspace(tmp_path)
+    clock = ManualClock(START)
+    with _paused_scheduler(ws, clock) as (jobs, scheduler):
+        jobs.assess()  # nothing waiting: nothing planned
+        assert scheduler.get_job("second-look") is None
+        clock.advance(timedelta(seconds=60))
+        (ws.incoming / FH_FILE).write_text(FH_ROWS, encoding="utf-8")
+        before = datetime.now(timezone.utc)
+        jobs.deliver()
+        after = datetime.now(timezone.utc)
+        planned = scheduler.get_job("second-look").next_run_time
+        assert before + timedelta(seconds=30) <= planned <= after + timedelta(seconds=30)
+        assert json.loads((ws.root / SIGHTINGS_FILE).read_text())[FH_FILE][2] == "2026-01-15T06:01:00Z"
+        assert (ws.incoming / FH_FILE).exists()
+        clock.advance(timedelta(seconds=10))
+        jobs.deliver()  # looked at again, unchanged: the plan stands
+        assert scheduler.get_job("second-look").next_run_time == planned
+        clock.advance(timedelta(seconds=20))
+        scheduler.get_job("second-look").func()
+        assert (ws.processed / FH_FILE).exists() and scheduler.get_job("second-look") is None
+
+
+def test_a_second_look_close_to_the_regular_cycle_is_left_to_it(tmp_path, fake_cycle, caplog):
+    ws = _workspace(tmp_path)
+    calls = fake_cycle(_waiting(30))
+    with _paused_scheduler(ws, ManualClock(START)) as (jobs, scheduler):
+        scheduler.modify_job("assess", next_run_time=datetime.now(timezone.utc) + timedelta(seconds=45))
+        with caplog.at_level("INFO"):
+            jobs.assess()
+        assert calls == [START] and scheduler.get_job("second-look") is None
+        assert "second look left to the regular cycle" in caplog.text
+
+
+def test_each_cycle_replaces_the_planned_second_look(tmp_path, fake_cycle):
+    ws = _workspace(tmp_path)
+    fake_cycle(_waiting(120))
+    with _paused_scheduler(ws, ManualClock(START)) as (jobs, scheduler):
+        jobs.assess()
+        first = scheduler.get_job("second-look").next_run_time
+        fake_cycle(_waiting(300))
+        jobs.second_look()
+        (job,) = [j for j in scheduler.get_jobs() if j.id == "second-look"]
+        assert job.next_run_time - first >= timedelta(seconds=170)  # 300 s instead of 120 s
+        fake_cycle(lambda workspace, clock, **kwargs: CycleReport(at=clock.now(), started=clock.now()))
+        jobs.assess()  # nothing waits any more
+        assert scheduler.get_job("second-look") is None
+
+
+def test_a_second_look_never_runs_a_cycle_while_another_runs(tmp_path, fake_cycle, caplog):
+    ws = _workspace(tmp_path)
+    calls = fake_cycle(_waiting(30))
+    with _paused_scheduler(ws, ManualClock(START)) as (jobs, scheduler):
+        with jobs.cycling, caplog.at_level("INFO"):  # a cycle under way
+            jobs.second_look()
+            jobs.assess()
+        assert calls == []
+        assert caplog.text.count("skipped: another cycle is running") == 2
+        jobs.second_look()
+        assert calls == [START]
+
+
+def test_ingest_says_when_waiting_files_can_be_taken(tmp_path):
+    # Each command meets a new file (first looked at by that command), so that whatever time
+    # passes between the commands, there is a file waiting for its second look.
+    ws = _workspace(tmp_path)
+    runner, where = CliRunner(), ["-w", str(ws.root)]
+    (ws.incoming / "fh_a.csv").write_text(FH_ROWS, encoding="utf-8")
+    result = runner.invoke(main, ["ingest"] + where)
+    assert result.exit_code == 0, result.output
+    assert "file(s) wait for their second look: run `slipwatch ingest` again in " in result.output
+    assert "or leave it to `slipwatch run`" in result.output
+    (ws.incoming / "fh_b.csv").write_text(FH_ROWS.replace("05:45", "05:50"), encoding="utf-8")
+    assessed = runner.invoke(main, ["assess", "--all"] + where)
+    assert "file(s) in incoming/ wait for their second look, due " in assessed.output
+    (ws.incoming / "fh_c.csv").write_text(FH_ROWS.replace("05:45", "05:55"), encoding="utf-8")
+    data = json.loads(runner.invoke(main, ["ingest", "--json"] + where).output)
+    assert "fh_c.csv" in data["second_looks"] and data["second_look_due_utc"] == min(data["second_looks"].values())
 
 
 @pytest.mark.parametrize(
