@@ -306,3 +306,89 @@ def test_unknown_form_and_bad_settings_are_named():
         BackAnalysisSettings(cohesion_range=(5.0, 1.0))
     with pytest.raises(ValueError, match="needs friction_angles"):
         fos_unity_locus(slip, "Weak")
+
+
+# --- a long planar slip against the infinite slope; sections weighted by length -------------
+
+#: A long uniform slope at BETA (1500 m of face), dry, in one c'-phi' soil (synthetic).
+BETA, FACE, GAMMA = 20.0, 1500.0, 19.0
+PLANAR_TOP = FACE * np.tan(np.radians(BETA))
+PLANAR_GROUND = [[0.0, PLANAR_TOP], [20.0, PLANAR_TOP], [20.0 + FACE, 0.0], [40.0 + FACE, 0.0]]
+
+
+def planar_slope():
+    return section_from_dict({
+        "section": {"id": "P"},
+        "ground": {"points": PLANAR_GROUND},
+        "material": [{"name": "Clay", "unit_weight": GAMMA, "cohesion": 5.0,
+                      "friction_angle": 20.0, "water": "none"}],
+        "stratum": [{"material": "Clay"}],
+    })
+
+
+def planar_slip(depth):
+    """A slip plane parallel to the face at vertical depth ``depth`` [m], rising at 45 deg to
+    the ground at the scarp and at the toe."""
+    ground = np.array(PLANAR_GROUND)
+    x1, x2 = 20.0 + 2 * depth, 20.0 + FACE - 2 * depth
+    x = np.linspace(x1, x2, 50)
+    ends = np.array([x1 - depth, x2 + depth])
+    return np.vstack([[[ends[0], np.interp(ends[0], *ground.T)]],
+                      np.column_stack([x, np.interp(x, *ground.T) - depth]),
+                      [[ends[1], np.interp(ends[1], *ground.T)]]])
+
+
+def infinite_slope_cohesion(depth, friction_angle):
+    """c' at F = 1 on a dry infinite slope: from F = (c' + gamma z cos^2(beta) tan(phi')) /
+    (gamma z sin(beta) cos(beta)) (Skempton and DeLory 1957; Duncan, Wright and Brandon 2014,
+    ch. 6), c' = gamma z cos^2(beta) (tan(beta) - tan(phi'))."""
+    beta, phi = np.radians(BETA), np.radians(friction_angle)
+    return GAMMA * depth * np.cos(beta) ** 2 * (np.tan(beta) - np.tan(phi))
+
+
+@pytest.mark.parametrize("method", ["spencer", "bishop_simplified", "morgenstern_price"])
+def test_locus_of_a_long_planar_slip_is_the_infinite_slope_closed_form(method):
+    phis = np.array([0.0, 5.0, 10.0, 15.0])
+    locus = fos_unity_locus(ObservedSlip(planar_slope(), planar_slip(2.0)), "Clay",
+                            friction_angles=phis, settings=BackAnalysisSettings(method=method))
+    # Skempton and DeLory (1957), closed form above. Tolerance 2 % (as for the methods
+    # against the infinite slope in tests/solver/test_infinite_slope.py): the scarp and toe
+    # of a real slip add resistance over about 6 m of its 1600 m, which lowers c' by < 1 %.
+    np.testing.assert_allclose(locus.cohesion, infinite_slope_cohesion(2.0, phis), rtol=0.02)
+
+
+def test_sections_are_weighted_by_the_length_of_slope_they_represent():
+    section = planar_slope()
+    shallow, deep = planar_slip(2.0), planar_slip(4.0)
+    slips = [ObservedSlip(section, shallow, "A", length=30.0),
+             ObservedSlip(section, deep, "B", length=10.0)]
+    locus = fos_unity_locus(slips, "Clay", friction_angles=[0.0])
+    # With phi' = 0 everywhere F is proportional to c' (F is a strength reduction factor:
+    # scaling c' by k scales F by k), so F_k(c') = c' / c_k with c_k the section's own root,
+    # and sum w_k F_k = 1 gives the length-weighted harmonic mean c' = 1 / sum(w_k / c_k),
+    # w = (30, 10) / 40. Exact up to the root tolerance.
+    own_a, own_b = locus.by_section["A"][0], locus.by_section["B"][0]
+    np.testing.assert_allclose(locus.cohesion[0], 1.0 / (0.75 / own_a + 0.25 / own_b), rtol=1e-6)
+    # By hand from the closed form (Skempton and DeLory 1957): c_A = 19 x 2 x sin 20 cos 20
+    # = 12.21 kPa, c_B = 24.43 kPa, so c' = 1 / (0.75 / 12.21 + 0.25 / 24.43) = 13.96 kPa
+    # (unweighted: 16.28 kPa). Tolerance 2 % as above.
+    np.testing.assert_allclose(locus.cohesion[0], 13.96, rtol=0.02)
+    # Equal lengths weigh as no lengths at all (the unweighted mean).
+    equal = fos_unity_locus([ObservedSlip(section, shallow, "A", length=5.0),
+                             ObservedSlip(section, deep, "B", length=5.0)], "Clay",
+                            friction_angles=[0.0])
+    unweighted = fos_unity_locus([ObservedSlip(section, shallow, "A"),
+                                  ObservedSlip(section, deep, "B")], "Clay",
+                                 friction_angles=[0.0])
+    np.testing.assert_allclose(equal.cohesion, unweighted.cohesion, rtol=1e-9)
+    np.testing.assert_allclose(unweighted.cohesion[0], 16.28, rtol=0.02)
+
+
+def test_lengths_must_be_given_for_every_section_or_none():
+    section = planar_slope()
+    with pytest.raises(ValueError, match="given for 1 of 2 sections"):
+        fos_unity_locus([ObservedSlip(section, planar_slip(2.0), "A", length=30.0),
+                         ObservedSlip(section, planar_slip(4.0), "B")], "Clay",
+                        friction_angles=[0.0])
+    with pytest.raises(ValueError, match="length = -3 m"):
+        ObservedSlip(section, planar_slip(2.0), "A", length=-3)
