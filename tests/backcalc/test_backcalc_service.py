@@ -133,10 +133,21 @@ def test_backcalc_and_calibrate_commands(workspace, tmp_path):
     assert text.exit_code == 0, text.output
     assert "FoS = 1 locus" in text.output and "Best fit: c' =" in text.output
 
+    assert data["consistency"]["consistent"] is True
+    # WC-040 and WC-080 have no stored record in this workspace, so their record cannot be
+    # checked: refused, nothing stored, one line.
+    refused = runner.invoke(main, ["calibrate", str(saved), "--sections", "WC-040 WC-080",
+                                   "--by", "T. Tester", "-w", str(workspace.root)])
+    assert refused.exit_code == 1
+    assert "refused: section WC-040: no stored assessment" in refused.output
+    assert len(refused.output.strip().splitlines()) == 1
+    reason = "record not yet ingested; checked by hand against the January storm"
     done = runner.invoke(main, ["calibrate", str(saved), "--sections", "WC-040 WC-080",
-                                "--by", "T. Tester", "-w", str(workspace.root)])
+                                "--by", "T. Tester", "-w", str(workspace.root),
+                                "--override", reason])
     assert done.exit_code == 0, done.output
     assert "WC-040: 'Weak clay'" in done.output and "WC-080: 'Weak clay'" in done.output
+    assert f"Override recorded: {reason}" in done.output
     best = data["best"]
     with workspace.open_store() as store:
         section, version_id = current_section(workspace, store, "WC-080")
@@ -149,6 +160,8 @@ def test_backcalc_and_calibrate_commands(workspace, tmp_path):
     assert "back-analysis TEST-1" in history[-1].provenance
     assert "calibrated by T. Tester" in history[-1].provenance
     assert rows[0]["section_version_id"] == version_id and rows[0]["back_analysis_id"] == 1
+    assert rows[0]["override_reason"] == reason
+    assert f"checks overridden: {reason}" in history[-1].provenance
 
     wrong = runner.invoke(main, ["calibrate", str(saved), "--sections", "FE-210",
                                  "-w", str(workspace.root)])
@@ -161,10 +174,12 @@ def test_calibrate_is_all_or_nothing(workspace, tmp_path):
                        record=False)
     with workspace.open_store() as store:
         with pytest.raises(ConfigError, match="'FE-210' has no material"):
-            calibrate(workspace, store, outcome, ["WC-040", "FE-210"], "T. Tester", NOW)
+            calibrate(workspace, store, outcome, ["WC-040", "FE-210"], "T. Tester", NOW,
+                      override="test")
         assert store.calibration_rows() == []
-        assert [v.version for v in section_history(store, "WC-040")] == []
-        done = calibrate(workspace, store, outcome, ["WC-040"], "T. Tester", NOW)
+        assert [v.version for v in section_history(store, "WC-040")] == [1]  # the file
+        done = calibrate(workspace, store, outcome, ["WC-040"], "T. Tester", NOW,
+                         override="no record in this test workspace")
     assert done[0].after["cohesion_kpa"] == 0.0
     np.testing.assert_allclose(done[0].after["friction_angle_deg"],
                                outcome.result.best.friction_angle, rtol=1e-12)
