@@ -336,3 +336,16 @@ def test_case_file_lengths_weigh_the_sections(workspace, tmp_path):
     case.write_text(text.replace("length_m = 24.0", "length_m = 0"), encoding="utf-8")
     with pytest.raises(ConfigError, match=r"\[slip\] length_m = 0 must be > 0"):
         load_case(case)
+
+
+def test_an_override_is_shown_where_calibrations_are_listed(workspace, tmp_path):
+    from watch.board import build_board, section_page_name
+
+    outcome = run_case(workspace, write_case(tmp_path, "residual", 1), ManualClock(NOW),
+                       record=False)
+    reason = "neighbour record not yet ingested"
+    with workspace.open_store() as store:
+        calibrate(workspace, store, outcome, ["WC-040"], "T. Tester", NOW, override=reason)
+    board = build_board(workspace, NOW)
+    page = (board.out / section_page_name("WC-040")).read_text(encoding="utf-8")
+    assert "Checks overridden" in page and reason in page
