@@ -597,7 +597,9 @@ def format_report(outcome: CaseResult) -> str:
     for when, described in outcome.water.items():
         lines.append(f"Water, {when}: " + "; ".join(f"{k}: {v}" for k, v in described.items()))
     lines.append("")
-    lines.append("FoS = 1 locus on the observed surface:")
+    lines.append("FoS = 1 locus on the observed surface" + (
+        " (F at a stood time: the lowest over the observed surface and the critical surfaces "
+        "searched then):" if result.history is not None else ":"))
     header = "  phi' [deg]  c' [kPa]" if locus.form != "undrained" else "  Su [kPa]"
     stood = result.history is not None
     if stood:
