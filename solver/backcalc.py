@@ -1554,20 +1554,23 @@ def _search(section: Section, settings: BackAnalysisSettings, match: MatchSettin
     return result
 
 
-def _critical_surface(section: Section, settings: BackAnalysisSettings, match: MatchSettings,
-                      direction: int | None = None):
-    return _search(section, settings, match, direction).critical
+def _search_with(model, strength: dict, settings, match, when: str = "",
+                 direction: int | None = None):
+    """The critical-surface search on ``model``'s section with ``strength`` (on the face that
+    moves in ``direction``, every face when None); BackAnalysisError naming the section, the
+    time (``when``) and the strength when it finds nothing."""
+    try:
+        return _search(_section_with(model, strength), settings, match, direction)
+    except SearchError as error:
+        raise BackAnalysisError(
+            f"no critical surface found on {model.name!r}{when} with "
+            f"{_describe(strength, model.form)}: {error}"
+        ) from None
 
 
 def _fit(model: _SlipModel, strength: dict, settings, match) -> SurfaceFit:
-    section = _section_with(model, strength)
-    try:
-        critical = _critical_surface(section, settings, match, _movement(model.surface))
-    except SearchError as error:
-        raise BackAnalysisError(
-            f"no critical surface found on {model.name!r} with {_describe(strength, model.form)}: "
-            f"{error}"
-        ) from None
+    critical = _search_with(model, strength, settings, match,
+                            direction=_movement(model.surface)).critical
     points = _critical_points(critical)
     misfit, observed_area, distance = surface_misfit(model.section.ground, model.surface, points)
     return SurfaceFit(
@@ -1829,16 +1832,8 @@ def _searched_surfaces(model, strengths, settings, search, label) -> list[_SlipM
     water of one time) with each strength, as models whose strength can be replaced."""
     found, seen = [], set()
     for strength in strengths:
-        section = _section_with(model, strength)
-        try:
-            result = _search(section, settings, search)
-        except SearchError as error:
-            raise BackAnalysisError(
-                f"no critical surface found on {model.name!r} at {label} with "
-                f"{_describe(strength, model.form)}: {error}"
-            ) from None
-        for surface in result.surfaces:
-            key = (surface.kind, round(surface.entry_x, 2), round(surface.exit_x, 2),
+        for surface in _search_with(model, strength, settings, search, f" at {label}").surfaces:
+            key = (surface.kind, round(surface.scarp_x, 2), round(surface.toe_x, 2),
                    round(surface.depth, 2))
             if key in seen:
                 continue
@@ -2036,8 +2031,7 @@ def _fixed_of(locus: Locus) -> np.ndarray:
 def _best_point(locus: Locus, best: LocusMatch | None) -> tuple[float, float]:
     """(fixed parameter, solved value) of the best fit, or of the middle solved point."""
     if best is not None:
-        strength = {"cohesion": best.cohesion, "friction_angle": best.friction_angle,
-                    "undrained_strength": best.undrained_strength}
+        strength = _strength_of(best)
     else:
         solved = np.flatnonzero(locus.found)
         strength = locus.point(int(solved[solved.size // 2]))
