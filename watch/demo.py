@@ -143,9 +143,16 @@ def run_demo(
         with ws.open_store() as store:
             done = calibrate(ws, store, outcome, list(settings.calibrate_sections),
                              "demo engineer", clock.now())
+        echo("   the best fit passes its consistency checks: "
+             + "; ".join(c.detail for c in outcome.result.consistency))
         for item in done:
             echo(f"   calibrated {item.section_id} ({item.material}): {_strength(item.before)} "
                  f"-> {_strength(item.after)}, parameter version {item.version}")
+            record = [c for c in item.checks if c["name"].startswith("record")]
+            if record:
+                lowest = min(record, key=lambda c: c["fos"])
+                echo(f"      it stands with the new strength at the {len(record)} worst times of "
+                     f"its record (lowest FoS {lowest['fos']:.3f}, {lowest['time_utc']})")
         summary["back_analysis"] = {"cohesion": best.cohesion,
                                     "friction_angle": best.friction_angle, "plot": str(plot)}
 
