@@ -392,3 +392,24 @@ def test_lengths_must_be_given_for_every_section_or_none():
                         friction_angles=[0.0])
     with pytest.raises(ValueError, match="length = -3 m"):
         ObservedSlip(section, planar_slip(2.0), "A", length=-3)
+
+
+def test_a_best_fit_that_fails_a_stood_time_is_flagged_inconsistent():
+    # A stood time wetter than the failure everywhere: on a fixed surface F falls as the pore
+    # pressure rises (the effective normal force falls; Duncan, Wright and Brandon 2014,
+    # ch. 6), and F = 1 on the observed surface at failure, so no strength on the locus can
+    # have stood then. The result must say so as data, not only in a note.
+    wetter = layered([[x, y + 0.4] for x, y in WET])
+    slip = ObservedSlip(layered(), COMPOSITE)
+    result = back_analyse(slip, "Weak", friction_angles=[10.0, 20.0, 30.0],
+                          stood=[StoodCondition("wetter", (wetter,))],
+                          match=MatchSettings(points=2, refine=0, non_circular=False),
+                          water_change=None, unit_weight_change=None)
+    checks = {c.name: c for c in result.consistency}
+    assert set(checks) == {"observed surface at failure", "critical surface at failure", "wetter"}
+    assert checks["observed surface at failure"].passed  # one section: F = 1 by the locus
+    assert checks["observed surface at failure"].value < 1e-5
+    assert not checks["wetter"].passed and checks["wetter"].value < 1.0
+    assert result.consistent is False
+    assert not result.history.surviving.any()
+    np.testing.assert_array_less(result.history.checks[0].observed_fos[result.locus.found], 1.0)
