@@ -164,6 +164,16 @@ BACKCALC_SURVEY_SNAP = 0.01
 #: Trial circles through the scarp and toe of a bounded slip, spread evenly over the
 #: admissible depths (both bounds included).
 BACKCALC_BOUNDED_CIRCLES = 25
+#: Allowance [-] of F on each observed surface at failure about 1, with the best-fit strength.
+#: With one section F = 1 there by construction; with several only their length-weighted mean
+#: is 1, and a section far from 1 did not fail with that strength. Our choice (the accuracy of
+#: a surveyed surface and of the water at failure), not a published value.
+BACKCALC_OBSERVED_ALLOWANCE = 0.05
+#: Allowance [-] below 1 of F on the critical surface searched at failure with the best-fit
+#: strength: the searched (optimised) surface lies a little below the surveyed one, which is
+#: drawn through a few points. Our choice, not a published value; a critical F further below
+#: 1 means the slope would have failed on another surface before the observed one.
+BACKCALC_CRITICAL_ALLOWANCE = 0.05
 
 # The flattest trial circle through two ends has its centre this many chord lengths above the
 # chord (its sagitta is then chord / 400): flatter arcs add nothing a section can resolve.
@@ -689,7 +699,7 @@ class ConsistencyCheck:
     ----------
     name : str
         What is checked: "observed surface at failure", "critical surface at failure" or
-        "stood <time>".
+        the label of a stood time.
     passed : bool
     value : float
         [-] The factor of safety checked (for the observed surface: the largest departure of
@@ -2133,18 +2143,6 @@ def back_analyse(
         bounded=bounded, consistency=checks,
         weights=tuple(float(w) for w in section_weights([s.length for s in slips])),
     )  # fmt: skip
-
-
-#: Allowance [-] of F on each observed surface at failure about 1, with the best-fit strength.
-#: With one section F = 1 there by construction; with several only their length-weighted mean
-#: is 1, and a section far from 1 did not fail with that strength. Our choice (the accuracy of
-#: a surveyed surface and of the water at failure), not a published value.
-BACKCALC_OBSERVED_ALLOWANCE = 0.05
-#: Allowance [-] below 1 of F on the critical surface searched at failure with the best-fit
-#: strength: the searched (optimised) surface lies a little below the surveyed one, which is
-#: drawn through a few points. Our choice, not a published value; a critical F further below
-#: 1 means the slope would have failed on another surface before the observed one.
-BACKCALC_CRITICAL_ALLOWANCE = 0.05
 
 
 def consistency_checks(
