@@ -137,7 +137,7 @@ def run_demo(
              "observed one at FoS = 1)")
         history = outcome.result.history
         if history is not None:
-            echo(f"   range consistent with the record (stood dates FoS >= 1): "
+            echo(f"   range consistent with the record (FoS >= 1 on every surface searched at each stood date): "
                  f"{_range_text(history)}")
         before = _latest_fos(ws, settings.calibrate_sections)
         with ws.open_store() as store:
