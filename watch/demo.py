@@ -137,8 +137,8 @@ def run_demo(
              "observed one at FoS = 1)")
         history = outcome.result.history
         if history is not None:
-            echo(f"   range consistent with the record (FoS >= 1 on every surface searched at each stood date): "
-                 f"{_range_text(history)}")
+            echo("   range consistent with the record (FoS >= 1 on every surface searched at "
+                 f"each stood date): {_range_text(history)}")
         before = _latest_fos(ws, settings.calibrate_sections)
         with ws.open_store() as store:
             done = calibrate(ws, store, outcome, list(settings.calibrate_sections),
