@@ -31,7 +31,7 @@ from watch.config import SiteConfig
 from watch.errors import CalibrationRefused, ConfigError, StoreError
 from watch.sections import load_section
 from watch.store import Store, parse_utc_text, utc_text
-from watch.waterlines import stored_water_lines
+from watch.waterlines import section_with_stored_lines, stored_water_lines
 from watch.workspace import Workspace
 
 __all__ = [
@@ -265,9 +265,9 @@ def check_record(
                             "watch cycle over its record first")]
     checks = []
     for row in chosen:
-        lines = {r["line_name"]: r["points"] for r in stored_water_lines(store, assessment_id=row["id"])}
+        lines = stored_water_lines(store, assessment_id=row["id"])
         try:
-            trial = with_strength(section.with_water_lines(lines), material, **strength)
+            trial = with_strength(section_with_stored_lines(section, lines), material, **strength)
             result = analyse(trial)
         except (SolverError, SectionError) as error:
             checks.append(RecordCheck(section_id, row["time_utc"], row["fos"], None, "", False,

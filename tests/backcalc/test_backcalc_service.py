@@ -287,10 +287,13 @@ def test_calibrate_checks_each_target_section_against_its_own_record(workspace, 
         _store_assessment(store, "WC-040", version_id, "2026-01-05T12:00:00Z", 1.33, ordinary)
         _store_assessment(store, "WC-040", version_id, "2026-01-15T18:00:00Z", 1.02, storm)
     # An independent search (solver.search, outside the calibration) with the new strength:
-    # WC-040 stands on the ordinary day and would fail in the storm it stood through.
+    # WC-040 stands on the ordinary day and would fail in the storm it stood through. The
+    # lines are drawn through measured heads, so no cos^2 correction (Skempton and DeLory
+    # 1957: it belongs to a phreatic line with seepage parallel to the slope).
     settings = SearchSettings(method="spencer", min_depth=1.0)
     fos = {name: search_critical_surface(
-        with_strength(section.with_water_lines(lines), "Weak clay", **strength), settings,
+        with_strength(section.with_water_lines(lines, {n: False for n in lines}), "Weak clay",
+                      **strength), settings,
         screen_with="bishop_simplified").fos for name, lines in (("ordinary", ordinary),
                                                                  ("storm", storm))}
     assert fos["ordinary"] > 1.0 > fos["storm"]
