@@ -188,7 +188,7 @@ def test_history_checks_the_searched_surfaces_not_only_the_observed_one():
                                     screen_with="bishop_simplified").critical
     assert found.fos < 1.0
     np.testing.assert_allclose(check.fos[i], found.fos, rtol=0.02)  # same search, polyline arcs
-    x = np.linspace(found.entry_x, found.exit_x, 60)
+    x = np.linspace(found.scarp_x, found.toe_x, 60)
     arc = np.column_stack([x, found.centre_y - np.sqrt(found.radius**2 - (x - found.centre_x) ** 2)])
     misfit, observed_area, _ = surface_misfit(stood_section, COMPOSITE, arc)
     assert misfit > 0.25 * observed_area
