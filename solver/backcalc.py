@@ -26,10 +26,18 @@ The forms of strength solved for (``form``):
     Total stress: Su (at the material's strength datum; a stated strength gradient is kept).
 
 Several sections through the same slip are solved jointly for one parameter set: the joint
-locus is the c' (or phi', Su) at which the *mean* factor of safety of the observed surfaces is 1
-(each section's own locus is reported beside it, so a poor agreement between sections shows),
-the stood-date checks require F >= 1 on every section, and the surface-match score is the mean
-of the sections' relative misfits.
+locus is the c' (or phi', Su) at which the mean factor of safety of the observed surfaces,
+weighted by the length of slope each section represents (:func:`section_weights`), is 1 (each
+section's own locus is reported beside it, so a poor agreement between sections shows), the
+stood-date checks require F >= 1 on every section, and the surface-match score is the
+length-weighted mean of the sections' relative misfits.
+
+The record check (:func:`history_constraints`) searches the critical surface at every stood
+time: F >= 1 must hold on every surface, not only on the observed one, since a strength under
+which any other surface fails at a time when the slope stood is contradicted by the record.
+:func:`back_analyse` states, as data (:class:`ConsistencyCheck`), whether the best fit passes
+its own checks: F close to 1 on each observed surface at failure, no searched surface at
+failure well below it, and F >= 1 on every searched surface at every stood time.
 
 When only the ends of the slip are known (back scarp and toe surveyed on the ground) with a
 bound on its depth (an inclinometer shear zone, a trial pit), the observed slip is a
@@ -105,6 +113,9 @@ __all__ = [
     "HistoryResult",
     "SensitivityCase",
     "BackAnalysisResult",
+    "ConsistencyCheck",
+    "consistency_checks",
+    "section_weights",
     "with_strength",
     "fos_with_strength",
     "circles_through_ends",
@@ -153,6 +164,16 @@ BACKCALC_SURVEY_SNAP = 0.01
 #: Trial circles through the scarp and toe of a bounded slip, spread evenly over the
 #: admissible depths (both bounds included).
 BACKCALC_BOUNDED_CIRCLES = 25
+#: Allowance [-] of F on each observed surface at failure about 1, with the best-fit strength.
+#: With one section F = 1 there by construction; with several only their length-weighted mean
+#: is 1, and a section far from 1 did not fail with that strength. Our choice (the accuracy of
+#: a surveyed surface and of the water at failure), not a published value.
+BACKCALC_OBSERVED_ALLOWANCE = 0.05
+#: Allowance [-] below 1 of F on the critical surface searched at failure with the best-fit
+#: strength: the searched (optimised) surface lies a little below the surveyed one, which is
+#: drawn through a few points. Our choice, not a published value; a critical F further below
+#: 1 means the slope would have failed on another surface before the observed one.
+BACKCALC_CRITICAL_ALLOWANCE = 0.05
 
 # The flattest trial circle through two ends has its centre this many chord lengths above the
 # chord (its sagitta is then chord / 400): flatter arcs add nothing a section can resolve.
@@ -303,6 +324,10 @@ class ObservedSlip:
         Label in reports (default: the section id).
     snap : float
         [m] Tolerance of the ends on the ground (:data:`BACKCALC_SURVEY_SNAP`).
+    length : float or None
+        [m] Length of slope, along the slope's strike, that this section represents: its
+        weight when several sections are solved jointly (:func:`section_weights`). None on
+        every section weighs them equally.
 
     Raises
     ------
@@ -315,8 +340,10 @@ class ObservedSlip:
     surface: np.ndarray
     name: str = ""
     snap: float = BACKCALC_SURVEY_SNAP
+    length: float | None = None
 
     def __post_init__(self) -> None:
+        _check_length(self.length)
         points = np.array(self.surface, dtype=float)
         if points.ndim != 2 or points.shape[1] != 2 or len(points) < 2:
             raise ObservedSurfaceError(
@@ -405,6 +432,8 @@ class BoundedSlip:
         Trial circles spread over the admissible depths.
     ground_tolerance : float
         [m] How far the surveyed scarp and toe may lie from the ground line.
+    length : float or None
+        [m] Length of slope this section represents (as :class:`ObservedSlip`).
 
     Raises
     ------
@@ -421,8 +450,10 @@ class BoundedSlip:
     name: str = ""
     n_circles: int = BACKCALC_BOUNDED_CIRCLES
     ground_tolerance: float = BACKCALC_GROUND_TOLERANCE
+    length: float | None = None
 
     def __post_init__(self) -> None:
+        _check_length(self.length)
         _positive_int("n_circles", self.n_circles)
         if not (_is_number(self.max_depth) and self.max_depth > 0):
             raise ObservedSurfaceError(f"max_depth = {self.max_depth!r} m must be a number > 0 "
@@ -615,7 +646,8 @@ class BoundedSurface:
 class LocusMatch:
     """A locus point with the critical surfaces its strength gives.
 
-    ``score`` is the mean ``misfit_ratio`` over the sections; the best fit has the lowest.
+    ``score`` is the mean ``misfit_ratio`` over the sections, weighted by the length of slope
+    each represents (:func:`section_weights`); the best fit has the lowest.
     ``refined`` is True for points added by the refinement between locus points.
     """
 
@@ -629,13 +661,60 @@ class LocusMatch:
 
 @dataclass(frozen=True)
 class HistoryCheck:
-    """F on the observed surface(s) at one stood time, for every locus point.
+    """F at one stood time, for every locus point (see :func:`history_constraints`).
 
-    ``fos`` is the lowest over the sections [-]; ``stood`` is True where it is >= 1."""
+    Attributes
+    ----------
+    label : str
+    fos : ndarray (n,)
+        [-] Lowest F over the sections and over every surface checked: the observed one and
+        the critical surfaces searched at that time (NaN: undecided).
+    stood : ndarray of bool (n,)
+        Where ``fos`` >= 1.
+    observed_fos : ndarray (n,)
+        [-] Lowest F over the observed surfaces alone (a necessary condition only).
+    searches : int
+        Critical-surface searches run at that time (strengths times sections).
+    surfaces : int
+        Distinct searched surfaces re-evaluated at every point.
+    best_fos : float
+        [-] ``fos`` at the best fit's own strength (NaN without a best fit).
+    """
 
     label: str
     fos: np.ndarray
     stood: np.ndarray
+    observed_fos: np.ndarray
+    searches: int = 0
+    surfaces: int = 0
+    best_fos: float = math.nan
+
+
+@dataclass(frozen=True)
+class ConsistencyCheck:
+    """One check of a back-analysis result against its own premises (see
+    :func:`consistency_checks`).
+
+    Attributes
+    ----------
+    name : str
+        What is checked: "observed surface at failure", "critical surface at failure" or
+        the label of a stood time.
+    passed : bool
+    value : float
+        [-] The factor of safety checked (for the observed surface: the largest departure of
+        a section's F from 1).
+    limit : float
+        [-] The limit it is held to.
+    detail : str
+        The check in words, with the section or time that governs.
+    """
+
+    name: str
+    passed: bool
+    value: float
+    limit: float
+    detail: str
 
 
 @dataclass(frozen=True)
@@ -701,6 +780,9 @@ class BackAnalysisResult:
     gives F = 1 on the observed surface(s) and a critical surface closest to the observed one.
     ``bounded`` gives, for every solved locus point and every :class:`BoundedSlip`, the
     critical circle through its ends with its depth against the bounds.
+    ``consistency`` holds the checks of the best fit against the record
+    (:func:`consistency_checks`; empty without a best fit) and ``consistent`` says whether it
+    passes them all. ``weights`` are the sections' weights (:func:`section_weights`).
     ``notes`` carries warnings in plain words.
     """
 
@@ -715,6 +797,13 @@ class BackAnalysisResult:
     slips: tuple[str, ...]
     notes: tuple[str, ...] = ()
     bounded: tuple[BoundedSurface, ...] = ()
+    consistency: tuple[ConsistencyCheck, ...] = ()
+    weights: tuple[float, ...] = ()
+
+    @property
+    def consistent(self) -> bool:
+        """True when there is a best fit and it passes every consistency check."""
+        return bool(self.consistency) and all(c.passed for c in self.consistency)
 
 
 # --------------------------------------------------------------------------------------------
@@ -784,15 +873,17 @@ class _SlipModel:
     """One observed surface sliced once, with the strength of the chosen material's base
     slices replaceable by arrays of trial strengths (one trial per row)."""
 
-    def __init__(self, slip: ObservedSlip, material: str, form: str, settings: BackAnalysisSettings):
+    def __init__(self, slip: ObservedSlip, material: str, form: str, settings: BackAnalysisSettings,
+                 require_material: bool = True, direction: int | None = None):
         section, index = _prepared_section(slip.section, material, form)
         self.name = slip.name
+        self.length = slip.length
         self.material = material
         self.section = section
         self.surface = slip.surface
         self.form = form
         self.settings = settings
-        batch = slice_polyline(section, slip.surface, settings.n_slices)
+        batch = slice_polyline(section, slip.surface, settings.n_slices, direction=direction)
         if not batch.valid[0]:
             raise ObservedSurfaceError(
                 f"observed surface of {slip.name!r} (x = {slip.surface[0, 0]:g} to "
@@ -802,7 +893,7 @@ class _SlipModel:
             )
         self.slices: Slices = batch.slices
         self.mask = (self.slices.base_material == index) & self.slices.active
-        if not self.mask.any():
+        if require_material and not self.mask.any():
             found = sorted({section.materials[i].name for i in np.unique(
                 self.slices.base_material[self.slices.active]) if i >= 0})
             raise ObservedSurfaceError(
@@ -950,7 +1041,7 @@ class _BoundedSlipModel:
     def __init__(self, slip: BoundedSlip, material: str, form: str, settings: BackAnalysisSettings):
         section, index = _prepared_section(slip.section, material, form)
         self.name, self.material, self.section, self.form = slip.name, material, section, form
-        self.settings, self.slip = settings, slip
+        self.settings, self.slip, self.length = settings, slip, slip.length
         circles, depth = circles_through_ends(
             section, slip.scarp[0], slip.toe[0], max_depth=slip.max_depth,
             min_depth=slip.min_depth, n_circles=slip.n_circles)
@@ -990,12 +1081,8 @@ class _BoundedSlipModel:
                               np.repeat(c, k), np.repeat(phi, k), np.repeat(su, k),
                               self.su_reference)
         solved = factor_of_safety(trials, self.settings.method, **self.options)
-        fos = np.asarray(solved.fos, dtype=float)
-        # As in the search (solver.search): a converged F resting on m_alpha at or below its
-        # limit is doubtful and does not compete.
-        doubtful = solved.low_m_alpha & ~solved.admissible
-        usable = np.asarray(solved.converged, bool) & np.isfinite(fos) & (fos > 0) & ~doubtful
-        fos = np.where(usable, fos, np.inf).reshape(c.size, k)
+        fos = np.where(_usable(solved), np.asarray(solved.fos, dtype=float),
+                       np.inf).reshape(c.size, k)
         critical = np.argmin(fos, axis=1)
         lowest = fos[np.arange(c.size), critical]
         found = np.isfinite(lowest)
@@ -1122,9 +1209,10 @@ def fos_unity_locus(
 
     For the cohesion_friction form, for each phi' of ``friction_angles`` the c' with
 
-    .. math:: \bar F(c', \phi') = \frac{1}{n_s} \sum_{k=1}^{n_s} F_k(c', \phi') = 1
+    .. math:: \bar F(c', \phi') = \sum_{k=1}^{n_s} w_k F_k(c', \phi') = 1
 
-    (n_s observed sections; one section: F = 1), found by Brent's method
+    (n_s observed sections weighted by the length of slope each represents,
+    :func:`section_weights`; one section: F = 1), found by Brent's method
     (:func:`scipy.optimize.brentq`) within ``settings.cohesion_range``. F increases with c' on
     a fixed surface, so a root exists exactly when F at the two ends of the bracket lies on
     either side of 1; both ends are solved for every phi' in one batch. The friction form
@@ -1211,21 +1299,69 @@ def _bracket(form: str, settings: BackAnalysisSettings) -> tuple[float, float]:
     }[form]
 
 
+def section_weights(lengths: Sequence[float | None]) -> np.ndarray:
+    r"""Weights of sections solved jointly, from the length of slope each represents.
+
+    .. math:: w_k = \frac{L_k}{\sum_j L_j}
+
+    so that the joint factor of safety :math:`\bar F = \sum_k w_k F_k` is the mean along the
+    slip, each section standing for its stretch of slope. Common practice, not a published
+    method: several 2D sections through one slide stand for the parts of it they cut, and an
+    unweighted mean would count a short stretch as much as a long one. Without any length
+    every section weighs the same.
+
+    Parameters
+    ----------
+    lengths : sequence of float or None
+        [m] Length of slope each section represents (> 0), or None on every one.
+
+    Returns
+    -------
+    ndarray (n,)
+        [-] Weights summing to 1.
+
+    Raises
+    ------
+    BackAnalysisError
+        Lengths given for some sections but not for others.
+    """
+    lengths = list(lengths)
+    missing = [i for i, length in enumerate(lengths) if length is None]
+    if len(missing) == len(lengths):
+        return np.full(len(lengths), 1.0 / len(lengths))
+    if missing:
+        raise BackAnalysisError(
+            f"the length of slope represented is given for {len(lengths) - len(missing)} of "
+            f"{len(lengths)} sections: give it for every section (or for none, to weigh them "
+            "equally)"
+        )
+    values = np.array(lengths, dtype=float)
+    return values / values.sum()
+
+
+def _check_length(length) -> None:
+    if length is not None and not (_is_number(length) and length > 0):
+        raise BackAnalysisError(f"length = {length!r} m of slope represented must be a number > 0 "
+                                "(or None)")
+
+
 def _mean_fos(models, form, fixed, value) -> tuple[np.ndarray, list[str]]:
-    """Mean F over the sections for rows (fixed, value); NaN where a section's method did not
+    """Mean F over the sections, weighted by the length of slope each represents
+    (:func:`section_weights`), for rows (fixed, value); NaN where a section's method did not
     converge or gave no F. Also the first non-empty message of each row."""
     c, phi, su = _trial(form, fixed, value)
     total = np.zeros(np.size(value))
     messages = [""] * np.size(value)
-    for model in models:
+    weights = section_weights([m.length for m in models])
+    for model, weight in zip(models, weights):
         solved = model.fos(c, phi, su)
         fos = np.where(solved.converged & np.isfinite(solved.fos) & (solved.fos > 0),
                        solved.fos, np.nan)
-        total += fos
+        total += weight * fos
         for i, message in enumerate(solved.message):
             if message and not messages[i]:
                 messages[i] = f"{model.name}: {message}" if len(models) > 1 else message
-    return total / len(models), messages
+    return total, messages
 
 
 def _solve_locus(models, form, fixed, settings, material) -> Locus:
@@ -1414,29 +1550,37 @@ def _movement(surface: np.ndarray) -> int:
     return 1 if surface[0, 1] >= surface[-1, 1] else -1
 
 
-def _critical_surface(section: Section, settings: BackAnalysisSettings, match: MatchSettings,
-                      direction: int | None = None):
-    """The critical surface of ``section``; on the face whose slides move in ``direction``
-    when given (a slip is compared with the critical surface of the face it came down, not
-    with that of another face of the section)."""
+def _search(section: Section, settings: BackAnalysisSettings, match: MatchSettings,
+            direction: int | None = None):
+    """The critical-surface search of ``section``; on the face whose slides move in
+    ``direction`` when given (a slip is compared with the critical surface of the face it
+    came down, not with that of another face of the section), on every face when None."""
     search = _search_settings(section, settings, match, direction)
     screen = match.screen_with if match.screen_with != settings.method else None
     result = search_critical_surface(section, search, circles=match.circles, screen_with=screen)
     if match.non_circular:
         result = optimise_polyline(section, result, method=settings.method,
                                    max_evaluations=match.polyline_evaluations)
-    return result.critical
+    return result
+
+
+def _search_with(model, strength: dict, settings, match, when: str = "",
+                 direction: int | None = None):
+    """The critical-surface search on ``model``'s section with ``strength`` (on the face that
+    moves in ``direction``, every face when None); BackAnalysisError naming the section, the
+    time (``when``) and the strength when it finds nothing."""
+    try:
+        return _search(_section_with(model, strength), settings, match, direction)
+    except SearchError as error:
+        raise BackAnalysisError(
+            f"no critical surface found on {model.name!r}{when} with "
+            f"{_describe(strength, model.form)}: {error}"
+        ) from None
 
 
 def _fit(model: _SlipModel, strength: dict, settings, match) -> SurfaceFit:
-    section = _section_with(model, strength)
-    try:
-        critical = _critical_surface(section, settings, match, _movement(model.surface))
-    except SearchError as error:
-        raise BackAnalysisError(
-            f"no critical surface found on {model.name!r} with {_describe(strength, model.form)}: "
-            f"{error}"
-        ) from None
+    critical = _search_with(model, strength, settings, match,
+                            direction=_movement(model.surface)).critical
     points = _critical_points(critical)
     misfit, observed_area, distance = surface_misfit(model.section.ground, model.surface, points)
     return SurfaceFit(
@@ -1474,9 +1618,10 @@ def match_locus(
     For ``match.points`` locus points spread evenly over its solved part, the critical surface
     is searched on every section with that point's strength, and its misfit with the observed
     surface measured (:func:`surface_misfit`); the score of a point is the mean over the
-    sections of misfit area / observed area. Then (cohesion_friction form, ``match.refine`` >
-    0) a bounded scalar minimisation of the score along phi', between the neighbours of the
-    best point, tries up to ``match.refine`` further points, each first solved for F = 1.
+    sections (weighted by length, :func:`section_weights`) of misfit area / observed area.
+    Then (cohesion_friction form, ``match.refine`` > 0) a bounded scalar minimisation of the
+    score along phi', between the neighbours of the best point, tries up to ``match.refine``
+    further points, each first solved for F = 1.
 
     Parameters
     ----------
@@ -1511,12 +1656,12 @@ def match_locus(
     settings = settings or BackAnalysisSettings(method=locus.method)
     match = match or MatchSettings()
     models = [_SlipModel(s, locus.material, locus.form, settings) for s in slips]
-    solved = np.flatnonzero(locus.found)
-    if solved.size == 0:
+    if not locus.found.any():
         raise NoSolutionError(_no_solution_message(locus, locus.material))
-    chosen = np.unique(solved[np.round(np.linspace(0, solved.size - 1, min(match.points, solved.size))).astype(int)])
+    chosen = _spread_points(locus, match.points)
     refine = match.refine if locus.form == "cohesion_friction" and chosen.size > 1 else 0
     total = chosen.size + refine
+    weights = section_weights([m.length for m in models])
     done = 0
 
     def evaluate(strength: dict, refined: bool) -> LocusMatch:
@@ -1528,7 +1673,7 @@ def match_locus(
         return LocusMatch(
             friction_angle=strength["friction_angle"], cohesion=strength["cohesion"],
             undrained_strength=strength["undrained_strength"], fits=fits,
-            score=float(np.mean([f.misfit_ratio for f in fits])), refined=refined,
+            score=float(np.dot(weights, [f.misfit_ratio for f in fits])), refined=refined,
         )  # fmt: skip
 
     matches = [evaluate(locus.point(int(i)), False) for i in chosen]
@@ -1583,14 +1728,33 @@ def history_constraints(
     stood: Sequence[StoodCondition],
     *,
     settings: BackAnalysisSettings | None = None,
+    search: MatchSettings | None = None,
+    best: LocusMatch | None = None,
 ) -> HistoryResult:
     """Cut the locus down to the strengths that let the slope stand at the stood times.
 
-    At each stood time F >= 1 must hold on every observed surface (the mechanism that later
-    failed had not failed then), with the sections' water lines of that time. A locus point
-    survives when it has a solution and passes every stood time. Between two neighbouring
-    points on either side of a stood limit, the limit itself (F = 1 at the stood time, along
-    the F = 1 locus at failure) is found by root finding on phi' (cohesion_friction form).
+    At a stood time the slope stood, so with the true strength F >= 1 held on *every* slip
+    surface then, not only on the one that later failed (which is a necessary condition
+    only). At each stood time, with the sections' water lines of that time:
+
+    1. the critical surface is searched on every section (the full search of
+       :func:`match_locus`: circles screened, re-ranked and refined, and a polyline when
+       ``search.non_circular``) with the strength of ``search.points`` locus points spread
+       evenly over the solved locus, and with the strength of ``best`` when given;
+    2. every distinct surface kept by those searches (the few best of each), and the
+       observed surface, is then solved with the strength of every locus point (warm
+       re-evaluation of the searched surfaces under the same water, only the strength
+       changing), and F at the point is the lowest over them and over the sections.
+
+    The searches run under the stood time's own water, at strengths spread over the whole
+    locus, so they find the mechanisms that water makes critical from the shallow surfaces
+    of low-c' pairs to the deep ones of high-c' pairs; re-evaluating their union at every
+    point carries them to the points between (a full search at every point costs a search
+    per point and time for little gain, since the critical surface moves gradually along the
+    locus). A locus point survives when it has a solution and F >= 1 at every stood time.
+    Between two neighbouring points on either side of a stood limit, the limit itself (F = 1
+    at the stood time, along the F = 1 locus at failure) is found by root finding on phi'
+    (cohesion_friction form).
 
     Parameters
     ----------
@@ -1599,26 +1763,56 @@ def history_constraints(
     locus : Locus
     stood : sequence of StoodCondition
     settings : BackAnalysisSettings, optional
+    search : MatchSettings, optional
+        How the critical surface is searched (``points``: locus points searched at each stood
+        time); default :class:`MatchSettings`.
+    best : LocusMatch, optional
+        The best fit; also searched at every stood time, and F at its own strength is given
+        in each check's ``best_fos``.
 
     Returns
     -------
     HistoryResult
+
+    References
+    ----------
+    Duncan, J.M., Wright, S.G. and Brandon, T.L. (2014). Soil Strength and Slope Stability,
+        2nd ed. Wiley, ch. 11 (a back-calculated strength must also explain why the slope
+        stood before it failed).
     """
     slips = _as_slips(slips)
     settings = settings or BackAnalysisSettings(method=locus.method)
-    checks = []
+    search = search or MatchSettings()
+    strengths = [locus.point(int(i)) for i in _spread_points(locus, search.points)]
+    if best is not None:
+        strengths.append(_strength_of(best))
+    checks, surface_sets = [], []
     for condition in stood:
-        models = _stood_models(slips, condition, locus, settings)
-        fos = _lowest_fos(models, locus.cohesion, locus.friction_angle, locus.undrained_strength)
+        observed = _stood_models(slips, condition, locus, settings)
+        sets = [_SurfaceSet(m, _searched_surfaces(m, strengths, settings, search, condition.label))
+                for m in observed]
+        surface_sets.append(sets)
+        fos = _lowest_fos(sets, locus.cohesion, locus.friction_angle, locus.undrained_strength)
         fos = np.where(locus.found, fos, np.nan)
-        checks.append(HistoryCheck(condition.label, fos, np.asarray(fos >= 1.0)))
+        on_observed = _lowest_fos(observed, locus.cohesion, locus.friction_angle,
+                                  locus.undrained_strength)
+        best_fos = math.nan
+        if best is not None:
+            best_fos = float(_lowest_fos(sets, [best.cohesion], [best.friction_angle],
+                                         [best.undrained_strength])[0])
+        checks.append(HistoryCheck(
+            condition.label, fos, np.asarray(fos >= 1.0),
+            observed_fos=np.where(locus.found, on_observed, np.nan),
+            searches=len(strengths) * len(sets),
+            surfaces=sum(len(s.searched) for s in sets), best_fos=best_fos,
+        ))  # fmt: skip
     surviving = locus.found.copy()
     for check in checks:
         surviving &= check.stood
     limits = ()
     if locus.form == "cohesion_friction" and stood:
         failure_models = [_model_of(s, locus.material, locus.form, settings) for s in slips]
-        limits = _stood_limits(failure_models, slips, locus, stood, checks, settings)
+        limits = _stood_limits(failure_models, locus, stood, checks, surface_sets, settings)
     return HistoryResult(
         checks=tuple(checks),
         surviving=surviving,
@@ -1627,6 +1821,81 @@ def history_constraints(
         undrained_range=_extent(locus.undrained_strength, surviving, locus.form == "undrained"),
         limits=limits,
     )
+
+
+def _spread_points(locus: Locus, points: int) -> np.ndarray:
+    """Indices of up to ``points`` solved locus points spread evenly over the solved part."""
+    solved = np.flatnonzero(locus.found)
+    if solved.size == 0:
+        return solved
+    return np.unique(solved[np.round(np.linspace(0, solved.size - 1,
+                                                 min(points, solved.size))).astype(int)])
+
+
+def _strength_of(match: LocusMatch) -> dict:
+    return {"cohesion": match.cohesion, "friction_angle": match.friction_angle,
+            "undrained_strength": match.undrained_strength}
+
+
+def _searched_surfaces(model, strengths, settings, search, label) -> list[_SlipModel]:
+    """The distinct surfaces kept by critical-surface searches on ``model``'s section (its
+    water of one time) with each strength, as models whose strength can be replaced."""
+    found, seen = [], set()
+    for strength in strengths:
+        for surface in _search_with(model, strength, settings, search, f" at {label}").surfaces:
+            key = (surface.kind, round(surface.scarp_x, 2), round(surface.toe_x, 2),
+                   round(surface.depth, 2))
+            if key in seen:
+                continue
+            seen.add(key)
+            points = _critical_points(surface, _RECHECK_VERTICES)
+            # The ends lie on the ground up to rounding; lift them onto it so that slicing
+            # takes them as ends on the ground.
+            ground = model.section.ground
+            ends = np.interp(points[[0, -1], 0], *ground.T)
+            points[[0, -1], 1] = np.maximum(points[[0, -1], 1], ends)
+            try:
+                found.append(_SlipModel(ObservedSlip(model.section, points, model.name),
+                                        model.material, model.form, settings,
+                                        require_material=False, direction=surface.direction))
+            except ObservedSurfaceError:
+                continue  # a polyline of the arc that slicing does not take: the arc ranked it
+    return found
+
+
+#: Vertices of the polyline that stands for a searched circle when it is solved again with
+#: other strengths (the chords then cut off less than 0.1 % of the arc's depth).
+_RECHECK_VERTICES = 61
+
+
+class _SurfaceSet:
+    """An observed slip at one time with the critical surfaces searched then: F of a trial
+    strength is the lowest over them (the observed surface must converge; a searched one that
+    does not is left out, as a search leaves it out)."""
+
+    def __init__(self, observed, searched: list[_SlipModel]):
+        self.observed, self.searched = observed, searched
+        self.name, self.length = observed.name, observed.length
+
+    def fos(self, cohesion, friction_angle, undrained_strength) -> _LowestFos:
+        own = self.observed.fos(cohesion, friction_angle, undrained_strength)
+        lowest = np.where(own.converged, own.fos, np.nan)
+        governing = np.zeros(lowest.size, dtype=int)
+        for k, model in enumerate(self.searched, start=1):
+            solved = model.fos(cohesion, friction_angle, undrained_strength)
+            fos = np.where(_usable(solved), np.asarray(solved.fos, dtype=float), np.inf)
+            lower = fos < lowest
+            lowest = np.where(lower, fos, lowest)
+            governing = np.where(lower, k, governing)
+        return _LowestFos(lowest, np.isfinite(lowest), tuple(own.message), governing)
+
+
+def _usable(solved) -> np.ndarray:
+    """Rows of a SafetyResult that compete in a search: converged to a positive F that does not
+    rest on m_alpha at or below its limit (as in solver.search)."""
+    fos = np.asarray(solved.fos, dtype=float)
+    doubtful = np.asarray(solved.low_m_alpha, bool) & ~np.asarray(solved.admissible, bool)
+    return np.asarray(solved.converged, bool) & np.isfinite(fos) & (fos > 0) & ~doubtful
 
 
 def _stood_models(slips, condition: StoodCondition, locus: Locus, settings) -> list[_SlipModel]:
@@ -1642,9 +1911,9 @@ def _stood_models(slips, condition: StoodCondition, locus: Locus, settings) -> l
 
 
 def _lowest_fos(models, cohesion, friction_angle, undrained_strength) -> np.ndarray:
-    c = np.nan_to_num(cohesion)
-    phi = np.nan_to_num(friction_angle)
-    su = np.nan_to_num(undrained_strength)
+    c = np.nan_to_num(np.asarray(cohesion, dtype=float))
+    phi = np.nan_to_num(np.asarray(friction_angle, dtype=float))
+    su = np.nan_to_num(np.asarray(undrained_strength, dtype=float))
     lowest = np.full(np.size(c), np.inf)
     for model in models:
         solved = model.fos(c, phi, su)
@@ -1653,11 +1922,10 @@ def _lowest_fos(models, cohesion, friction_angle, undrained_strength) -> np.ndar
     return lowest
 
 
-def _stood_limits(failure_models, slips, locus, stood, checks, settings) -> tuple[dict, ...]:
+def _stood_limits(failure_models, locus, stood, checks, surface_sets, settings) -> tuple[dict, ...]:
     limits = []
     phi = locus.friction_angle
-    for condition, check in zip(stood, checks):
-        models = _stood_models(slips, condition, locus, settings)
+    for condition, check, models in zip(stood, checks, surface_sets):
         for i in range(locus.n_points - 1):
             a, b = check.stood[i], check.stood[i + 1]
             if not (locus.found[i] and locus.found[i + 1]) or a == b:
@@ -1773,8 +2041,7 @@ def _fixed_of(locus: Locus) -> np.ndarray:
 def _best_point(locus: Locus, best: LocusMatch | None) -> tuple[float, float]:
     """(fixed parameter, solved value) of the best fit, or of the middle solved point."""
     if best is not None:
-        strength = {"cohesion": best.cohesion, "friction_angle": best.friction_angle,
-                    "undrained_strength": best.undrained_strength}
+        strength = _strength_of(best)
     else:
         solved = np.flatnonzero(locus.found)
         strength = locus.point(int(solved[solved.size // 2]))
@@ -1861,16 +2128,92 @@ def back_analyse(
         matches, best = match_locus(slips, locus, settings=settings, match=match,
                                     progress=progress)
     bounded = bounded_surfaces(slips, locus, settings=settings) if has_bounds else ()
-    history = history_constraints(slips, locus, stood, settings=settings) if stood else None
+    history = None
+    if stood:
+        history = history_constraints(slips, locus, stood, settings=settings,
+                                      search=match or MatchSettings(), best=best)
     cases = sensitivity(slips, locus, water_change=water_change,
                         unit_weight_change=unit_weight_change, best=best, settings=settings)
+    checks = consistency_checks(slips, locus, best, history, settings=settings) if best else ()
     return BackAnalysisResult(
         form=form, material=material, method=settings.method, locus=locus, matches=matches,
         best=best, history=history, sensitivity=cases, slips=tuple(s.name for s in slips),
         notes=_notes(locus, best, history, stood, slips, settings)
         + _bounded_notes(bounded, has_bounds and match is not None),
-        bounded=bounded,
+        bounded=bounded, consistency=checks,
+        weights=tuple(float(w) for w in section_weights([s.length for s in slips])),
     )  # fmt: skip
+
+
+def consistency_checks(
+    slips: Sequence[ObservedSlip] | ObservedSlip,
+    locus: Locus,
+    best: LocusMatch,
+    history: HistoryResult | None,
+    *,
+    settings: BackAnalysisSettings | None = None,
+) -> tuple[ConsistencyCheck, ...]:
+    """Check a best fit against the premises of the back-analysis.
+
+    With the true strength (Duncan and Stark 1992; Duncan, Wright and Brandon 2014, ch. 11):
+
+    1. F = 1 on the observed surface of every section at failure (within
+       :data:`BACKCALC_OBSERVED_ALLOWANCE`; exact for one section, by the locus);
+    2. no surface fails before the observed one at failure: F of the critical surface
+       searched at failure is not below 1 by more than :data:`BACKCALC_CRITICAL_ALLOWANCE`;
+    3. the slope stood at every stood time: F >= 1 on every surface searched then
+       (``history.checks[i].best_fos``, from :func:`history_constraints` run with ``best``).
+
+    Parameters
+    ----------
+    slips : ObservedSlip or sequence
+    locus : Locus
+    best : LocusMatch
+        The best fit, with its critical surfaces at failure (``fits``).
+    history : HistoryResult or None
+        The record check run with ``best`` (None: no stood time was given).
+    settings : BackAnalysisSettings, optional
+
+    Returns
+    -------
+    tuple of ConsistencyCheck
+    """
+    slips = _as_slips(slips)
+    settings = settings or BackAnalysisSettings(method=locus.method)
+    strength = _strength_of(best)
+    observed = []
+    for slip in slips:
+        model = _model_of(slip, locus.material, locus.form, settings)
+        observed.append(_lowest_fos([model], [strength["cohesion"]], [strength["friction_angle"]],
+                                    [strength["undrained_strength"]])[0])
+    observed = np.array(observed)
+    departure = np.abs(observed - 1.0)
+    worst = int(np.nanargmax(departure)) if np.isfinite(departure).any() else 0
+    checks = [ConsistencyCheck(
+        "observed surface at failure",
+        bool(np.isfinite(departure).all() and departure.max() <= BACKCALC_OBSERVED_ALLOWANCE),
+        float(departure[worst]), BACKCALC_OBSERVED_ALLOWANCE,
+        f"F on the observed surface at failure is {observed[worst]:.3f} on "
+        f"{slips[worst].name!r} (1 +/- {BACKCALC_OBSERVED_ALLOWANCE:g} needed)",
+    )]
+    fits = list(best.fits)
+    if fits:
+        lowest = min(fits, key=lambda f: f.critical_fos)
+        limit = 1.0 - BACKCALC_CRITICAL_ALLOWANCE
+        checks.append(ConsistencyCheck(
+            "critical surface at failure", bool(lowest.critical_fos >= limit),
+            float(lowest.critical_fos), limit,
+            f"the critical surface searched at failure has F = {lowest.critical_fos:.3f} on "
+            f"{lowest.slip!r} (>= {limit:g} needed: otherwise another surface fails first)",
+        ))
+    for check in (history.checks if history is not None else ()):
+        checks.append(ConsistencyCheck(
+            check.label, bool(np.isfinite(check.best_fos) and check.best_fos >= 1.0),
+            float(check.best_fos), 1.0,
+            f"the lowest F over the observed and the searched surfaces at {check.label} is "
+            f"{check.best_fos:.3f} (>= 1 needed: the slope stood then)",
+        ))
+    return tuple(checks)
 
 
 def _bounded_notes(bounded, match_skipped: bool) -> tuple[str, ...]:
@@ -1899,17 +2242,15 @@ def _notes(locus, best, history, stood, slips, settings) -> tuple[str, ...]:
                      "range that gives F = 1 (see their messages)")
     if best is not None:
         worst_fos = min(f.critical_fos for f in best.fits)
-        if worst_fos < 0.95:
+        if worst_fos < 1.0 - BACKCALC_CRITICAL_ALLOWANCE:
             notes.append(
                 f"with the best-fit strength the critical surface has F = {worst_fos:.2f}, well "
                 "below 1: the observed surface is not the critical one for any point searched; "
                 "check the observed surface and the water at failure"
             )
-        if history is not None:
-            index = _nearest_point(locus, best)
-            if index is not None and not history.surviving[index]:
-                notes.append("the best-fit strength does not satisfy every stood time: the "
-                             "history and the surface position disagree")
+        if history is not None and not all(c.best_fos >= 1.0 for c in history.checks):
+            notes.append("the best-fit strength does not satisfy every stood time: the "
+                         "history and the surface position disagree")
     if history is not None and not history.surviving.any():
         notes.append("no locus point satisfies every stood time: the record is inconsistent "
                      "with the water lines used, or the slip surface was not the one that "
@@ -1921,15 +2262,6 @@ def _notes(locus, best, history, stood, slips, settings) -> tuple[str, ...]:
             notes.append(f"the sections' own loci differ from the joint locus by up to "
                          f"{spread:.2f} ({_SOLVED_SYMBOL[locus.form]})")
     return tuple(notes)
-
-
-def _nearest_point(locus: Locus, best: LocusMatch) -> int | None:
-    if locus.form != "cohesion_friction":
-        return 0
-    solved = np.flatnonzero(locus.found)
-    if solved.size == 0:
-        return None
-    return int(solved[np.argmin(np.abs(locus.friction_angle[solved] - best.friction_angle))])
 
 
 # --------------------------------------------------------------------------------------------

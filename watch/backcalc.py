@@ -74,7 +74,7 @@ FORMS = {
 WATER_SOURCES = ("readings", "design lines")
 
 _TABLES = {
-    "slip": {"id", "section", "failed_at", "description", "section_file"},
+    "slip": {"id", "section", "failed_at", "description", "section_file", "length_m"},
     "surface": {"points", "scarp", "toe", "max_depth", "min_depth"},
     "water": {"at_failure", "line"},
     "back_analysis": {
@@ -88,7 +88,7 @@ _TABLES = {
 _RENAMED = {"surface": {"entry": "scarp", "exit": "toe"}}
 _ARRAYS = {
     "observation": {"kind", "offset", "elevation", "note"},
-    "cross_section": {"section", "points"},
+    "cross_section": {"section", "points", "length_m"},
 }
 
 
@@ -129,6 +129,9 @@ class SlipCase:
     # [surface] scarp/toe/max_depth/min_depth: {"scarp": (x, y), "toe": (x, y),
     # "max_depth_m": float, "min_depth_m": float}, or None when [surface] points is given.
     bounds: dict | None = None
+    # [m] length of slope each section represents, in the order of section_ids ([slip]
+    # length_m, then each [[cross_section]] length_m); all None when none is given.
+    lengths: tuple[float | None, ...] = ()
 
     @property
     def form(self) -> str:
@@ -185,6 +188,7 @@ def load_case(path: Path | str) -> SlipCase:
     section_file = None
     if "section_file" in slip:
         section_file = (path.parent / slip["section_file"]).resolve()
+    lengths = _lengths(slip, arrays["cross_section"], where)
     return SlipCase(
         path=path,
         sha256=hashlib.sha256(raw).hexdigest(),
@@ -223,7 +227,23 @@ def load_case(path: Path | str) -> SlipCase:
                               f"{where}: friction_range"),
         undrained_range=_range(back.get("undrained_range", BACKCALC_UNDRAINED_RANGE),
                                f"{where}: undrained_range"),
+        lengths=lengths,
     )  # fmt: skip
+
+
+def _lengths(slip: dict, cross_sections: list, where: str) -> tuple[float | None, ...]:
+    """[slip] length_m and each [[cross_section]] length_m [m]: all given, or none."""
+    items = [("[slip]", slip)] + [(f"[[cross_section]] {i + 1}", c)
+                                  for i, c in enumerate(cross_sections)]
+    given = [label for label, item in items if "length_m" in item]
+    if given and len(given) < len(items):
+        missing = ", ".join(label for label, item in items if "length_m" not in item)
+        raise ConfigError(f"{where}: length_m is given for {', '.join(given)} but not for "
+                          f"{missing}; give the length of slope every section represents, or "
+                          "none (the sections then weigh the same)")
+    return tuple(None if not given else
+                 _positive(item["length_m"], f"{where}: {label} length_m")
+                 for label, item in items)
 
 
 # --------------------------------------------------------------------------------------------
@@ -307,15 +327,17 @@ def run_case(
     water: dict[str, dict[str, str]] = {}
     surfaces = {case.section_id: case.surface, **dict(case.cross_sections)}
     slips = []
+    lengths = dict(zip(case.section_ids, case.lengths or [None] * len(case.section_ids)))
     for section_id, (section, _) in sections.items():
         at_failure, described = _water_at(store, config, case, section, case.failed_at, True)
         water[f"{section_id} at failure {utc_text(case.failed_at)}"] = described
         if surfaces[section_id] is None:
             b = case.bounds
             slips.append(BoundedSlip(at_failure, b["scarp"], b["toe"], b["max_depth_m"],
-                                     b["min_depth_m"], section_id))
+                                     b["min_depth_m"], section_id, length=lengths[section_id]))
         else:
-            slips.append(ObservedSlip(at_failure, surfaces[section_id], section_id))
+            slips.append(ObservedSlip(at_failure, surfaces[section_id], section_id,
+                                      length=lengths[section_id]))
     stood = []
     for moment in case.stood:
         stood_sections = []
@@ -345,9 +367,13 @@ def run_case(
             water_change=case.water_change_m, unit_weight_change=case.unit_weight_change_kn_m3,
             progress=advance,
         )  # fmt: skip
+    notes = ()
+    if len(slips) > 1 and case.lengths[0] is None:
+        notes = (f"the {len(slips)} sections weigh the same: the case file gives no length_m "
+                 "(the length of slope each section represents)",)
     outcome = CaseResult(case=case, result=result, sections=sections,
                          at_failure={s.name: s.section for s in slips}, water=water,
-                         ran_at=clock.now())
+                         ran_at=clock.now(), notes=notes)
     if record:
         if store.read_only:
             raise ConfigError(f"store {store.path} is open read-only; cannot record the run")
@@ -440,6 +466,8 @@ def result_to_dict(outcome: CaseResult) -> dict:
         if result.history is not None:
             row["stood"] = bool(result.history.surviving[i])
             row["fos_at_stood"] = {c.label: _num(c.fos[i]) for c in result.history.checks}
+            row["fos_at_stood_observed"] = {c.label: _num(c.observed_fos[i])
+                                            for c in result.history.checks}
         for name, values in locus.by_section.items():
             row.setdefault("by_section", {})[name] = _num(values[i])
         rows.append(row)
@@ -448,6 +476,8 @@ def result_to_dict(outcome: CaseResult) -> dict:
         h = result.history
         history = {
             "stood_times": [c.label for c in h.checks],
+            "checks": [{"label": c.label, "searches": c.searches, "surfaces": c.surfaces,
+                        "best_fit_fos": _num(c.best_fos)} for c in h.checks],
             "surviving_points": int(h.surviving.sum()),
             "friction_angle_range_deg": h.friction_range,
             "cohesion_range_kpa": h.cohesion_range,
@@ -491,6 +521,12 @@ def result_to_dict(outcome: CaseResult) -> dict:
              "at_bound": b.at_bound or None}
             for b in result.bounded
         ],
+        "consistency": {
+            "consistent": result.consistent,
+            "checks": [{"name": c.name, "passed": c.passed, "value": _num(c.value),
+                        "limit": c.limit, "detail": c.detail} for c in result.consistency],
+        },
+        "weights": dict(zip(result.slips, result.weights)),
         "notes": list(result.notes) + list(outcome.notes),
         "back_analysis_id": outcome.back_analysis_id,
         "ran_utc": utc_text(outcome.ran_at),
@@ -561,7 +597,9 @@ def format_report(outcome: CaseResult) -> str:
     for when, described in outcome.water.items():
         lines.append(f"Water, {when}: " + "; ".join(f"{k}: {v}" for k, v in described.items()))
     lines.append("")
-    lines.append("FoS = 1 locus on the observed surface:")
+    lines.append("FoS = 1 locus on the observed surface" + (
+        " (F at a stood time: the lowest over the observed surface and the critical surfaces "
+        "searched then):" if result.history is not None else ":"))
     header = "  phi' [deg]  c' [kPa]" if locus.form != "undrained" else "  Su [kPa]"
     stood = result.history is not None
     if stood:
@@ -601,8 +639,21 @@ def format_report(outcome: CaseResult) -> str:
         lines.append("")
         lines.append(f"Best fit: {_strength(result.best, locus.form)} "
                      f"(mean misfit {result.best.score:.3f})")
+    if result.consistency:
+        lines.append("")
+        lines.append("Consistency of the best fit with the record: "
+                     + ("consistent" if result.consistent else "NOT consistent"))
+        for c in result.consistency:
+            lines.append(f"  [{'pass' if c.passed else 'FAIL'}] {c.name}: {c.detail}")
+    if len(result.weights) > 1:
+        lines.append("Section weights (length of slope represented): " + ", ".join(
+            f"{name} {weight:.3f}" for name, weight in zip(result.slips, result.weights)))
     if result.history is not None:
         h = result.history
+        for c in h.checks:
+            lines.append(f"Record check {c.label}: {c.searches} critical-surface search(es), "
+                         f"{c.surfaces} distinct surface(s) re-evaluated at every locus point "
+                         "with the observed one")
         if h.surviving.any():
             text = "Surviving range (stood at every stood time): "
             if locus.form == "undrained":
@@ -862,6 +913,13 @@ def _number(value, where: str, minimum: float | None = None) -> float:
     if minimum is not None and value < minimum:
         raise ConfigError(f"{where} = {value!r} must be >= {minimum:g}")
     return float(value)
+
+
+def _positive(value, where: str) -> float:
+    value = _number(value, where)
+    if value <= 0:
+        raise ConfigError(f"{where} = {value:g} must be > 0 [m]")
+    return value
 
 
 def _optional(table: dict, key: str, default: float, where: str) -> float | None:

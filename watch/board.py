@@ -1666,10 +1666,11 @@ def _back_analyses_html(s: SectionStatus) -> str:
     if s.calibrations:
         parts.append(_table(
             ["Parameter version id", "In use", "Material", "Calibrated strength", "Slip case",
-             "Failed (UTC)", "Calibrated by", "Recorded (UTC)"],
+             "Failed (UTC)", "Calibrated by", "Recorded (UTC)", "Checks overridden"],
             [[c.get("section_version_id"), "yes" if c.get("section_version_id") == in_use else "",
               c.get("material"), compact(c.get("strength")), c.get("case_id"), c.get("failed_utc"),
-              c.get("calibrated_by"), c.get("created_utc")] for c in s.calibrations],
+              c.get("calibrated_by"), c.get("created_utc"), c.get("override_reason") or "no"]
+             for c in s.calibrations],
         ))
     else:
         parts.append("<p>No back-analysis has calibrated the parameters of this section.</p>")

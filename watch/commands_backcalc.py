@@ -62,13 +62,22 @@ def backcalc(case_file: Path, workspace: Path, plot_file, save_file, no_progress
               help="Section id to calibrate; repeat the option or separate ids by spaces or commas.")
 @click.option("--by", "who", default=None,
               help="Who decides the calibration [default: the login name].")
+@click.option("--override", "override", default=None, metavar="REASON",
+              help="Store the calibration although a check failed, for this reason (recorded "
+              "with the calibration and shown wherever calibrations are listed).")
 @workspace_option
 @json_option
-def calibrate(result_file: Path, section_ids, who, workspace: Path, as_json: bool) -> None:
+def calibrate(result_file: Path, section_ids, who, override, workspace: Path,
+              as_json: bool) -> None:
     """Store the best-fit strength of a back-analysis result (RESULT_FILE, written by
     `slipwatch backcalc --save`) as a new parameter version of each section named, with the
     case, the date and who decided it. Later assessments use the new version; earlier ones keep
     the version they used.
+
+    Refused (nothing stored, exit status 1) when the result fails its own consistency checks,
+    or when a section named, not itself a section of the slip, would have failed with the new
+    strength at one of the worst times of its stored record; --override REASON stores it
+    anyway and records the reason.
 
     \b
     Example:
@@ -84,19 +93,24 @@ def calibrate(result_file: Path, section_ids, who, workspace: Path, as_json: boo
     data = load_result(result_file)
     with ws.open_store() as store:
         done = calibrate_sections(ws, store, data, ids, who or getpass.getuser(),
-                                  SystemClock().now())
+                                  SystemClock().now(), override=override)
     if as_json:
         echo_json([{
             "section_id": c.section_id, "material": c.material, "version": c.version,
             "section_version_id": c.version_id, "previous_version_id": c.previous_version_id,
             "before": c.before, "after": c.after, "provenance": c.provenance,
+            "checks": list(c.checks), "override_reason": c.override_reason,
         } for c in done])  # fmt: skip
         return
     for c in done:
         click.echo(f"{c.section_id}: {c.material!r} {_strength(c.before)} -> {_strength(c.after)}"
                    f" (parameter version {c.version}, id {c.version_id})")
+        for check in c.checks:
+            click.echo(f"  [{'pass' if check['passed'] else 'FAIL'}] {check['detail']}")
     if done:
         click.echo(f"Provenance: {done[0].provenance}")
+        if done[0].override_reason:
+            click.echo(f"Override recorded: {done[0].override_reason}")
 
 
 def _strength(values: dict) -> str:

@@ -156,15 +156,22 @@ def run_demo(
              "observed one at FoS = 1)")
         history = outcome.result.history
         if history is not None:
-            echo(f"   range consistent with the record (stood dates FoS >= 1): "
-                 f"{_range_text(history)}")
+            echo("   range consistent with the record (FoS >= 1 on every surface searched at "
+                 f"each stood date): {_range_text(history)}")
         before = _latest_fos(ws, settings.calibrate_sections)
         with ws.open_store() as store:
             done = calibrate(ws, store, outcome, list(settings.calibrate_sections),
                              "demo engineer", clock.now())
+        echo("   the best fit passes its consistency checks: "
+             + "; ".join(c.detail for c in outcome.result.consistency))
         for item in done:
             echo(f"   calibrated {item.section_id} ({item.material}): {_strength(item.before)} "
                  f"-> {_strength(item.after)}, parameter version {item.version}")
+            record = [c for c in item.checks if c["name"].startswith("record")]
+            if record:
+                lowest = min(record, key=lambda c: c["fos"])
+                echo(f"      it stands with the new strength at the {len(record)} worst times of "
+                     f"its record (lowest FoS {lowest['fos']:.3f}, {lowest['time_utc']})")
         summary["back_analysis"] = {"cohesion": best.cohesion,
                                     "friction_angle": best.friction_angle, "plot": str(plot)}
 

@@ -33,3 +33,8 @@ class ModelError(UserError):
     """A groundwater, rainfall or rainfall-response model cannot give a trustworthy answer for
     the data given (no usable head, a duration outside a threshold's range, too few readings to
     calibrate, a poor fit); the message says why and what would make it usable."""
+
+
+class CalibrationRefused(UserError):
+    """A calibration failed its checks (the back-analysis' own consistency, or a calibrated
+    section's record with the new strength); the message lists them and how to override."""

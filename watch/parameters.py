@@ -12,6 +12,12 @@ force. A back-analysis (:func:`calibrate`) adds a version whose provenance names
 failure date and who ran it; it stays in force until the section file is edited, when the file
 wins. Earlier assessments keep the version id they recorded, so their inputs can always be
 recovered.
+
+A calibration is refused unless it passes its checks: the back-analysis result must pass its
+own consistency checks (:func:`solver.backcalc.consistency_checks`), and every calibrated
+section that is not a section of the slip must stand, with the new strength, through the worst
+times of its own stored record (:func:`check_record`). An engineer may override a refusal with
+a reason, which is stored with the calibration and shown wherever calibrations are listed.
 """
 
 from __future__ import annotations
@@ -19,16 +25,18 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-from dataclasses import dataclass
-from datetime import datetime
+from dataclasses import asdict, dataclass
+from datetime import datetime, timedelta
 
-from solver.errors import SectionError
+from solver.errors import SectionError, SolverError
 from solver.backcalc import with_strength
 from solver.section import Section, section_from_dict, section_to_dict
+from watch.analysis import analyse
 from watch.config import SiteConfig
-from watch.errors import ConfigError, StoreError
+from watch.errors import CalibrationRefused, ConfigError, StoreError
 from watch.sections import read_section_file
-from watch.store import Store, utc_text
+from watch.store import Store, parse_utc_text, utc_text
+from watch.waterlines import section_with_stored_lines, stored_water_lines
 from watch.workspace import Workspace
 
 __all__ = [
@@ -36,6 +44,10 @@ __all__ = [
     "Calibration",
     "SectionFileCheck",
     "follow_section_file",
+    "RecordCheck",
+    "RECORD_CHECK_TIMES",
+    "RECORD_CHECK_SPACING",
+    "check_record",
     "current_section",
     "section_version",
     "section_history",
@@ -226,7 +238,13 @@ def _section_of(row: dict) -> Section:
 
 @dataclass(frozen=True)
 class Calibration:
-    """A parameter version made from a back-analysis, for one section."""
+    """A parameter version made from a back-analysis, for one section.
+
+    ``checks`` are the checks it passed or failed (the back-analysis' consistency checks and
+    the section's record checks, as plain dicts with ``name``, ``passed`` and ``detail``);
+    ``override_reason`` is the engineer's reason for storing it although a check failed
+    (None when every check passed).
+    """
 
     section_id: str
     material: str
@@ -237,6 +255,120 @@ class Calibration:
     after: dict  # and after
     provenance: str
     calibration_id: int
+    checks: tuple[dict, ...] = ()
+    override_reason: str | None = None
+
+
+#: Times of a calibrated section's stored record at which it must stand with the new
+#: strength: the stored assessments with the lowest FoS (the wettest times it stood through).
+#: With only one material's strength changed the order of the water states by FoS rarely
+#: changes, and taking several guards against a reordering. Our choice, not a published value.
+RECORD_CHECK_TIMES = 3
+#: Record-check times lie at least this far apart, so that they are different storms rather
+#: than hours of one (our choice).
+RECORD_CHECK_SPACING = timedelta(days=1)
+
+
+@dataclass(frozen=True)
+class RecordCheck:
+    """A calibrated section at one time of its stored record, with the new strength.
+
+    Attributes
+    ----------
+    section_id : str
+    time_utc : str or None
+        The stored assessment's time (None: no stored record to check).
+    stored_fos : float or None
+        [-] The FoS stored then (with the strength of the time).
+    fos : float or None
+        [-] The FoS of the critical surface searched with the new strength and the water
+        lines stored then (the search of the watch cycle, :func:`watch.analysis.analyse`).
+    method : str
+    passed : bool
+        The section stands then (fos >= 1).
+    detail : str
+        The check in words.
+    """
+
+    section_id: str
+    time_utc: str | None
+    stored_fos: float | None
+    fos: float | None
+    method: str
+    passed: bool
+    detail: str
+
+
+def check_record(
+    workspace: Workspace,
+    store: Store,
+    section_id: str,
+    material: str,
+    strength: dict,
+    now: datetime,
+    *,
+    times: int = RECORD_CHECK_TIMES,
+    spacing: timedelta = RECORD_CHECK_SPACING,
+) -> list[RecordCheck]:
+    """Whether a section stands through its own record with a new strength of ``material``.
+
+    The section stood at every stored time (it is not a section of the slip), so with a
+    strength that is right F >= 1 then. At the ``times`` stored assessments with the lowest
+    FoS (status ok: converged, from live readings), at least ``spacing`` apart and at or before
+    ``now``, the section in force gets the new strength and the water lines stored with that
+    assessment, and its critical surface is searched as the watch cycle searches it
+    (:func:`watch.analysis.analyse`).
+
+    Parameters
+    ----------
+    workspace : Workspace
+    store : Store
+    section_id : str
+    material : str
+    strength : dict
+        Keyword arguments of :func:`solver.backcalc.with_strength` ([kPa], [deg]).
+    now : datetime
+    times : int
+    spacing : timedelta
+
+    Returns
+    -------
+    list of RecordCheck
+        One per time checked; a single failed check with time None when the section has no
+        stored assessment to check against.
+    """
+    section, _ = current_section(workspace, store, section_id, now=now)
+    chosen: list[dict] = []
+    for row in store.assessments_by_fos(section_id, utc_text(now)):
+        moment = parse_utc_text(row["time_utc"])
+        if all(abs(moment - parse_utc_text(c["time_utc"])) >= spacing for c in chosen):
+            chosen.append(row)
+        if len(chosen) == times:
+            break
+    if not chosen:
+        return [RecordCheck(section_id, None, None, None, "", False,
+                            "no stored assessment to check the new strength against: run the "
+                            "watch cycle over its record first")]
+    checks = []
+    for row in chosen:
+        lines = stored_water_lines(store, assessment_id=row["id"])
+        try:
+            trial = with_strength(section_with_stored_lines(section, lines), material, **strength)
+            result = analyse(trial)
+        except (SolverError, SectionError) as error:
+            checks.append(RecordCheck(section_id, row["time_utc"], row["fos"], None, "", False,
+                                      f"at {row['time_utc']} the new strength gives no FoS: "
+                                      f"{error}"))
+            continue
+        fos = float(result.fos)
+        passed = bool(math.isfinite(fos) and fos >= 1.0)
+        checks.append(RecordCheck(
+            section_id, row["time_utc"], row["fos"], fos, result.method, passed,
+            f"at {row['time_utc']} (stored FoS {row['fos']:.3f}) the new strength gives FoS "
+            f"{fos:.3f} ({result.method})" + ("" if passed else
+                                               ": it would have failed, but it stood"),
+        ))  # fmt: skip
+    return checks
 
 
 def calibrate(
@@ -246,8 +378,18 @@ def calibrate(
     sections,
     who: str,
     now: datetime,
+    *,
+    override: str | None = None,
 ) -> list[Calibration]:
     """Store the back-calculated strength as a new parameter version of each chosen section.
+
+    Refused (:class:`watch.errors.CalibrationRefused`, nothing stored) when the result fails
+    its own consistency checks (``consistency`` of the result; a result without them is
+    refused too), or when a calibrated section that is not a section of the slip would fail,
+    with the new strength, at a time of its own record (:func:`check_record`); unless
+    ``override`` gives the engineer's reason, which is then stored with each calibration
+    (``calibrations.override_reason``) and in the provenance. Sections of the slip are checked
+    against the case's stood times by the back-analysis itself.
 
     Parameters
     ----------
@@ -263,6 +405,8 @@ def calibrate(
         Who decided the calibration (recorded in the provenance).
     now : datetime
         Time of the calibration (timezone-aware).
+    override : str, optional
+        Why the calibration is stored although a check failed (recorded).
 
     Returns
     -------
@@ -273,6 +417,8 @@ def calibrate(
     ConfigError
         No best fit in the result, an empty name, an unknown section, a section without the
         material, or a strength the section cannot take.
+    CalibrationRefused
+        A check failed and no override was given.
     """
     data = case_result if isinstance(case_result, dict) else _result_dict(case_result)
     case, best = data["case"], data.get("best")
@@ -283,16 +429,44 @@ def calibrate(
         )
     if not who or not who.strip():
         raise ConfigError("say who decides the calibration (--by NAME)")
+    if override is not None and not override.strip():
+        raise ConfigError("give the reason for the override (--override REASON), not an "
+                          "empty text")
+    reason = override.strip() if override else None
     sections = list(dict.fromkeys(sections))
     if not sections:
         raise ConfigError("name at least one section to calibrate (--sections ID ...)")
     material, form = case["material"], case["form"]
     strength = _strength_of(best, form)
+    for section_id in sections:
+        section, _ = current_section(workspace, store, section_id, now=now)
+        if material not in {m.name for m in section.materials}:
+            raise ConfigError(
+                f"section {section_id!r} has no material {material!r} (known: "
+                f"{', '.join(m.name for m in section.materials)}); calibrate only sections "
+                "in the same material"
+            )
+    consistency = _consistency_of(data)
+    slip_sections = set(case.get("sections", [case["section_id"]]))
+    records = {sid: [] if sid in slip_sections else
+               check_record(workspace, store, sid, material, strength, now)
+               for sid in sections}  # fmt: skip
+    failed = [c["detail"] for c in consistency if not c["passed"]]
+    failed += [f"section {r.section_id}: {r.detail}" for rs in records.values() for r in rs
+               if not r.passed]
+    if failed and reason is None:
+        raise CalibrationRefused(
+            f"calibration with {material!r} {_describe(strength)} from back-analysis "
+            f"{case['id']} refused: {'; '.join(failed)}. Check the back-analysis, or give "
+            "--override REASON to store it anyway with the reason recorded"
+        )
     provenance = (
         f"back-analysis {case['id']} (slip of {case['failed_utc']} on {case['section_id']}, "
         f"{case['method']}, {form}): {material!r} {_describe(strength)}; run {data['ran_utc']}"
         + (f" (back-analysis {data['back_analysis_id']})" if data.get("back_analysis_id") else "")
         + f"; calibrated by {who.strip()} on {utc_text(now)}"
+        + (f"; checks overridden: {reason}" if failed else
+           f"; override given but every check passed: {reason}" if reason else "")
     )
     done = []
     with store.atomic():
@@ -300,12 +474,6 @@ def calibrate(
             follow_section_file(workspace, store, section_id, now)
             section, previous_id = current_section(workspace, store, section_id, now=now)
             base = store.section_version_row(previous_id)
-            if material not in {m.name for m in section.materials}:
-                raise ConfigError(
-                    f"section {section_id!r} has no material {material!r} (known: "
-                    f"{', '.join(m.name for m in section.materials)}); calibrate only sections "
-                    "in the same material"
-                )
             old = section.materials[section.material_index(material)]
             try:
                 new_section = with_strength(section, material, **strength)
@@ -318,20 +486,36 @@ def calibrate(
                 file_sha256=base["file_sha256"],
             )
             row = store.latest_section_version(section_id)
+            checks = tuple(consistency) + tuple(
+                {"name": f"record {r.time_utc}" if r.time_utc else "record", **asdict(r)}
+                for r in records[section_id])
             calibration_id = store.add_calibration({
                 "back_analysis_id": data.get("back_analysis_id"), "section_id": section_id,
                 "section_version_id": row["id"], "material": material,
                 "strength_json": json.dumps(strength), "case_id": case["id"],
                 "failed_utc": case["failed_utc"], "calibrated_by": who.strip(),
-                "created_utc": utc_text(now),
+                "created_utc": utc_text(now), "checks_json": json.dumps(checks),
+                "override_reason": reason,
             })  # fmt: skip
             done.append(Calibration(
                 section_id=section_id, material=material, version=version, version_id=row["id"],
                 previous_version_id=previous_id, before=_strength_dict(old),
                 after=_strength_dict(new_section.materials[new_section.material_index(material)]),
-                provenance=provenance, calibration_id=calibration_id,
+                provenance=provenance, calibration_id=calibration_id, checks=checks,
+                override_reason=reason,
             ))  # fmt: skip
     return done
+
+
+def _consistency_of(data: dict) -> list[dict]:
+    """The result's consistency checks; a result without them fails one check that says so."""
+    consistency = data.get("consistency")
+    if not isinstance(consistency, dict) or not consistency.get("checks"):
+        return [{"name": "consistency", "passed": False,
+                 "detail": "the result carries no consistency checks (written by an earlier "
+                           "slipwatch, or without a best fit): run `slipwatch backcalc --save` "
+                           "again"}]
+    return [dict(c) for c in consistency["checks"]]
 
 
 def _result_dict(case_result) -> dict:

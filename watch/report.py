@@ -439,10 +439,15 @@ def _parameters_lines(c: _Content) -> list[str]:
                      f"depth {c.drawing.crack.depth:g} m")]
     lines += ["", "Calibrations of this section's parameters by back-analysis"]
     lines += ["  " + l for l in _columns(
-        ["Version id", "Material", "Strength", "Case", "Failed (UTC)", "By", "Recorded (UTC)"],
+        ["Version id", "Material", "Strength", "Case", "Failed (UTC)", "By", "Recorded (UTC)",
+         "Checks overridden"],
         [[k.get("section_version_id"), k.get("material"), compact(k.get("strength")),
-          k.get("case_id"), k.get("failed_utc"), k.get("calibrated_by"), k.get("created_utc")]
+          k.get("case_id"), k.get("failed_utc"), k.get("calibrated_by"), k.get("created_utc"),
+          k.get("override_reason") or "no"]
          for k in c.section.calibrations])] if c.section.calibrations else ["  none stored"]
+    lines += [f"  Version id {k.get('section_version_id')} was stored although a check failed; "
+              f"reason given: {k['override_reason']}"
+              for k in c.section.calibrations if k.get("override_reason")]
     lines += ["", "Back-analyses of slips of this section"]
     lines += ["  " + l for l in _columns(
         ["Case", "Failed (UTC)", "Material", "Form", "Method", "Best fit", "Run (UTC)"],

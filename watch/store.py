@@ -464,6 +464,18 @@ MIGRATIONS: list[tuple[int, str, str]] = [
         CREATE INDEX service_states_section ON service_states(section_id, time_utc);
         """,
     ),
+    (
+        10,
+        "calibration checks and overrides",
+        """
+        -- What a calibration was checked against (the back-analysis' own consistency checks
+        -- and each calibrated section's record: FoS with the new strength at its worst stored
+        -- times), as JSON, and the reason an engineer gave for storing it although a check
+        -- failed (NULL: every check passed).
+        ALTER TABLE calibrations ADD COLUMN checks_json TEXT NOT NULL DEFAULT '[]';
+        ALTER TABLE calibrations ADD COLUMN override_reason TEXT;
+        """,
+    ),
 ]
 
 _READING_COLUMNS = (
@@ -1034,15 +1046,23 @@ class Store:
         return rows[0] if rows else None
 
     def add_calibration(self, row: dict) -> int:
-        """Insert a ``calibrations`` row (migration 5; inside atomic()); return its id."""
+        """Insert a ``calibrations`` row (migrations 5 and 10; inside atomic()); return its id."""
         columns = ("back_analysis_id", "section_id", "section_version_id", "material",
-                   "strength_json", "case_id", "failed_utc", "calibrated_by", "created_utc")
+                   "strength_json", "case_id", "failed_utc", "calibrated_by", "created_utc",
+                   "checks_json", "override_reason")
         cursor = self.conn.execute(
             f"INSERT INTO calibrations ({', '.join(columns)}) "
             f"VALUES ({', '.join('?' * len(columns))})",
             tuple(row[c] for c in columns),
         )
         return cursor.lastrowid
+
+    def assessments_by_fos(self, section_id: str, at_or_before_utc: str) -> list[dict]:
+        """The section's assessments with a usable factor of safety (converged, from live
+        readings: status 'ok') at or before a time, lowest factor of safety first."""
+        return list(self.db.query(
+            "SELECT * FROM assessments WHERE section_id = ? AND time_utc <= ? AND fos IS NOT NULL "
+            "AND status = 'ok' ORDER BY fos, time_utc, id", [section_id, at_or_before_utc]))
 
     def calibration_rows(self, section_id: str | None = None) -> list[dict]:
         sql, params = "SELECT * FROM calibrations", []

@@ -37,6 +37,7 @@ from watch.store import TIME_FORMAT, Store, utc_text
 
 __all__ = [
     "section_with_lines",
+    "section_with_stored_lines",
     "ModelHeads",
     "HeadEstimator",
     "water_lines_for",
@@ -265,12 +266,21 @@ def section_with_lines(section: Section, lines: Mapping[str, WaterLineEstimate])
     Duncan, Wright and Brandon 2014, infinite slope with seepage parallel to the slope): a
     design-line fallback keeps the section file's setting.
     """
-    piezometric = {
-        name: False
-        for name, line in lines.items()
-        if line.source in (SOURCE_INSTRUMENTS, SOURCE_RAINFALL_MODEL)
-    }
-    return section.with_water_lines({n: line.points for n, line in lines.items()}, piezometric)
+    return _with_lines(section, {n: (line.points, line.source) for n, line in lines.items()})
+
+
+def section_with_stored_lines(section: Section, rows: Sequence[dict]) -> Section:
+    """The section with the water lines stored with an assessment (rows of
+    :func:`stored_water_lines`), each piezometric one without the inclination correction, as
+    :func:`section_with_lines` drew them."""
+    return _with_lines(section, {r["line_name"]: (r["points"], r["source"]) for r in rows})
+
+
+def _with_lines(section: Section, lines: Mapping[str, tuple]) -> Section:
+    """``lines``: {name: (points, source)}; the correction is off for piezometric sources."""
+    piezometric = {name: False for name, (_, source) in lines.items()
+                   if source in (SOURCE_INSTRUMENTS, SOURCE_RAINFALL_MODEL)}
+    return section.with_water_lines({n: points for n, (points, _) in lines.items()}, piezometric)
 
 
 # --------------------------------------------------------------------------------------------

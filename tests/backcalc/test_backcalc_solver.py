@@ -147,32 +147,62 @@ def test_round_trip_recovers_known_parameters_and_a_different_surface_fits_worse
     assert other_distance > best_fit.hausdorff
 
 
-def test_history_removes_exactly_the_pairs_below_one_at_the_stood_time():
+#: Circles only, three searched points: enough for the record-check tests, and quick.
+QUICK_SEARCH = MatchSettings(points=3, refine=0, non_circular=False)
+
+
+def test_history_checks_the_searched_surfaces_not_only_the_observed_one():
     failure = layered()
     # At the stood time the water stood higher behind the crest and lower at the toe: it
     # drives cohesive pairs to failure while frictional ones gain from the lower pore pressure.
     stood_section = layered([[0.0, 19.9], [12.0, 19.8], [20.0, 13.0], [30.0, 9.5], [50.0, 9.0]])
     slip = ObservedSlip(failure, COMPOSITE)
     locus = fos_unity_locus(slip, "Weak", friction_angles=np.arange(0.0, 33.0, 3.0))
-    history = history_constraints(slip, locus, [StoodCondition("stood", (stood_section,))])
-    expected = []
+    history = history_constraints(slip, locus, [StoodCondition("stood", (stood_section,))],
+                                  search=QUICK_SEARCH)
+    check = history.checks[0]
+    on_observed = []
     for c, phi, found in zip(locus.cohesion, locus.friction_angle, locus.found):
         if not found:
-            expected.append(False)
+            on_observed.append(False)
             continue
         section = with_strength(stood_section, "Weak", cohesion=c, friction_angle=phi)
         fos = factor_of_safety(slice_polyline(section, COMPOSITE).slices, "spencer",
                                tolerance=1e-7, max_iterations=200).fos[0]
-        expected.append(fos >= 1.0)
-    np.testing.assert_array_equal(history.surviving, expected)
-    assert 0 < history.surviving.sum() < locus.found.sum()  # the constraint does cut
-    assert history.limits  # and its limit is located between two points
+        on_observed.append(fos >= 1.0)
+    # The observed surface alone (an independent slicing) gives the old, necessary condition.
+    np.testing.assert_array_equal(check.observed_fos >= 1.0, on_observed)
+    # Every surface must stand, so the searched check never keeps more points ...
+    assert not (history.surviving & ~np.array(on_observed)).any()
+    # ... and here it removes points at which the observed surface stood but another surface
+    # fails at the stood time.
+    caught = np.flatnonzero(np.array(on_observed) & ~history.surviving)
+    assert caught.size > 0
+    # An independent full search at the stood time with the strength of such a point (the
+    # search of solver.search, run here outside the back-analysis) finds a surface below 1,
+    # and it is not the observed one: its sliding mass differs from the observed one.
+    i = int(caught[0])
+    section = with_strength(stood_section, "Weak", cohesion=locus.cohesion[i],
+                            friction_angle=locus.friction_angle[i])
+    found = search_critical_surface(section, SearchSettings(method="spencer"),
+                                    screen_with="bishop_simplified").critical
+    assert found.fos < 1.0
+    np.testing.assert_allclose(check.fos[i], found.fos, rtol=0.02)  # same search, polyline arcs
+    x = np.linspace(found.scarp_x, found.toe_x, 60)
+    arc = np.column_stack([x, found.centre_y - np.sqrt(found.radius**2 - (x - found.centre_x) ** 2)])
+    misfit, observed_area, _ = surface_misfit(stood_section, COMPOSITE, arc)
+    assert misfit > 0.25 * observed_area
+    # The limit between standing and failing points is where the lowest F over the checked
+    # surfaces is 1 at the stood time.
+    assert history.limits
     limit = history.limits[0]
     section = with_strength(stood_section, "Weak", cohesion=limit["cohesion"],
                             friction_angle=limit["friction_angle"])
-    fos = factor_of_safety(slice_polyline(section, COMPOSITE).slices, "spencer",
-                           tolerance=1e-7, max_iterations=200).fos[0]
-    np.testing.assert_allclose(fos, 1.0, atol=2e-3)
+    found = search_critical_surface(section, SearchSettings(method="spencer"),
+                                    screen_with="bishop_simplified").critical
+    # Tolerance: the limit is found to 1e-3 deg of phi' on the re-evaluated surfaces; a fresh
+    # search at the limit's own strength may find a slightly lower surface (search accuracy).
+    assert 0.97 < found.fos < 1.01
 
 
 def test_undrained_strength_is_proportional_for_a_purely_cohesive_base():
@@ -276,3 +306,110 @@ def test_unknown_form_and_bad_settings_are_named():
         BackAnalysisSettings(cohesion_range=(5.0, 1.0))
     with pytest.raises(ValueError, match="needs friction_angles"):
         fos_unity_locus(slip, "Weak")
+
+
+# --- a long planar slip against the infinite slope; sections weighted by length -------------
+
+#: A long uniform slope at BETA (1500 m of face), dry, in one c'-phi' soil (synthetic).
+BETA, FACE, GAMMA = 20.0, 1500.0, 19.0
+PLANAR_TOP = FACE * np.tan(np.radians(BETA))
+PLANAR_GROUND = [[0.0, PLANAR_TOP], [20.0, PLANAR_TOP], [20.0 + FACE, 0.0], [40.0 + FACE, 0.0]]
+
+
+def planar_slope():
+    return section_from_dict({
+        "section": {"id": "P"},
+        "ground": {"points": PLANAR_GROUND},
+        "material": [{"name": "Clay", "unit_weight": GAMMA, "cohesion": 5.0,
+                      "friction_angle": 20.0, "water": "none"}],
+        "stratum": [{"material": "Clay"}],
+    })
+
+
+def planar_slip(depth):
+    """A slip plane parallel to the face at vertical depth ``depth`` [m], rising at 45 deg to
+    the ground at the scarp and at the toe."""
+    ground = np.array(PLANAR_GROUND)
+    x1, x2 = 20.0 + 2 * depth, 20.0 + FACE - 2 * depth
+    x = np.linspace(x1, x2, 50)
+    ends = np.array([x1 - depth, x2 + depth])
+    return np.vstack([[[ends[0], np.interp(ends[0], *ground.T)]],
+                      np.column_stack([x, np.interp(x, *ground.T) - depth]),
+                      [[ends[1], np.interp(ends[1], *ground.T)]]])
+
+
+def infinite_slope_cohesion(depth, friction_angle):
+    """c' at F = 1 on a dry infinite slope: from F = (c' + gamma z cos^2(beta) tan(phi')) /
+    (gamma z sin(beta) cos(beta)) (Skempton and DeLory 1957; Duncan, Wright and Brandon 2014,
+    ch. 6), c' = gamma z cos^2(beta) (tan(beta) - tan(phi'))."""
+    beta, phi = np.radians(BETA), np.radians(friction_angle)
+    return GAMMA * depth * np.cos(beta) ** 2 * (np.tan(beta) - np.tan(phi))
+
+
+@pytest.mark.parametrize("method", ["spencer", "bishop_simplified", "morgenstern_price"])
+def test_locus_of_a_long_planar_slip_is_the_infinite_slope_closed_form(method):
+    phis = np.array([0.0, 5.0, 10.0, 15.0])
+    locus = fos_unity_locus(ObservedSlip(planar_slope(), planar_slip(2.0)), "Clay",
+                            friction_angles=phis, settings=BackAnalysisSettings(method=method))
+    # Skempton and DeLory (1957), closed form above. Tolerance 2 % (as for the methods
+    # against the infinite slope in tests/solver/test_infinite_slope.py): the scarp and toe
+    # of a real slip add resistance over about 6 m of its 1600 m, which lowers c' by < 1 %.
+    np.testing.assert_allclose(locus.cohesion, infinite_slope_cohesion(2.0, phis), rtol=0.02)
+
+
+def test_sections_are_weighted_by_the_length_of_slope_they_represent():
+    section = planar_slope()
+    shallow, deep = planar_slip(2.0), planar_slip(4.0)
+    slips = [ObservedSlip(section, shallow, "A", length=30.0),
+             ObservedSlip(section, deep, "B", length=10.0)]
+    locus = fos_unity_locus(slips, "Clay", friction_angles=[0.0])
+    # With phi' = 0 everywhere F is proportional to c' (F is a strength reduction factor:
+    # scaling c' by k scales F by k), so F_k(c') = c' / c_k with c_k the section's own root,
+    # and sum w_k F_k = 1 gives the length-weighted harmonic mean c' = 1 / sum(w_k / c_k),
+    # w = (30, 10) / 40. Exact up to the root tolerance.
+    own_a, own_b = locus.by_section["A"][0], locus.by_section["B"][0]
+    np.testing.assert_allclose(locus.cohesion[0], 1.0 / (0.75 / own_a + 0.25 / own_b), rtol=1e-6)
+    # By hand from the closed form (Skempton and DeLory 1957): c_A = 19 x 2 x sin 20 cos 20
+    # = 12.21 kPa, c_B = 24.43 kPa, so c' = 1 / (0.75 / 12.21 + 0.25 / 24.43) = 13.96 kPa
+    # (unweighted: 16.28 kPa). Tolerance 2 % as above.
+    np.testing.assert_allclose(locus.cohesion[0], 13.96, rtol=0.02)
+    # Equal lengths weigh as no lengths at all (the unweighted mean).
+    equal = fos_unity_locus([ObservedSlip(section, shallow, "A", length=5.0),
+                             ObservedSlip(section, deep, "B", length=5.0)], "Clay",
+                            friction_angles=[0.0])
+    unweighted = fos_unity_locus([ObservedSlip(section, shallow, "A"),
+                                  ObservedSlip(section, deep, "B")], "Clay",
+                                 friction_angles=[0.0])
+    np.testing.assert_allclose(equal.cohesion, unweighted.cohesion, rtol=1e-9)
+    np.testing.assert_allclose(unweighted.cohesion[0], 16.28, rtol=0.02)
+
+
+def test_lengths_must_be_given_for_every_section_or_none():
+    section = planar_slope()
+    with pytest.raises(ValueError, match="given for 1 of 2 sections"):
+        fos_unity_locus([ObservedSlip(section, planar_slip(2.0), "A", length=30.0),
+                         ObservedSlip(section, planar_slip(4.0), "B")], "Clay",
+                        friction_angles=[0.0])
+    with pytest.raises(ValueError, match="length = -3 m"):
+        ObservedSlip(section, planar_slip(2.0), "A", length=-3)
+
+
+def test_a_best_fit_that_fails_a_stood_time_is_flagged_inconsistent():
+    # A stood time wetter than the failure everywhere: on a fixed surface F falls as the pore
+    # pressure rises (the effective normal force falls; Duncan, Wright and Brandon 2014,
+    # ch. 6), and F = 1 on the observed surface at failure, so no strength on the locus can
+    # have stood then. The result must say so as data, not only in a note.
+    wetter = layered([[x, y + 0.4] for x, y in WET])
+    slip = ObservedSlip(layered(), COMPOSITE)
+    result = back_analyse(slip, "Weak", friction_angles=[10.0, 20.0, 30.0],
+                          stood=[StoodCondition("wetter", (wetter,))],
+                          match=MatchSettings(points=2, refine=0, non_circular=False),
+                          water_change=None, unit_weight_change=None)
+    checks = {c.name: c for c in result.consistency}
+    assert set(checks) == {"observed surface at failure", "critical surface at failure", "wetter"}
+    assert checks["observed surface at failure"].passed  # one section: F = 1 by the locus
+    assert checks["observed surface at failure"].value < 1e-5
+    assert not checks["wetter"].passed and checks["wetter"].value < 1.0
+    assert result.consistent is False
+    assert not result.history.surviving.any()
+    np.testing.assert_array_less(result.history.checks[0].observed_fos[result.locus.found], 1.0)
