@@ -63,7 +63,7 @@ def _file(rows) -> str:
 
 def _stored(workspace):
     with workspace.open_store(read_only=True) as store:
-        return [(r["gauge_id"], r["time_utc"], r["rain_mm"], r["quality"]) for r in store.db.query(
+        return [(r["gauge_id"], r["time_utc"], r["rain_mm"], r["quality"], r["gap_start_utc"]) for r in store.db.query(
             "SELECT * FROM rainfall ORDER BY gauge_id, time_utc")]  # fmt: skip
 
 
@@ -121,7 +121,7 @@ def test_a_value_without_valid_range_above_every_record_is_flagged_and_feeds_no_
     rows = [(15 * i, 10.0 + 0.2 * i, 0.2) for i in range(8)]
     rows[5] = (75, 1e308, 1e308)  # the reproduction: neither gauge has a valid_range
     _deliver(workspace, {0: _file(rows)}, (0,))
-    stored = {(g, t[11:16]): (rain, q) for g, t, rain, q in _stored(workspace)}
+    stored = {(g, t[11:16]): (rain, q) for g, t, rain, q, _ in _stored(workspace)}
     assert stored[("RC", "01:15")][1] == "implausible" and stored[("RI", "01:15")][1] == "implausible"
     # The readings after the wild total keep their true depth: 0.2 mm from the last good base.
     assert stored[("RC", "01:30")] == (pytest.approx(0.4, abs=1e-9), "ok")
@@ -148,11 +148,11 @@ def test_rain_record_of_a_reset_and_a_level_shift():
     gauge = RainGauge("G", None, "cumulative_mm")
     times = np.datetime64("2026-10-01T00:00", "s") + np.arange(7) * np.timedelta64(15 * 60, "s")
     raw = np.array([5.0, 5.4, 0.2, 0.6, 900.0, 900.2, 900.4])
-    rain, quality = rain_record(times, raw, gauge, RainBefore(times[0] - 900, 5.0, times[0] - 900, 5.0))
+    rain, quality, _ = rain_record(times, raw, gauge, RainBefore(times[0] - 900, 5.0, times[0] - 900, 5.0))
     # rain_i = c_i - c_base, or c_i after a reset (c_i < c_base). 900 - 0.6 mm in 15 min is above
     # the envelope (422 x 0.25^0.475 = 218 mm): a level shift, flagged; 900.2 continues from it.
     np.testing.assert_allclose(rain[[0, 1, 2, 3, 5, 6]], [0.0, 0.4, 0.2, 0.4, 0.2, 0.2], atol=1e-9)
     assert list(quality) == ["ok", "ok", "ok", "ok", "implausible", "ok", "ok"]
     # A running total above the world's greatest 12-month rainfall cannot be a season's rain.
-    _, quality = rain_record(times[:1], [GREATEST_12_MONTH_RAINFALL_MM + 1], gauge)
+    _, quality, _ = rain_record(times[:1], [GREATEST_12_MONTH_RAINFALL_MM + 1], gauge)
     assert list(quality) == ["implausible"]
