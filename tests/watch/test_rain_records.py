@@ -156,3 +156,78 @@ def test_rain_record_of_a_reset_and_a_level_shift():
     # A running total above the world's greatest 12-month rainfall cannot be a season's rain.
     _, quality, _ = rain_record(times[:1], [GREATEST_12_MONTH_RAINFALL_MM + 1], gauge)
     assert list(quality) == ["implausible"]
+
+
+def test_the_first_reading_after_a_missing_week_is_marked_until_the_week_lands(tmp_path):
+    # W41 and W43 of a 15-minute running total; W42 missing: the first reading of W43 carries
+    # the missing week's rain in one step, and is marked as following a gap since the last
+    # reading of W41 (a 1-week increment is far above GAP_FACTOR x 15 min).
+    rows = [(15 * i, round(0.2 * (i // 3), 1), 0.0) for i in range(3 * 96)]
+    files = [_file(rows[:96]), _file(rows[96:192]), _file(rows[192:])]
+    workspace = _workspace(tmp_path / "late")
+    _deliver(workspace, files, (0, 2))
+    marked = [(t, rain, gap) for g, t, rain, q, gap in _stored(workspace) if g == "RC" and gap is not None]
+    first_of_w43 = (START + timedelta(minutes=15 * 192)).strftime("%Y-%m-%dT%H:%M:%SZ")
+    last_of_w41 = (START + timedelta(minutes=15 * 95)).strftime("%Y-%m-%dT%H:%M:%SZ")
+    # 0.2 mm per 3 readings: 12.8 at reading 192, 6.2 at reading 95 -> 6.6 mm over the gap.
+    assert marked == [(first_of_w43, pytest.approx(6.6, abs=1e-9), last_of_w41)]
+    # The interval gauge reports per interval: its readings after the gap carry no gap's rain.
+    assert all(gap is None for g, *_, gap in _stored(workspace) if g == "RI")
+    # The missing week lands: the increments are derived again and nothing is marked; the
+    # store equals that of in-order delivery.
+    _deliver(workspace, files, (1,))
+    in_order = _workspace(tmp_path / "in_order")
+    _deliver(in_order, files, (0, 1, 2))
+    assert _stored(workspace) == _stored(in_order)
+    assert all(gap is None for *_, gap in _stored(workspace))
+
+
+def test_a_gap_then_a_jump_triggers_no_1_hour_rain_rule(tmp_path):
+    # The demo site with a rule on 1-hour rain; its cumulative gauge RG-FE reports every 15
+    # minutes, stops for three days, and its first reading after the gap is 40 mm higher.
+    from tests.watch.cycle_helpers import make_workspace
+    from watch.clock import ManualClock
+    from watch.cycle import SectionResult, run_cycle
+
+    workspace = make_workspace(tmp_path / "ws", """
+[[trigger]]
+name = "test-rain-1h"
+quantity = "rain_mm"
+level = "watch"
+window_hours = 1
+trigger = 10.0
+clear = 1.0
+on_delay_hours = 0
+off_delay_hours = 0
+""")  # fmt: skip
+    start = datetime(2026, 1, 5, tzinfo=timezone.utc)
+
+    def feed(name, readings):
+        path = tmp_path / name
+        path.write_text("timestamp_utc;channel;value\n" + "".join(
+            f"{(start + timedelta(minutes=m)):%Y-%m-%dT%H:%M:%SZ};RG-FE;{str(total).replace('.', ',')}\n"
+            for m, total in readings))  # fmt: skip
+        return path
+
+    def cycle(at):
+        clock = ManualClock(at)
+        return run_cycle(workspace, clock, sections=["FE-210"], ingest_waiting=False,
+                         compute=lambda task: SectionResult(task.section_id, "failed", message="not calculated"))
+
+    def fired(report):
+        return [c for s in report.sections for c in s.changes if c.startswith("test-rain-1h") and "firing" in c]
+
+    before = [(15 * i, 100.0) for i in range(96)]  # a dry day
+    gap_end = 15 * 95 + 3 * 24 * 60
+    after = [(gap_end, 140.0)]
+    at = start + timedelta(minutes=gap_end)
+    ingest(workspace, [feed("fellhollow_a.csv", before), feed("fellhollow_b.csv", after)], now=at, progress=False)
+    with workspace.open_store(read_only=True) as store:
+        (row,) = store.readings("RG-FE", at.strftime("%Y-%m-%dT%H:%M:%SZ"))
+    assert (row["rain_mm"], row["quality"]) == (pytest.approx(40.0), "ok") and row["gap_start_utc"] is not None
+    assert fired(cycle(at)) == []  # 40 mm over three days, not in the hour
+    # The rule itself works: 15 mm in the 15 minutes before the end of the next hour fires it.
+    later = [(gap_end + 15 * k, 140.0) for k in range(1, 4)] + [(gap_end + 60, 155.0), (gap_end + 75, 155.0)]
+    at = start + timedelta(minutes=gap_end + 75)
+    ingest(workspace, [feed("fellhollow_c.csv", later)], now=at, progress=False)
+    assert fired(cycle(at)) != []
