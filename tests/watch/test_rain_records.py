@@ -2,6 +2,7 @@
 files (resets included), and every gauge has a physical plausibility limit by default."""
 
 import itertools
+import json
 from datetime import datetime, timedelta, timezone
 
 import numpy as np
@@ -231,3 +232,31 @@ off_delay_hours = 0
     at = start + timedelta(minutes=gap_end + 75)
     ingest(workspace, [feed("fellhollow_c.csv", later)], now=at, progress=False)
     assert fired(cycle(at)) != []
+
+
+def test_readings_and_rain_show_the_reading_after_a_gap(tmp_path):
+    from click.testing import CliRunner
+
+    from watch.cli import main
+
+    rows = [(15 * i, round(0.2 * (i // 3), 1), 0.0) for i in range(3 * 96)]
+    workspace = _workspace(tmp_path / "ws")
+    _deliver(workspace, [_file(rows[:96]), None, _file(rows[192:])], (0, 2))
+    first_of_w43 = (START + timedelta(minutes=15 * 192)).strftime("%Y-%m-%dT%H:%M:%SZ")
+    last_of_w41 = (START + timedelta(minutes=15 * 95)).strftime("%Y-%m-%dT%H:%M:%SZ")
+    runner = CliRunner()
+    result = runner.invoke(main, ["readings", "RC", "-w", str(workspace.root), "--json"])
+    assert result.exit_code == 0, result.output
+    marked = {r["time_utc"]: r["gap_start_utc"] for r in json.loads(result.output) if r["gap_start_utc"]}
+    assert marked == {first_of_w43: last_of_w41}
+    result = runner.invoke(main, ["readings", "RC", "-w", str(workspace.root), "--csv"])
+    assert f"{first_of_w43}," in result.output and "gap_start_utc" in result.output.splitlines()[0]
+    result = runner.invoke(main, ["rain", "RC", "-w", str(workspace.root), "--at", first_of_w43])
+    assert result.exit_code == 0, result.output
+    assert "1 h n/a" in result.output
+    assert f"6.6 mm reported at {first_of_w43} after a gap in the record since {last_of_w41}" in result.output
+    result = runner.invoke(main, ["rain", "RC", "-w", str(workspace.root), "--at", first_of_w43, "--json"])
+    state = json.loads(result.output)
+    assert state["totals_mm"]["rain_1h_mm"] is None
+    assert state["reports_after_gap"] == [{"time_utc": first_of_w43, "gap_start_utc": last_of_w41,
+                                           "rain_mm": pytest.approx(6.6, abs=1e-9)}]  # fmt: skip
