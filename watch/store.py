@@ -867,13 +867,13 @@ class Store:
         ).fetchall()
         return [row[0] for row in reversed(rows)]
 
-    def rain_rows_from(self, gauge_id: str, start_utc: str, limit: int = -1) -> list[tuple]:
+    def rain_rows_from(self, gauge_id: str, start_utc: str) -> list[tuple]:
         """(time_utc, raw_value, rain_mm, quality, gap_start_utc) of a gauge from a time on, in
-        time order; at most ``limit`` rows (-1: all)."""
+        time order."""
         return self.conn.execute(
             "SELECT time_utc, raw_value, rain_mm, quality, gap_start_utc FROM rainfall WHERE gauge_id = ? "
-            "AND time_utc >= ? ORDER BY time_utc LIMIT ?",
-            (gauge_id, start_utc, limit),
+            "AND time_utc >= ? ORDER BY time_utc",
+            (gauge_id, start_utc),
         ).fetchall()
 
     def set_reading_quality(self, instrument_id: str, rows: Iterable[Sequence]) -> int:
