@@ -3,7 +3,6 @@ summary's counts (behaviour checks on invented data)."""
 
 import csv
 import io
-import itertools
 import json
 from datetime import datetime, timedelta, timezone
 
@@ -13,6 +12,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from tests.watch.cycle_helpers import ROOT, make_workspace
+from tests.watch.delivery_helpers import cut_into_files, delivery_orders
 from watch.cli import main
 from watch.clock import ManualClock
 from watch.cycle import replay_season, run_cycle
@@ -241,18 +241,14 @@ def _piezometer_record(draw):
     n = draw(st.integers(8, 30))
     pressures = draw(st.lists(st.sampled_from([50.0, 50.0, 50.0, 52.0, 60.0, 45.0]), min_size=n, max_size=n))
     digits = draw(st.lists(st.sampled_from([9000.0, 9000.0, 8990.0]), min_size=n, max_size=n))
-    cuts = sorted(draw(st.sets(st.integers(1, n - 1), min_size=2, max_size=3)))
-    rows = [(15 * i, pressures[i], digits[i]) for i in range(n)]
-    bounds = [0, *cuts, n]
-    return [_piezometer_file(rows[a:b]) for a, b in zip(bounds[:-1], bounds[1:])]
+    return cut_into_files(draw, [(15 * i, pressures[i], digits[i]) for i in range(n)], _piezometer_file)
 
 
 @settings(max_examples=10, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(files=_piezometer_record(), data=st.data())
 def test_every_delivery_order_of_piezometer_files_stores_the_flags_of_in_order_delivery(tmp_path_factory, files,
                                                                                        data):  # fmt: skip
-    orders = list(itertools.permutations(range(len(files))))
-    chosen = [orders[0], *data.draw(st.lists(st.sampled_from(orders[1:]), min_size=1, max_size=2, unique=True))]
+    chosen = delivery_orders(data, len(files))
     results = []
     for order in chosen:
         folder = tmp_path_factory.mktemp("order")
