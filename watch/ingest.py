@@ -732,8 +732,8 @@ def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary:
                    rows["pore_pressure_kpa"].to_numpy(), rows["head_m"].to_numpy(), quality, None, lines)  # fmt: skip
         insert = store.insert_readings
     else:
-        columns = (ids, times, raw, rows["rain_mm"].to_numpy(), quality, _utc_text_or_none(rows["gap_start"].to_numpy()),
-                   None, lines)  # fmt: skip
+        gap_start = _utc_text_or_none(rows["gap_start"].to_numpy())
+        columns = (ids, times, raw, rows["rain_mm"].to_numpy(), quality, gap_start, None, lines)
         insert = store.insert_rainfall
     inserted = 0
     # Batches bound the Python objects alive at once (one tuple per row is ~10 objects).
