@@ -671,7 +671,7 @@ def _context(store: Store, config: SiteConfig, settings: AlertSettings, section_
         fos_24h_ago=None if earlier is None else earlier["fos"], status=calc.status,
         message=calc.message, live=calc.live, water=water, gauge=gauge,
         rain_24h_mm=_total(rain, at, 24.0), rain_7d_mm=_total(rain, at, 168.0), ages_h=ages,
-        rain=rain, stale_hours=settings.data.stale_hours,
+        rain=None if rain is None else rain[0], stale_hours=settings.data.stale_hours,
         last_evaluated=last_evaluations(store, section_id),
     )  # fmt: skip
 
@@ -730,13 +730,16 @@ def _head_value(store: Store, rule: SectionRule, at: datetime, stale_hours: floa
     return rate if math.isfinite(rate) else None
 
 
-def _rain_series(store: Store, gauge: str, at: datetime, reach: pd.Timedelta) -> pd.Series | None:
+def _rain_series(store: Store, gauge: str, at: datetime, reach: pd.Timedelta) -> tuple[pd.Series, pd.Series] | None:
+    """(rain_mm, gap_start) of the good reports of a gauge (watch.rainfall's series and the
+    start of the gap each report after a gap covers, NaT for the others); None without any."""
     rows = [r for r in store.readings(gauge, utc_text(at - reach.to_pytimedelta()), utc_text(at))
             if r["quality"] == "ok" and r["rain_mm"] is not None]  # fmt: skip
     if not rows:
         return None
     index = pd.to_datetime([r["time_utc"] for r in rows], utc=True)
-    return pd.Series([float(r["rain_mm"]) for r in rows], index=index, name="rain_mm")
+    gap_start = pd.Series(pd.to_datetime([r["gap_start_utc"] for r in rows], utc=True), index=index)
+    return pd.Series([float(r["rain_mm"]) for r in rows], index=index, name="rain_mm"), gap_start
 
 
 def _rain_reach(settings: AlertSettings) -> pd.Timedelta:
@@ -750,7 +753,7 @@ def _rain_reach(settings: AlertSettings) -> pd.Timedelta:
     return rain_record_reach(curves, gap, window_hours=windows)
 
 
-def _fresh(context: SectionContext, gauge: str, gauges: "_GaugeRecords") -> pd.Series | None:
+def _fresh(context: SectionContext, gauge: str, gauges: "_GaugeRecords") -> tuple[pd.Series, pd.Series] | None:
     """The rain record of a gauge, or None when the gauge is stale: a gauge that stopped
     reporting must not read as a dry spell."""
     age = context.ages_h.get(gauge)
@@ -767,10 +770,11 @@ class _GaugeRecords:
 
     def __init__(self, store: Store, at: datetime, reach: pd.Timedelta) -> None:
         self._store, self._at, self._reach = store, at, reach
-        self._series: dict[str, pd.Series | None] = {}
+        self._series: dict[str, tuple[pd.Series, pd.Series] | None] = {}
         self._ratios: dict[tuple, float | None] = {}
 
-    def series(self, gauge: str) -> pd.Series | None:
+    def series(self, gauge: str) -> tuple[pd.Series, pd.Series] | None:
+        """(rain_mm, gap_start) of the gauge (``_rain_series``)."""
         if gauge not in self._series:
             self._series[gauge] = _rain_series(self._store, gauge, self._at, self._reach)
         return self._series[gauge]
@@ -781,19 +785,20 @@ class _GaugeRecords:
         curve's durations, or starting before the record)."""
         key = (gauge, curve, dry_gap_h)
         if key not in self._ratios:
-            rain = self.series(gauge)
-            ratio = (None if rain is None or rain.empty
-                     else event_exceedance(rain, self._at, curve, dry_gap_h).ratio)  # fmt: skip
+            record = self.series(gauge)
+            ratio = (None if record is None
+                     else event_exceedance(record[0], self._at, curve, dry_gap_h, record[1]).ratio)  # fmt: skip
             self._ratios[key] = ratio if ratio is not None and math.isfinite(ratio) else None
         return self._ratios[key]
 
 
-def _total(rain: pd.Series | None, at: datetime, hours: float | None) -> float | None:
+def _total(record: tuple[pd.Series, pd.Series] | None, at: datetime, hours: float | None) -> float | None:
     """Rain over the ``hours`` before ``at`` (watch.rainfall.window_totals); None when there
-    is no record or the record does not cover the whole window (a partial total)."""
-    if rain is None or rain.empty or hours is None:
+    is no record, the record does not cover the whole window (a partial total) or the window
+    holds only part of a gap whose rain was reported after it."""
+    if record is None or hours is None:
         return None
-    total = float(window_totals(rain, at, hours)[0])
+    total = float(window_totals(record[0], at, hours, record[1])[0])
     return total if math.isfinite(total) else None
 
 

@@ -142,16 +142,21 @@ def _text(time) -> str:
 
 
 def _rain_rows(store: Store, gauge_id: str, start, end) -> pd.DataFrame:
-    """Stored rain of a gauge with ``start <= time_utc <= end``: time_utc, rain_mm, ok."""
+    """Stored rain of a gauge with ``start <= time_utc <= end``: time_utc, rain_mm, ok,
+    gap_start (NaT unless the report follows a gap in the record: watch.quality) and on_grid
+    (ok, and not after a gap: a depth that can be placed in one step of a time grid)."""
     rows = store.readings(gauge_id, _text(start), _text(end))
     if not rows:
-        return pd.DataFrame({"time_utc": pd.to_datetime([], utc=True),
-                             "rain_mm": pd.Series(dtype=float), "ok": pd.Series(dtype=bool)})
+        return pd.DataFrame({"time_utc": pd.to_datetime([], utc=True), "rain_mm": pd.Series(dtype=float),
+                             "ok": pd.Series(dtype=bool), "gap_start": pd.to_datetime([], utc=True),
+                             "on_grid": pd.Series(dtype=bool)})  # fmt: skip
     frame = pd.DataFrame(rows)
     frame["time_utc"] = pd.to_datetime(frame["time_utc"], utc=True)
     frame["rain_mm"] = pd.to_numeric(frame["rain_mm"], errors="coerce").astype(float)
     frame["ok"] = (frame["quality"] == "ok") & frame["rain_mm"].notna()
-    return frame[["time_utc", "rain_mm", "ok"]]
+    frame["gap_start"] = pd.to_datetime(frame["gap_start_utc"], utc=True)
+    frame["on_grid"] = frame["ok"] & frame["gap_start"].isna()
+    return frame[["time_utc", "rain_mm", "ok", "gap_start", "on_grid"]]
 
 
 def _binned(times: pd.Series, values: np.ndarray, ends: pd.DatetimeIndex, step: pd.Timedelta,
@@ -183,7 +188,8 @@ def _rain_grid(store: Store, gauge_id: str, ends: pd.DatetimeIndex, step: pd.Tim
     report of any quality minus its reporting interval (the first depth fell in the interval
     ending then; watch.rainfall's rule)."""
     rows = _rain_rows(store, gauge_id, ends[0] - step, ends[-1])
-    good = rows[rows["ok"]]
+    # Rain reported after a gap fell some time in the gap: no step holds it (a missing step).
+    good = rows[rows["on_grid"]]
     rain = _binned(good["time_utc"], good["rain_mm"].to_numpy(), ends, step, "sum")
     reported = _binned(good["time_utc"], np.ones(len(good)), ends, step, "count") > 0
     if rows.empty:
@@ -231,6 +237,9 @@ class RainfallState:
     notes : tuple of str
     dry_gap_h : float
         Dry spell that separates rain events [h].
+    reports_after_gap : tuple of dict
+        Reports of the record read that follow a gap (``time_utc``, ``gap_start_utc``,
+        ``rain_mm``): their depth fell some time in the gap (watch.quality).
     """
 
     gauge_id: str
@@ -246,6 +255,7 @@ class RainfallState:
     age_hours: float
     notes: tuple[str, ...] = ()
     dry_gap_h: float = DEFAULT_DRY_GAP_H
+    reports_after_gap: tuple[dict, ...] = ()
 
     def describe(self) -> str:
         """What duty staff read."""
@@ -311,6 +321,7 @@ class RainfallState:
             "last_report_utc": None if self.last_report_utc is None else _text(self.last_report_utc),
             "age_hours": number(self.age_hours),
             "notes": list(self.notes),
+            "reports_after_gap": list(self.reports_after_gap),
         }
 
 
@@ -356,20 +367,30 @@ def rainfall_state(
             f"days before {_text(at)}; check the gauge and its feed"
         )
     series = pd.Series(good["rain_mm"].to_numpy(), index=pd.DatetimeIndex(good["time_utc"]))
+    gap_start = pd.Series(good["gap_start"].to_numpy(), index=series.index)
     interval = (pd.Series(rows["time_utc"]).diff().median()
                 if len(rows) > 1 else pd.Timedelta(0))  # fmt: skip
     totals, missing, notes = {}, {}, []
     for name, length in DEFAULT_WINDOWS.items():
         hours = length / pd.Timedelta(hours=1)
-        totals[name] = float(window_totals(series, at, hours)[0])
+        totals[name] = float(window_totals(series, at, hours, gap_start)[0])
         if not np.isfinite(totals[name]):
-            notes.append(f"{name}: the rain record does not cover the whole window")
+            notes.append(f"{name}: the rain record does not cover the whole window, or the window holds "
+                         "part of a gap in the record")  # fmt: skip
         in_window = int(((series.index > at - length) & (series.index <= at)).sum())
         missing[name] = max(int(length / interval) - in_window, 0) if interval > pd.Timedelta(0) else 0
     for name, count in missing.items():
         if count and np.isfinite(totals[name]):
             notes.append(f"{name}: {count} report(s) missing or flagged; the total is a lower bound")
-    exceedances = tuple(event_exceedance(series, at, t, dry_gap_h) for t in thresholds)
+    after_gap = good[good["gap_start"].notna()]
+    reports_after_gap = tuple(
+        {"time_utc": _text(t), "gap_start_utc": _text(g), "rain_mm": float(r)}
+        for t, g, r in zip(after_gap["time_utc"], after_gap["gap_start"], after_gap["rain_mm"])
+    )  # fmt: skip
+    notes += [f"{r['rain_mm']:g} mm reported at {r['time_utc']} after a gap in the record since "
+              f"{r['gap_start_utc']}: counted only in windows that hold the whole gap, never in an intensity"
+              for r in reports_after_gap]  # fmt: skip
+    exceedances = tuple(event_exceedance(series, at, t, dry_gap_h, gap_start) for t in thresholds)
     notes += [f"{e.threshold}: not compared: {e.reason}" for e in exceedances if not e.testable]
     tested = [e for e in exceedances if e.testable and e.event is not None]
     worst = max(tested, key=lambda e: e.ratio) if tested else None
@@ -388,6 +409,7 @@ def rainfall_state(
         last_report_utc=last,
         age_hours=float((at - last) / pd.Timedelta(hours=1)),
         notes=tuple(notes),
+        reports_after_gap=reports_after_gap,
     )
 
 
@@ -734,7 +756,7 @@ def model_start(store: Store, instrument_id: str, at, max_hours: float = MAX_EST
 
 def _good_rain(store: Store, gauge_id: str, start, end):
     rows = _rain_rows(store, gauge_id, start, end)
-    good = rows[rows["ok"]]
+    good = rows[rows["on_grid"]]
     return good["time_utc"], good["rain_mm"].to_numpy()
 
 

@@ -47,6 +47,7 @@ from watch.errors import BusyError, FeedError, StoreError, UserError, WorkspaceE
 from watch.feeds import FeedReader, RowProblem, bounded_lines, clipped, open_feed_bytes, wide_encoding
 from watch.quality import (
     Previous,
+    USUAL_INTERVAL_READINGS,
     RainBefore,
     assess_piezometer,
     assess_rain_gauge,
@@ -645,24 +646,32 @@ def _load_block(store: Store, config: SiteConfig, feed: FeedSpec, rows: pd.DataF
         if parts:
             _insert(store, table, pd.concat(parts, ignore_index=True), file_id, summary, problems, conflicted,
                     correction)  # fmt: skip
+    # Readings that landed inside the stored record (a late or out-of-order file, or a
+    # correction) change what the readings after them are: the rain of a cumulative gauge (and
+    # whether it follows a gap), the spike and flat-line flags of a piezometer. Derive the span
+    # from the block's first reading on again.
     for part in rain_parts:
-        # Readings that landed inside the stored record (a late or out-of-order file, or a
-        # correction) change the rain of the readings after them: derive it again.
-        iid = part["instrument_id"].iat[0]
-        first = _utc_text(part["time_utc"].to_numpy()[:1])[0]
-        if correction is not None or len(store.rain_rows_from(iid, first, limit=len(part) + 1)) > len(part):
+        iid, first = part["instrument_id"].iat[0], _utc_text(part["time_utc"].to_numpy()[:1])[0]
+        if correction is not None or _inside_record(store, part):
             settle_rain_record(store, instruments[iid], first)
-    if correction is not None:
-        # A corrected head changes the spike and flat-line flags of the readings after it.
-        for part in piezometer_parts:
-            if len(part):
-                first = _utc_text(part["time_utc"].to_numpy()[:1])[0]
-                settle_piezometer_flags(store, config, instruments[part["instrument_id"].iat[0]], first)
+    for part in piezometer_parts:
+        if len(part) and (correction is not None or _inside_record(store, part)):
+            first = _utc_text(part["time_utc"].to_numpy()[:1])[0]
+            settle_piezometer_flags(store, config, instruments[part["instrument_id"].iat[0]], first)
+
+
+def _inside_record(store: Store, part: pd.DataFrame) -> bool:
+    """Whether the store holds a reading of the part's instrument later than the part's last:
+    the part landed inside the stored record rather than after it."""
+    last = _utc_text(part["time_utc"].to_numpy()[-1:])[0]
+    newest = store.newest_reading(part["instrument_id"].iat[0], "9999-12-31T23:59:59Z")
+    return newest is not None and newest["time_utc"] > last
 
 
 def settle_piezometer_flags(store: Store, config: SiteConfig, piezometer: Piezometer, start_utc: str) -> int:
     """Check the stored readings of a piezometer from ``start_utc`` on again (quality flags, from
-    their raw values and the reading before), after a correction changed one of them. Returns
+    their raw values and the reading before), after a correction changed one of them or a late
+    file landed before them. Returns
     the readings whose flag changed (inside atomic())."""
     stored = store.readings(piezometer.id, start_utc)
     if not stored:
@@ -686,22 +695,36 @@ def settle_rain_record(store: Store, gauge, start_utc: str) -> int:
     rows = store.rain_rows_from(gauge.id, start_utc)
     if not rows:
         return 0
-    times, raw, rain, quality = zip(*rows)
+    times, raw, rain, quality, gap = zip(*rows)
     times = np.array([_time64(t) for t in times], dtype="datetime64[s]")
-    new_rain, new_quality = rain_record(times, np.array(raw, dtype=float), gauge,
-                                        _rain_before(store, gauge.id, start_utc))  # fmt: skip
+    new_rain, new_quality, new_gap = rain_record(times, np.array(raw, dtype=float), gauge,
+                                                 _rain_before(store, gauge.id, start_utc))  # fmt: skip
+    new_gap = _utc_text_or_none(new_gap)
     old_rain = np.array([np.nan if r is None else r for r in rain], dtype=float)
     same_rain = (old_rain == new_rain) | (np.isnan(old_rain) & np.isnan(new_rain))
-    changed = np.flatnonzero(~same_rain | (np.array(quality, dtype=object) != new_quality))
+    changed = np.flatnonzero(~same_rain | (np.array(quality, dtype=object) != new_quality)
+                             | (np.array(gap, dtype=object) != new_gap))  # fmt: skip
     text = _utc_text(times)
-    return store.set_rain(gauge.id, ((None if np.isnan(new_rain[i]) else float(new_rain[i]), new_quality[i], text[i])
-                                     for i in changed))  # fmt: skip
+    return store.set_rain(gauge.id, ((None if np.isnan(new_rain[i]) else float(new_rain[i]), new_quality[i],
+                                      new_gap[i], text[i]) for i in changed))  # fmt: skip
 
 
 def _rain_before(store: Store, gauge_id: str, before_utc: str) -> RainBefore:
     base_time, base_raw, last_time, last_raw = store.rain_before(gauge_id, before_utc)
+    recent = store.rain_times_before(gauge_id, before_utc, USUAL_INTERVAL_READINGS + 1)
     return RainBefore(_time64(base_time), np.nan if base_raw is None else base_raw,
-                      _time64(last_time), np.nan if last_raw is None else last_raw)  # fmt: skip
+                      _time64(last_time), np.nan if last_raw is None else last_raw,
+                      tuple(_time64(t) for t in recent))  # fmt: skip
+
+
+def _utc_text_or_none(times: np.ndarray) -> np.ndarray:
+    """Store text of datetime64 times, None for NaT."""
+    times = np.asarray(times, dtype="datetime64[s]")
+    text = np.full(len(times), None, dtype=object)
+    known = ~np.isnat(times)
+    if known.any():
+        text[known] = _utc_text(times[known])
+    return text
 
 
 def _time64(text: str | None) -> np.datetime64 | None:
@@ -761,7 +784,8 @@ def _insert(store: Store, table: str, rows: pd.DataFrame, file_id: int, summary:
                    rows["pore_pressure_kpa"].to_numpy(), rows["head_m"].to_numpy(), quality, None, lines)  # fmt: skip
         insert = store.insert_readings
     else:
-        columns = (ids, times, raw, rows["rain_mm"].to_numpy(), quality, None, lines)
+        gap_start = _utc_text_or_none(rows["gap_start"].to_numpy())
+        columns = (ids, times, raw, rows["rain_mm"].to_numpy(), quality, gap_start, None, lines)
         insert = store.insert_rainfall
     inserted = 0
     # Batches bound the Python objects alive at once (one tuple per row is ~10 objects).

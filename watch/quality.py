@@ -22,6 +22,16 @@ Kept with a quality flag (later stages use only ``quality == 'ok'``), worst firs
   * ``no_baseline``: first reading of a cumulative rain gauge with nothing stored before it; its
     rain depth is unknown (NULL), not guessed.
 
+Kept as good but marked (``gap_start``; column ``rainfall.gap_start_utc``): the depth of a
+cumulative gauge's reading that follows a gap in its record. Its increment covers the whole gap
+(a week missing, then 40 mm in one 15-minute step), so the depth is known but not when it fell:
+``watch.rainfall`` counts it only in windows that contain the whole gap and never in an
+intensity. A gap is an increment spanning more than ``GAP_FACTOR`` times the gauge's usual
+reporting interval, the median spacing of its last ``USUAL_INTERVAL_READINGS`` readings before
+it (``usual_intervals``). Tipping-bucket and interval gauges report the rain of their own
+interval only: the rain of a gap is lost, not lumped, so their readings are never marked (a
+total over a window with missing reports is a lower bound; ``slipwatch rain`` says so).
+
 The rain of a cumulative gauge is derived from the stored record, not from the order in which
 files arrived: ``rain_record`` is a function of the gauge's readings in time order, and the
 ingest recomputes it from the first reading a file adds whenever that file lands inside the
@@ -54,6 +64,9 @@ __all__ = [
     "assess_rain_gauge",
     "RainBefore",
     "rain_record",
+    "usual_intervals",
+    "GAP_FACTOR",
+    "USUAL_INTERVAL_READINGS",
     "world_record_rainfall_mm",
     "GREATEST_12_MONTH_RAINFALL_MM",
 ]
@@ -66,6 +79,20 @@ QUALITY_FLAGS = ("out_of_range", "spike", "flat", "implausible", "no_baseline")
 #: A running total above it cannot be one season's rain: the default upper limit of the raw value
 #: of a cumulative gauge without ``valid_range``, and of a reading whose duration is unknown.
 GREATEST_12_MONTH_RAINFALL_MM = 26_461.0
+
+
+#: An increment of a cumulative gauge that spans more than this many usual reporting intervals
+#: follows a gap in the record. 1.5 marks every increment that covers a missing report (2
+#: intervals or more) while allowing a logger clock to jitter by up to half an interval (our
+#: choice, not a published value).
+GAP_FACTOR = 1.5
+
+#: Readings whose spacings give a gauge's usual reporting interval (their median). Taken from
+#: the record before each reading, never after it, so the interval of a reading depends only on
+#: the record up to it: the same whatever order the files arrived in. 24 spacings (6 h of a
+#: 15-minute gauge) let the median ignore a gap of up to 11 missing spacings among them (our
+#: choice). The site file has no reporting interval of its own, so the record is the source.
+USUAL_INTERVAL_READINGS = 24
 
 
 def world_record_rainfall_mm(duration_h):
@@ -224,11 +251,32 @@ class RainBefore:
     base_raw: float = np.nan
     last_time: np.datetime64 | None = None
     last_raw: float = np.nan
+    #: Times of the last USUAL_INTERVAL_READINGS + 1 readings (any quality), oldest first:
+    #: the spacings that give the usual reporting interval of the first readings derived.
+    recent_times: tuple = ()
+
+
+def usual_intervals(times: np.ndarray, earlier: np.ndarray | None = None) -> np.ndarray:
+    """The usual reporting interval [s] before each of ``times``: the median of the spacings of
+    the last USUAL_INTERVAL_READINGS readings before it (``earlier`` then ``times``, sorted,
+    datetime64[s]); NaN where there are none (fewer than two readings before it)."""
+    times = np.asarray(times, dtype="datetime64[s]")
+    earlier = np.asarray(earlier if earlier is not None else [], dtype="datetime64[s]")
+    every = np.concatenate((earlier, times)).astype(np.int64).astype(float)
+    spacings = pd.Series(np.diff(every))
+    median = spacings.rolling(USUAL_INTERVAL_READINGS, min_periods=1).median().to_numpy()
+    # Reading p of ``every`` has the spacings ending at reading p - 1: median[p - 2].
+    positions = np.arange(len(earlier), len(every)) - 2
+    usual = np.full(len(times), np.nan)
+    known = positions >= 0
+    usual[known] = median[positions[known]]
+    return usual
 
 
 def rain_record(times: np.ndarray, raw: np.ndarray, gauge: RainGauge,
-                before: RainBefore | None = None) -> tuple[np.ndarray, np.ndarray]:  # fmt: skip
-    """(rain_mm, quality) of one gauge's readings in time order, from their raw values alone.
+                before: RainBefore | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:  # fmt: skip
+    """(rain_mm, quality, gap_start) of one gauge's readings in time order, from their raw
+    values alone.
 
     Interval and tip gauges: the depth of each reading (watch.conversions). Cumulative gauges:
     the increase of the running total since the last reading that is a usable base, or the total
@@ -238,6 +286,10 @@ def rain_record(times: np.ndarray, raw: np.ndarray, gauge: RainGauge,
     exceeds ``world_record_rainfall_mm`` over the time since its base is flagged
     ``implausible`` and is no base for the next one, so one wild total cannot turn the readings
     after it into a burst of rain.
+
+    ``gap_start`` (datetime64[s], NaT for most readings): for a good reading of a cumulative
+    gauge whose increment spans more than GAP_FACTOR usual intervals (``usual_intervals``),
+    the time of its base: the depth fell some time between then and the reading.
 
     The result depends only on the readings and ``before``: the same record gives the same
     depths whatever order its files arrived in. The loop is sequential by nature (each base
@@ -256,15 +308,18 @@ def rain_record(times: np.ndarray, raw: np.ndarray, gauge: RainGauge,
     implausible_total = ~wild & out_of_range(raw, limit)
     quality[implausible_total] = "implausible"
     seconds = times.astype(np.int64).astype(float)
+    gap_start = np.full(n, np.datetime64("NaT"), dtype="datetime64[s]")
     if gauge.reporting != "cumulative_mm":
+        # A count per interval: the rain of a gap is missing, never lumped into the next report.
         rain = rain_values(gauge, raw)
         previous = np.concatenate(([_seconds(before.last_time)], seconds[:-1])) if n else seconds
         for i in np.flatnonzero(quality == QUALITY_OK):
             if not _plausible(rain[i], previous[i], seconds[i]):
                 quality[i] = "implausible"
-        return rain, quality
+        return rain, quality, gap_start
 
     rain = np.full(n, np.nan)
+    usual = usual_intervals(times, np.asarray(before.recent_times, dtype="datetime64[s]"))
     base_t, base_c = _seconds(before.base_time), before.base_raw
     last_t, last_c = _seconds(before.last_time), before.last_raw
     for i in range(n):
@@ -276,17 +331,21 @@ def rain_record(times: np.ndarray, raw: np.ndarray, gauge: RainGauge,
             else:
                 depth = float(rain_from_cumulative([c], base_c)[0])
                 if _plausible(depth, base_t, t):
+                    since = base_t
                     rain[i], base_t, base_c = depth, t, c
                 else:
                     shifted = float(rain_from_cumulative([c], last_c)[0]) if np.isfinite(last_c) else np.nan
+                    since = last_t
                     if last_t != base_t and np.isfinite(shifted) and _plausible(shifted, last_t, t):
                         rain[i], base_t, base_c = shifted, t, c
                     else:
                         rain[i], quality[i] = depth, "implausible"
+                if quality[i] == QUALITY_OK and t - since > GAP_FACTOR * usual[i]:
+                    gap_start[i] = np.datetime64(int(since), "s")
         elif not np.isnan(base_c):
             rain[i] = float(rain_from_cumulative([c], base_c)[0])
         last_t, last_c = t, c
-    return rain, quality
+    return rain, quality, gap_start
 
 
 def _seconds(time: np.datetime64 | None) -> float:
@@ -305,8 +364,8 @@ def _plausible(depth_mm: float, start_s: float, end_s: float) -> bool:
 
 
 def assess_rain_gauge(rows: pd.DataFrame, gauge: RainGauge, before: RainBefore | None = None) -> pd.DataFrame:
-    """Convert and check one rain gauge's rows (sorted by time); adds ``rain_mm`` and ``quality``
-    (see ``rain_record``)."""
-    rain, quality = rain_record(rows["time_utc"].to_numpy(dtype="datetime64[s]"),
-                                rows["raw_value"].to_numpy(dtype=float), gauge, before)  # fmt: skip
-    return rows.assign(rain_mm=rain, quality=quality)
+    """Convert and check one rain gauge's rows (sorted by time); adds ``rain_mm``, ``quality``
+    and ``gap_start`` (see ``rain_record``)."""
+    rain, quality, gap_start = rain_record(rows["time_utc"].to_numpy(dtype="datetime64[s]"),
+                                           rows["raw_value"].to_numpy(dtype=float), gauge, before)  # fmt: skip
+    return rows.assign(rain_mm=rain, quality=quality, gap_start=gap_start)

@@ -15,6 +15,14 @@ the rain.
 
 Missing data must be handled by the caller: a series holding NaN is refused, because a gauge
 that reported nothing and a gauge that was down look the same in a sum.
+
+Rain after a gap: a cumulative gauge's first report after a gap in its record carries the rain
+of the whole gap (``watch.quality``, ``gap_start``). The functions that take ``gap_start`` (a
+Series on the same times as the rain: the start of the time each report's depth covers when it
+follows a gap, NaT otherwise) count such a depth only in a window that contains the whole
+(gap start, report time]; a window that overlaps only part of it has no total (NaN: when the
+rain fell inside the gap is unknown), and a rain event holding such a depth is not compared
+with an intensity-duration curve.
 """
 
 from __future__ import annotations
@@ -77,13 +85,14 @@ def _interval(rain: pd.Series) -> pd.Timedelta:
     return pd.Series(rain.index).diff().median()
 
 
-def window_totals(rain: pd.Series, ends, duration_h: float) -> np.ndarray:
+def window_totals(rain: pd.Series, ends, duration_h: float, gap_start: pd.Series | None = None) -> np.ndarray:
     """Rain totals [mm] over the ``duration_h`` [h] ending at each time of ``ends``.
 
     total(t) = sum of rain_mm at times in (t - D, t]
 
-    NaN where the window starts before the record does (the module's partial-window rule):
-    this is the one window-total function of the service.
+    NaN where the window starts before the record does (the module's partial-window rule), or
+    where it overlaps only part of the time a report after a gap covers (the module's rule of
+    rain after a gap): this is the one window-total function of the service.
 
     Parameters
     ----------
@@ -93,16 +102,36 @@ def window_totals(rain: pd.Series, ends, duration_h: float) -> np.ndarray:
         Window ends (naive = UTC).
     duration_h : float
         Window length D [h], > 0.
+    gap_start : pandas.Series, optional
+        Per report, the start of the time its depth covers when it follows a gap in the
+        record (NaT otherwise), on the times of ``rain``.
 
     Returns
     -------
     ndarray
         One total per end [mm].
     """
-    return _totals(_checked_series(rain), ends, duration_h)
+    rain = _checked_series(rain)
+    return _totals(rain, ends, duration_h, _gap_spans(rain, gap_start))
 
 
-def _totals(rain: pd.Series, ends, duration_h: float) -> np.ndarray:
+def _gap_spans(rain: pd.Series, gap_start: pd.Series | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(start [ns], end [ns], depth [mm]) of the reports of a checked series that follow a gap."""
+    if gap_start is None:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
+    if len(gap_start) != len(rain):
+        raise ModelError(f"gap_start has {len(gap_start)} values for {len(rain)} rain reports")
+    starts = pd.DatetimeIndex(pd.to_datetime(gap_start.to_numpy(), utc=True))
+    marked = ~starts.isna()
+    ends = rain.index.as_unit("ns").asi8[marked]
+    begins = starts[marked].as_unit("ns").asi8
+    if (begins >= ends).any():
+        raise ModelError("a gap start is not before the time of its report")
+    return begins, ends, rain.to_numpy()[marked]
+
+
+def _totals(rain: pd.Series, ends, duration_h: float,
+            gaps: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None) -> np.ndarray:  # fmt: skip
     """:func:`window_totals` of a checked series: cumulative sums at the window ends' positions
     in the (increasing) report times."""
     if not (np.isfinite(duration_h) and duration_h > 0):
@@ -114,12 +143,20 @@ def _totals(rain: pd.Series, ends, duration_h: float) -> np.ndarray:
     last = np.searchsorted(times, stamps.as_unit("ns").asi8, side="right")
     first = np.searchsorted(times, (stamps - length).as_unit("ns").asi8, side="right")
     totals = np.maximum(cumulative[last] - cumulative[first], 0.0)  # no rounding below 0
-    return np.where(stamps - length < _record_start(rain), np.nan, totals)
+    unknown = stamps - length < _record_start(rain)
+    window_end = stamps.as_unit("ns").asi8
+    window_start = (stamps - length).as_unit("ns").asi8
+    for begin, end, _ in zip(*(gaps if gaps is not None else ())):
+        # (window_start, window_end] overlaps (begin, end] without containing it.
+        overlaps = (begin < window_end) & (end > window_start)
+        unknown |= overlaps & ~((begin >= window_start) & (end <= window_end))
+    return np.where(unknown, np.nan, totals)
 
 
 def moving_totals(
     rain: pd.Series,
     windows: Mapping[str, pd.Timedelta] | None = None,
+    gap_start: pd.Series | None = None,
 ) -> pd.DataFrame:
     """Rain totals over moving time windows ending at each reading time (:func:`window_totals`).
 
@@ -130,34 +167,39 @@ def moving_totals(
     windows : mapping of str to Timedelta, optional
         Column name -> window length; default :data:`DEFAULT_WINDOWS` (1 h, 24 h, 3 d, 7 d,
         30 d).
+    gap_start : pandas.Series, optional
+        As for :func:`window_totals`.
 
     Returns
     -------
     pandas.DataFrame
         One column per window [mm], same index as ``rain``; NaN where the window starts
-        before the record (the module's partial-window rule).
+        before the record (the module's partial-window rule) or cuts a gap.
     """
     rain = _checked_series(rain)
+    gaps = _gap_spans(rain, gap_start)
     windows = DEFAULT_WINDOWS if windows is None else windows
     columns = {}
     for name, length in windows.items():
         hours = pd.Timedelta(length) / pd.Timedelta(hours=1)
         if not hours > 0:
             raise ConfigError(f"window {name} must be longer than zero, got {length}")
-        columns[name] = _totals(rain, rain.index, hours)
+        columns[name] = _totals(rain, rain.index, hours, gaps)
     return pd.DataFrame(columns, index=rain.index)
 
 
-def rain_total(rain: pd.Series, end, duration_h: float) -> float:
+def rain_total(rain: pd.Series, end, duration_h: float, gap_start: pd.Series | None = None) -> float:
     """Rain [mm] that fell in the ``duration_h`` [h] ending at ``end``: sum over (end - D, end];
-    NaN when the window starts before the record does (:func:`window_totals`)."""
-    return float(window_totals(rain, end, duration_h)[0])
+    NaN when the window starts before the record does or cuts a gap (:func:`window_totals`)."""
+    return float(window_totals(rain, end, duration_h, gap_start)[0])
 
 
-def mean_intensity(rain: pd.Series, end, duration_h: float) -> float:
+def mean_intensity(rain: pd.Series, end, duration_h: float, gap_start: pd.Series | None = None) -> float:
     """Mean rainfall intensity I = P / D [mm/h] over the ``duration_h`` [h] ending at ``end``,
-    with P the total [mm] over (end - D, end] (NaN for a partial window)."""
-    return rain_total(rain, end, duration_h) / duration_h
+    with P the total [mm] over (end - D, end] (NaN for a partial window or one that cuts a
+    gap; a window that holds a whole gap gives the mean over the window, as its total is
+    known)."""
+    return rain_total(rain, end, duration_h, gap_start) / duration_h
 
 
 def antecedent_rainfall(rain: pd.Series, at, days: float) -> float:
@@ -460,6 +502,7 @@ def event_exceedance(
     at,
     threshold: IntensityDurationThreshold,
     dry_gap_h: float = DEFAULT_DRY_GAP_H,
+    gap_start: pd.Series | None = None,
 ) -> EventExceedance:
     """The rain event under way at ``at`` against an intensity-duration threshold.
 
@@ -478,6 +521,9 @@ def event_exceedance(
     threshold : IntensityDurationThreshold
     dry_gap_h : float
         Dry spell that separates events [h] (default :data:`DEFAULT_DRY_GAP_H`).
+    gap_start : pandas.Series, optional
+        As for :func:`window_totals`: an event holding rain reported after a gap in the
+        record is not compared (when its rain fell, hence D and I, is unknown).
     """
     at = _as_utc(at)
     event = current_event(rain, at, dry_gap_h)
@@ -493,6 +539,15 @@ def event_exceedance(
     elif not event.complete:
         reason = (f"the rain record does not reach {dry_gap_h:g} h before the event that "
                   f"started by {event.start.isoformat()}: its duration and intensity are unknown")
+    else:
+        begins, ends, depths = _gap_spans(_checked_series(rain), gap_start)
+        inside = ((ends > event.start.value) & (ends <= event.end.value) & (depths > 0)
+                  if begins.size else np.zeros(0, dtype=bool))  # fmt: skip
+        if inside.any():
+            k = int(np.flatnonzero(inside)[0])
+            reason = (f"the event holds {depths[k]:g} mm reported at {pd.Timestamp(ends[k], tz='UTC').isoformat()} "
+                      f"after a gap in the record since {pd.Timestamp(begins[k], tz='UTC').isoformat()}: "
+                      "when it fell, hence the event's duration and intensity, is unknown")
     if reason:
         return EventExceedance(threshold.name, at, event, np.nan, d, intensity, np.nan, False,
                                False, reason)  # fmt: skip

@@ -476,6 +476,16 @@ MIGRATIONS: list[tuple[int, str, str]] = [
         ALTER TABLE calibrations ADD COLUMN override_reason TEXT;
         """,
     ),
+    (
+        14,
+        "rain after a gap in the record",
+        """
+        -- A cumulative gauge's reading whose increment spans a gap in its record: the time of
+        -- the reading it is counted from (its depth fell some time between then and its own
+        -- time); NULL for a reading that covers the gauge's usual interval (watch.quality).
+        ALTER TABLE rainfall ADD COLUMN gap_start_utc TEXT;
+        """,
+    ),
 ]
 
 _READING_COLUMNS = (
@@ -483,7 +493,7 @@ _READING_COLUMNS = (
     "pore_pressure_kpa", "head_m", "quality", "source_file_id", "source_line",
 )  # fmt: skip
 _RAINFALL_COLUMNS = (
-    "gauge_id", "time_utc", "raw_value", "rain_mm", "quality", "source_file_id", "source_line",
+    "gauge_id", "time_utc", "raw_value", "rain_mm", "quality", "gap_start_utc", "source_file_id", "source_line",
 )  # fmt: skip
 #: Columns and id column of each measurement table, in the order rows are inserted.
 _MEASUREMENT_COLUMNS = {
@@ -906,13 +916,21 @@ class Store:
         ).fetchone() or (None, None)
         return (*base, *last)
 
-    def rain_rows_from(self, gauge_id: str, start_utc: str, limit: int = -1) -> list[tuple]:
-        """(time_utc, raw_value, rain_mm, quality) of a gauge from a time on, in time order; at
-        most ``limit`` rows (-1: all)."""
+    def rain_times_before(self, gauge_id: str, before_utc: str, count: int) -> list[str]:
+        """Times of a gauge's last ``count`` readings (any quality) before a time, oldest first."""
+        rows = self.conn.execute(
+            "SELECT time_utc FROM rainfall WHERE gauge_id = ? AND time_utc < ? ORDER BY time_utc DESC LIMIT ?",
+            (gauge_id, before_utc, count),
+        ).fetchall()
+        return [row[0] for row in reversed(rows)]
+
+    def rain_rows_from(self, gauge_id: str, start_utc: str) -> list[tuple]:
+        """(time_utc, raw_value, rain_mm, quality, gap_start_utc) of a gauge from a time on, in
+        time order."""
         return self.conn.execute(
-            "SELECT time_utc, raw_value, rain_mm, quality FROM rainfall WHERE gauge_id = ? "
-            "AND time_utc >= ? ORDER BY time_utc LIMIT ?",
-            (gauge_id, start_utc, limit),
+            "SELECT time_utc, raw_value, rain_mm, quality, gap_start_utc FROM rainfall WHERE gauge_id = ? "
+            "AND time_utc >= ? ORDER BY time_utc",
+            (gauge_id, start_utc),
         ).fetchall()
 
     def set_reading_quality(self, instrument_id: str, rows: Iterable[Sequence]) -> int:
@@ -923,10 +941,11 @@ class Store:
         ).rowcount
 
     def set_rain(self, gauge_id: str, rows: Iterable[Sequence]) -> int:
-        """Set (rain_mm, quality, time_utc) of stored readings of a gauge (inside atomic())."""
+        """Set (rain_mm, quality, gap_start_utc, time_utc) of stored readings of a gauge (inside
+        atomic())."""
         return self.conn.executemany(
-            "UPDATE rainfall SET rain_mm = ?, quality = ? WHERE gauge_id = ? AND time_utc = ?",
-            ((rain, quality, gauge_id, time) for rain, quality, time in rows),
+            "UPDATE rainfall SET rain_mm = ?, quality = ?, gap_start_utc = ? WHERE gauge_id = ? AND time_utc = ?",
+            ((rain, quality, gap, gauge_id, time) for rain, quality, gap, time in rows),
         ).rowcount
 
     # --- queries ------------------------------------------------------------------------------

@@ -166,7 +166,7 @@ def fill_store(workspace, store, first: str, second: str) -> dict:
         head = 66.0 + 1.5 * h / hours
         quality = "spike" if h == hours - 5 else "ok"
         readings.append(("PZ-1", t, head, None, None, None, head, quality, file_id, h + 2))
-        rain.append(("RG-1", t, RAIN_PER_HOUR_MM, RAIN_PER_HOUR_MM, "ok", file_id, h + 2))
+        rain.append(("RG-1", t, RAIN_PER_HOUR_MM, RAIN_PER_HOUR_MM, "ok", None, file_id, h + 2))
     store.insert_readings(readings)
     store.insert_rainfall(rain)
     columns = {r[1] for r in conn.execute("PRAGMA table_info(assessments)")}

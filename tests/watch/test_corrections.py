@@ -8,8 +8,11 @@ from datetime import datetime, timedelta, timezone
 
 import pytest
 from click.testing import CliRunner
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from tests.watch.cycle_helpers import ROOT, make_workspace
+from tests.watch.delivery_helpers import cut_into_files, delivery_orders
 from watch.cli import main
 from watch.clock import ManualClock
 from watch.cycle import replay_season, run_cycle
@@ -209,3 +212,69 @@ def test_a_correction_checks_the_readings_after_it_again(tmp_path):
     with workspace.open_store(read_only=True) as store:
         quality = [r["quality"] for r in store.readings("PZ-1")]
     assert quality == ["ok", "ok", "spike"]
+
+
+# --- piezometer flags whatever the delivery order -------------------------------------------------
+
+# The example site with flat lines flagged after 1 hour (24 h in the example), so that short
+# invented records hold both flat runs and spikes.
+_FLAT_SITE = EXAMPLE_SITE_TOML.replace("flat_line_hours = 24", "flat_line_hours = 1")
+
+
+def _piezometer_file(rows) -> str:
+    """rows: (minutes after 2026-10-05 00:00 local time, PZ-1 [kPa], PZ-2 [digits])."""
+    start = datetime(2026, 10, 5)
+    return "Timestamp,PZ1_kPa,PZ2_digits,PZ2_degC,Rain_tips\n" + "".join(
+        f"{(start + timedelta(minutes=m)):%Y-%m-%d %H:%M},{p!r},{d!r},11.0,0\n" for m, p, d in rows)
+
+
+def _stored_flags(workspace):
+    with workspace.open_store(read_only=True) as store:
+        return store.conn.execute("SELECT instrument_id, time_utc, head_m, quality FROM readings "
+                                  "ORDER BY instrument_id, time_utc").fetchall()  # fmt: skip
+
+
+@st.composite
+def _piezometer_record(draw):
+    """15-minute readings whose pressures rise fast (a spike: 10 kPa is about 1 m of head in
+    15 minutes, 4 m/h against max_rise_rate 1 m/h), fall, or stay flat, cut into 3 or 4 files."""
+    n = draw(st.integers(8, 30))
+    pressures = draw(st.lists(st.sampled_from([50.0, 50.0, 50.0, 52.0, 60.0, 45.0]), min_size=n, max_size=n))
+    digits = draw(st.lists(st.sampled_from([9000.0, 9000.0, 8990.0]), min_size=n, max_size=n))
+    return cut_into_files(draw, [(15 * i, pressures[i], digits[i]) for i in range(n)], _piezometer_file)
+
+
+@settings(max_examples=10, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(files=_piezometer_record(), data=st.data())
+def test_every_delivery_order_of_piezometer_files_stores_the_flags_of_in_order_delivery(tmp_path_factory, files,
+                                                                                       data):  # fmt: skip
+    chosen = delivery_orders(data, len(files))
+    results = []
+    for order in chosen:
+        folder = tmp_path_factory.mktemp("order")
+        workspace = _workspace(folder, _FLAT_SITE)
+        for k in order:
+            ingest(workspace, [_file(folder, f"fh_{k}.csv", files[k])], now=NOW + timedelta(days=5), progress=False)
+        results.append(_stored_flags(workspace))
+    assert all(result == results[0] for result in results[1:]), chosen
+
+
+def test_a_back_filled_file_makes_a_stored_reading_a_spike_and_another_not(tmp_path):
+    # Head = tip elevation + p / gamma_w, 1 kPa = 0.102 m (gamma_w 9.81 kN/m3); max_rise_rate
+    # 1 m/h. Delivered first: 50, 60, 52, 57 kPa an hour apart: 50 -> 60 is 1.02 m/h, a spike;
+    # 52 -> 57 is 0.51 m/h, not one.
+    first = [(0, 50.0, 9000.0), (60, 60.0, 8990.0), (120, 52.0, 9000.0), (180, 57.0, 8990.0)]
+    # Back-filled: 58 kPa 15 min before the 60 (58 -> 60 is 0.82 m/h: the 60 is no spike any
+    # more) and 52 kPa 15 min before the 57 (52 -> 57 is 2.04 m/h: the 57 becomes a spike).
+    late = [(45, 58.0, 9000.0), (165, 52.0, 9000.0)]
+    workspace = _workspace(tmp_path, _FLAT_SITE)
+    now = NOW + timedelta(days=5)
+    ingest(workspace, [_file(tmp_path, "fh_a.csv", _piezometer_file(first))], now=now, progress=False)
+    assert [q for i, _, _, q in _stored_flags(workspace) if i == "PZ-1"] == ["ok", "spike", "ok", "ok"]
+    ingest(workspace, [_file(tmp_path, "fh_b.csv", _piezometer_file(late))], now=now, progress=False)
+    # 0, 45 (50 -> 58 in 45 min: 1.09 m/h), 60, 120, 165, 180.
+    assert [q for i, _, _, q in _stored_flags(workspace) if i == "PZ-1"] == ["ok", "spike", "ok", "ok", "ok", "spike"]
+    (tmp_path / "in_order").mkdir()
+    in_order = _workspace(tmp_path / "in_order", _FLAT_SITE)
+    ingest(in_order, [_file(tmp_path, "fh_c.csv", _piezometer_file(sorted(first + late)))], now=now, progress=False)
+    assert _stored_flags(workspace) == _stored_flags(in_order)

@@ -292,3 +292,71 @@ def test_rain_record_reach_covers_the_longest_event_and_window():
 
     assert rain_record_reach((CAINE_1980,), 48.0, [24.0]) == pd.Timedelta(hours=240 + 48 + 24)
     assert rain_record_reach((), 48.0, [720.0]) == pd.Timedelta(hours=720 + 24)
+
+
+# --------------------------------------------------------------------------------------------
+# Rain reported after a gap in the record
+# --------------------------------------------------------------------------------------------
+
+
+def _after_gap():
+    """A 15-minute record with three days missing: the first report after the gap carries the
+    gap's 40 mm (a cumulative gauge's increment), then 0.5 mm every 15 minutes."""
+    before = pd.date_range("2026-01-01 00:15", periods=96 * 5, freq="15min", tz="UTC")
+    after = pd.date_range(before[-1] + pd.Timedelta(days=3), periods=96, freq="15min", tz="UTC")
+    index = before.append(after)
+    rain = pd.Series(0.5, index=index, name="rain_mm")
+    rain.iloc[len(before)] = 40.0
+    gap_start = pd.Series(pd.NaT, index=index, dtype="datetime64[ns, UTC]")
+    gap_start.iloc[len(before)] = before[-1]
+    return rain, gap_start, before[-1], after[0]
+
+
+def test_rain_after_a_gap_counts_only_in_windows_that_hold_the_whole_gap():
+    rain, gap_start, gap_from, reported = _after_gap()
+    # By the definition of a window total (sum over (end - D, end]) and of a report after a
+    # gap (its depth fell some time in (gap start, report time]): a 1-hour window ending at the
+    # report holds part of the gap only, so its total is unknown; without the mark it would read
+    # 40 + 3 x 0 (nothing else in the hour) = 40 mm in one hour.
+    assert window_totals(rain, reported, 1.0)[0] == pytest.approx(40.0, rel=1e-12)
+    assert np.isnan(window_totals(rain, reported, 1.0, gap_start)[0])
+    assert np.isnan(mean_intensity(rain, reported, 1.0, gap_start))
+    # 24 h and 48 h windows ending at the report start inside the gap: unknown too; the 3-day
+    # window is the gap itself: 40 mm. A window that ends inside the gap is unknown (it may
+    # hold some of the 40 mm).
+    for hours in (24.0, 48.0):
+        assert np.isnan(window_totals(rain, reported, hours, gap_start)[0])
+    assert window_totals(rain, reported, 72.0, gap_start)[0] == pytest.approx(40.0, rel=1e-12)
+    assert np.isnan(window_totals(rain, gap_from + pd.Timedelta(days=1), 1.0, gap_start)[0])
+    # A 7-day window holds the whole gap: 40 mm plus the 0.5 mm reports in it.
+    end = reported + pd.Timedelta(hours=2)
+    expected = _brute_total(rain, end, pd.Timedelta(days=7))
+    assert window_totals(rain, end, 168.0, gap_start)[0] == pytest.approx(expected, rel=1e-12)
+    assert expected > 40.0
+    # Windows after the report, or before the gap, are as without the mark.
+    later = reported + pd.Timedelta(hours=1)
+    assert window_totals(rain, later, 1.0, gap_start)[0] == pytest.approx(2.0, rel=1e-12)
+    assert window_totals(rain, gap_from, 24.0, gap_start)[0] == pytest.approx(48.0, rel=1e-12)
+    totals = moving_totals(rain, gap_start=gap_start)
+    assert np.isnan(totals.loc[reported, "rain_1h_mm"]) and totals.loc[later, "rain_1h_mm"] == pytest.approx(2.0)
+
+
+def test_a_rain_event_holding_rain_reported_after_a_gap_is_not_compared_with_a_curve():
+    rain, gap_start, _, reported = _after_gap()
+    at = reported + pd.Timedelta(hours=1)
+    # Without the mark, 40 mm in the first 15 minutes of a 1.25 h event is far above Caine
+    # (1980) I = 14.82 D^-0.39: the burst the gap would invent.
+    assert event_exceedance(rain, at, CAINE_1980).exceeded
+    marked = event_exceedance(rain, at, CAINE_1980, gap_start=gap_start)
+    assert not marked.testable and not marked.exceeded and np.isnan(marked.ratio)
+    assert "after a gap in the record" in marked.reason
+
+
+def test_gap_start_must_match_the_rain_reports():
+    rain, gap_start, _, reported = _after_gap()
+    with pytest.raises(ModelError, match="gap_start has 10 values for 576 rain reports"):
+        window_totals(rain, reported, 1.0, gap_start.iloc[:10])
+    wrong = gap_start.copy()
+    wrong.iloc[0] = rain.index[0] + pd.Timedelta(hours=1)
+    with pytest.raises(ModelError, match="a gap start is not before the time of its report"):
+        window_totals(rain, reported, 1.0, wrong)
