@@ -53,6 +53,7 @@ from watch.formatting import number_text, short_time
 from watch.errors import UserError
 from watch.lifecycle import state_history
 from watch.store import utc_text
+from watch.waterlines import section_with_stored_lines
 
 __all__ = ["ReportResult", "build_report", "default_report_path", "LINES_PER_PAGE"]
 
@@ -202,11 +203,14 @@ class _Content:
         reported = min(assessed, key=lambda a: a.fos) if assessed else (history[-1] if history else None)
         drawing, drawing_source = section_of(workspace, store, section, reported)
         water_points, water_source = water_lines_of(store, drawing, reported)
-        methods, governing, slice_rows, note = _every_method(drawing, water_points, reported)
+        stored_lines = reader.water_lines(reported.id) if reported else []
+        sources = {row["line_name"]: row.get("source") for row in stored_lines}
+        methods, governing, slice_rows, note = _every_method(
+            rerun_section(drawing, water_points, sources), reported)
         return cls(
             workspace=workspace, store=store, site=site, section=section, start=start, end=end,
             history=history, reported=reported, drawing=drawing, drawing_source=drawing_source,
-            water_lines=reader.water_lines(reported.id) if reported else [],
+            water_lines=stored_lines,
             water_points=water_points, water_source=water_source, methods=methods,
             governing=governing, slice_rows=slice_rows, method_note=note,
             alerts=alert_history(store, start, end, section.id),
@@ -216,7 +220,19 @@ class _Content:
         )
 
 
-def _every_method(section, water_points: dict, assessment: AssessmentRecord | None):
+def rerun_section(section, water_points: dict, sources: dict):
+    """The section with the assessment's water lines, drawn as the cycle drew them: a line
+    through piezometer heads (measured or model-estimated) without the inclination correction
+    (watch.waterlines.section_with_stored_lines), a design line with the section's own setting.
+    ``sources``: {line name: stored source}; None for the section itself without lines."""
+    if section is None or not water_points:
+        return section
+    return section_with_stored_lines(section, [
+        {"line_name": name, "points": points, "source": sources.get(name)}
+        for name, points in water_points.items()])
+
+
+def _every_method(current, assessment: AssessmentRecord | None):
     """Re-run every method on the stored critical surface: (rows, governing row, slice table
     rows, note)."""
     from solver.errors import SolverError
@@ -225,16 +241,15 @@ def _every_method(section, water_points: dict, assessment: AssessmentRecord | No
 
     if assessment is None:
         return [], None, [], "No assessment in the period: nothing to re-run."
-    if section is None:
+    if current is None:
         return [], None, [], "The section's parameters could not be read: nothing to re-run."
     surface, _ = critical_and_alternatives(assessment)
     if surface is None:
         return [], None, [], ("The assessment stored no slip surface, so the methods cannot be "
                               "re-run on it; only the stored factor of safety is reported.")
-    options = section.search or {}
+    options = current.search or {}
     governing = assessment.method or options.get("method", "bishop_simplified")
     try:
-        current = section.with_water_lines(water_points) if water_points else section
         settings = SearchSettings(method=governing, n_slices=int(options.get("slices", 30)))
         stored = assessment.surface if isinstance(assessment.surface, dict) else {}
         direction = stored.get("critical", stored).get("direction")
@@ -253,7 +268,7 @@ def _every_method(section, water_points: dict, assessment: AssessmentRecord | No
     governing_row = next((r for r in rows if r["method"] == governing), None)
     table = []
     if governing in results:
-        table = _slice_table(slices, results[governing], section)
+        table = _slice_table(slices, results[governing], current)
     active = int(np.asarray(slices.active[0], dtype=bool).sum())
     note = ("Re-run on the stored parameter version, water lines and critical surface of the "
             f"assessment: {settings.n_slices} slices asked for, {active} after the splits where "

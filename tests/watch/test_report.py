@@ -9,6 +9,7 @@ import shutil
 import subprocess
 from datetime import timedelta
 
+import numpy as np
 import pytest
 from click.testing import CliRunner
 
@@ -151,3 +152,34 @@ def test_report_command_json(report):
     data = json.loads(outcome.output)
     assert data["pages"] == len(EXPECTED_PAGES)
     assert pdf.read_bytes()[:5] == b"%PDF-"
+
+
+def test_the_rerun_draws_lines_through_heads_without_the_inclination_correction(tmp_path):
+    # The methods page re-runs the stored inputs as the cycle used them: a line through
+    # piezometer heads holds pressure heads at the tips, so no cos^2 (Skempton and DeLory
+    # 1957); a design line keeps the section's own setting.
+    from solver.constants import GAMMA_W
+    from watch.report import rerun_section
+    from watch.groundwater import SOURCE_DESIGN_LINE, SOURCE_INSTRUMENTS
+
+    workspace = make_workspace(tmp_path / "ws")
+    section = load_section(workspace.root / "sections" / "first.toml")
+    clay = next(w for w in section.water_lines if w.name == "clay").points.copy()
+    clay[:, 1] += 0.5 * (clay[:, 0] - clay[0, 0]) / (clay[-1, 0] - clay[0, 0])  # sloping
+    corrected = section.with_water_lines({"clay": clay}, {"clay": True})
+    measured = rerun_section(corrected, {"clay": clay}, {"clay": SOURCE_INSTRUMENTS})
+    design = rerun_section(corrected, {"clay": clay}, {"clay": SOURCE_DESIGN_LINE})
+    assert not next(w for w in measured.water_lines if w.name == "clay").inclination_correction
+    assert next(w for w in design.water_lines if w.name == "clay").inclination_correction
+    slices = slice_surface(measured, CIRCLE, 30)
+    active = slices.active[0]
+    clay_index = [m.water for m in measured.materials].index("clay")
+    active &= slices.base_material[0] == clay_index  # bases in a material on the clay line
+    assert active.any()
+    x, y = slices.x_mid[0, active], slices.y_base[0, active]
+    head = np.interp(x, clay[:, 0], clay[:, 1])
+    u = slices.pore_pressure[0, active]
+    below = head > y
+    assert below.any()
+    # u = gamma_w (h - y) at the base of every slice under the line (Skempton and DeLory 1957).
+    np.testing.assert_allclose(u[below], GAMMA_W * (head - y)[below], rtol=1e-9)
