@@ -121,6 +121,7 @@ class AssessmentRecord:
 #: Severity cues written before every level's word, so that levels differ in a shape people
 #: read in grey print and without colour vision, not in hue alone (our own set).
 SEVERITY_CUES = {-1: "?", 0: "\u25cb", 1: "\u25b2", 2: "\u25b2\u25b2", 3: "\u25b2\u25b2\u25b2"}
+OUT_OF_SERVICE_CUE = "\u2715"
 #: What is expected of the duty engineer where the site file sets no expectation.
 EXPECTATION_NO_ALERT = "No action beyond the routine watch."
 EXPECTATION_DATA_ALERT = ("Safety not known: get the instruments reporting again and judge the "
@@ -140,6 +141,9 @@ class Level:
     expectation: str = ""
     #: 1..3: place of the level among the site's levels (3 for the highest); None: by rank.
     tier: int | None = None
+    #: A section out of service (slipped, closed, under repair): a look of its own, never one
+    #: of the owner's levels, so that a slipped section is not read as a red alert.
+    out_of_service: bool = False
 
     @property
     def severity(self) -> int:
@@ -150,11 +154,13 @@ class Level:
 
     @property
     def css(self) -> str:
+        if self.out_of_service:
+            return "lv-out"
         return "lv-none" if self.severity < 0 else f"lv-{self.severity}"
 
     @property
     def cue(self) -> str:
-        return SEVERITY_CUES[self.severity]
+        return OUT_OF_SERVICE_CUE if self.out_of_service else SEVERITY_CUES[self.severity]
 
 
 NOT_ASSESSED = Level("not assessed", -1, "no assessment stored yet", EXPECTATION_NOT_ASSESSED)
@@ -344,7 +350,8 @@ def _out_of_service(state) -> Level:
     """A section not in service shows its state instead of a level: slipped above every
     level; closed and under repair as "safety unknown" (it is not being assessed)."""
     return Level(state.words, SLIPPED_RANK if state.state == "slipped" else -1, state.describe(),
-                 "not assessed while out of service; its open alerts stay open until closed with a note")
+                 "not assessed while out of service; its open alerts stay open until closed with a note",
+                 out_of_service=True)
 
 
 def _level(open_alerts: list[dict], latest: AssessmentRecord | None,
@@ -1005,11 +1012,14 @@ td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: now
 .lv-1 { background: #fde68a; }
 .lv-2 { background: #e08600; }
 .lv-3 { background: #7f0a1f; color: #ffffff; border: 4px double #000000; }
+.lv-out { background: repeating-linear-gradient(45deg, #2f2f2f 0 6px, #555555 6px 12px);
+          color: #ffffff; border: 3px solid #000000; }
 .expect { font-size: 0.85em; color: #1a1a1a; margin-top: 0.3em; max-width: 14em; }
 .expect-wide { max-width: 60em; }
 tr.row-lv-1 td:first-child { border-left: 4px solid #1a1a1a; }
 tr.row-lv-2 td:first-child { border-left: 8px solid #1a1a1a; }
 tr.row-lv-3 td:first-child { border-left: 12px solid #7f0a1f; }
+tr.row-lv-out td:first-child { border-left: 12px solid #2f2f2f; }
 .small { font-size: 0.85em; color: #333333; }
 .design { font-style: italic; }
 figure { margin: 1em 0; }

@@ -540,7 +540,7 @@ def reread(workspace: Workspace, archived: Path | str, clock: Clock, progress: b
         with workspace.open_store() as store:
             sha, size = _sha256(path)
             with store.atomic():
-                store.sync_site(config)
+                store.sync_site(config, utc_text(now))
                 summary, _, file_id = _read_file(store, config, path, path.name, sha, size, now, progress,
                                                  purpose="reread")  # fmt: skip
                 summary.archived_as = _relative(workspace, path)
@@ -561,7 +561,7 @@ def apply_corrections(workspace: Workspace, path: Path | str, by: str, reason: s
         config = workspace.config()
         with workspace.open_store() as store:
             with store.atomic():
-                store.sync_site(config)
+                store.sync_site(config, utc_text(correction.at))
             claim = _claim_named(workspace, Path(path))
             return _ingest_claimed(workspace, store, config, claim, correction.at, progress, correction)
 

@@ -34,7 +34,9 @@ def test_demo_replays_the_season_and_writes_the_board_and_report(tmp_path):
     rows = {r["section_id"]: r for r in sections_status(open_workspace(tmp_path / "demo"), settings.end)}
     assert rows["WC-060"]["service_state"] == "slipped" and rows["WC-060"]["level"] is None
     index = (Path(summary["board"]) / "index.html").read_text(encoding="utf-8")
-    assert re.search(r'WC-060</a>.*?<span class="badge [^"]*">slipped</span>', index, re.S)
+    # Its own look (hatched, with a cross), never the red level's.
+    assert re.search(r'WC-060</a>.*?<span class="badge lv-out"><span class="cue"[^>]*>\u2715</span>slipped</span>',
+                     index, re.S)
     assert Path(summary["slip_report"]).stat().st_size > 0
     if shutil.which("pdftotext"):
         report = subprocess.run(["pdftotext", "-layout", summary["slip_report"], "-"], capture_output=True,

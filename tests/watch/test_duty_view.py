@@ -62,12 +62,19 @@ def design(tmp_path_factory):
         store.conn.execute("UPDATE section_versions SET parameters_json = ? WHERE id = ?",
                            (json.dumps(parameters), row[0]))
         # An alert whose message is longer than its column: the table must wrap it, not cut it.
-        store.conn.execute(
+        cursor = store.conn.execute(
             "INSERT INTO alerts (section_id, rule, level, state, message, raised_utc, updated_utc) "
             "VALUES ('S-1', 'rain-long', 'watch', 'firing', ?, ?, ?)",
             ("rain at RG-1 against the invented intensity-duration curve at or above 0.65 "
              "for the whole of the wet week", "2026-01-18T09:05:00Z", "2026-01-19T09:07:00Z"),
         )
+        # The report lists the alerts' stored events (watch.alert_history): raised, then updated.
+        for time, old, new in (("2026-01-18T09:05:00Z", "inactive", "firing"),
+                               ("2026-01-19T09:07:00Z", "firing", "firing")):
+            store.conn.execute(
+                "INSERT INTO alert_events (alert_id, time_utc, event, old_state, new_state, episode, "
+                "value, created_utc) VALUES (?, ?, 'state change', ?, ?, 1, 0.7, ?)",
+                (cursor.lastrowid, time, old, new, time))
     return workspace
 
 

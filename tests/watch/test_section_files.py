@@ -119,7 +119,10 @@ def test_a_file_edited_after_a_calibration_wins(tmp_path):
     }
     clock.advance(STEP)
     with workspace.open_store() as store:
-        calibrate(workspace, store, result, ["WC-040"], "T. Tester", clock.now())
+        # The stand-in result carries no consistency checks (it is not a back-analysis): the
+        # test is about which version is in force, so the refusal is overridden, with a reason.
+        calibrate(workspace, store, result, ["WC-040"], "T. Tester", clock.now(),
+                  override="stand-in result for a test of version precedence")
     # An unchanged file leaves the calibrated version in force.
     clock.advance(STEP)
     run_cycle(workspace, clock, sections=["WC-040"])
