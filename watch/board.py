@@ -229,11 +229,17 @@ def collect_status(workspace, store, now: datetime) -> SiteStatus:
     except UserError as error:
         config = None
         notes.append(f"site.toml could not be read ({error}); sections are listed from the store")
-    site = reader.one("SELECT id, name, owner, time_zone FROM sites LIMIT 1") or {}
-    refs = {}
+    # The site of site.toml: a store made by `init` also holds the example site it started
+    # from, whose name and sections are not this site's.
     if config is not None:
+        site = reader.one("SELECT id, name, owner, time_zone FROM sites WHERE id = ?", (config.id,)) or {}
         refs = {s.id: (s.file, s.gauge) for s in config.sections}
-    for row in reader.all("SELECT id, file, gauge_id FROM sections ORDER BY id"):
+        known = reader.all("SELECT id, file, gauge_id FROM sections WHERE site_id = ? ORDER BY id",
+                           (config.id,))
+    else:
+        site = reader.one("SELECT id, name, owner, time_zone FROM sites LIMIT 1") or {}
+        refs, known = {}, reader.all("SELECT id, file, gauge_id FROM sections ORDER BY id")
+    for row in known:
         refs.setdefault(row["id"], (row["file"], row["gauge_id"]))
     # Readings later than ``now`` exist when the board is made for a past moment (replays).
     newest = reader.one(

@@ -225,3 +225,28 @@ def test_plot_command_for_an_unknown_section_fails_in_one_line(filled):
     result = CliRunner().invoke(main, ["plot", "fos", "NOPE", "-w", str(workspace.root)])
     assert result.exit_code == 1
     assert "section 'NOPE' is not in site.toml or the store (known: S-1, S-2)" in result.output
+
+
+def test_the_board_is_the_site_of_site_toml_not_another_site_the_store_holds(tmp_path):
+    # A store made by `slipwatch init` also holds the example site it started from; the board
+    # must show the site that site.toml describes, with none of the other site's sections.
+    workspace = make_workspace(tmp_path / "ws")
+    config = workspace.config()
+    with workspace.open_store() as store:
+        with store.atomic():
+            store.conn.execute("PRAGMA defer_foreign_keys = ON")  # the site row is put back below
+            row = store.conn.execute("SELECT * FROM sites WHERE id = ?", (config.id,)).fetchone()
+            columns = [d[0] for d in store.conn.execute("SELECT * FROM sites").description]
+            # The other site first, as `init` leaves it: a board reading "the first site" fails.
+            store.conn.execute("DELETE FROM sites WHERE id = ?", (config.id,))
+            store.conn.execute("INSERT INTO sites (id, name, owner, time_zone, updated_utc) VALUES "
+                               "('ghost', 'Ghost Example Site', 'Ghost Owner', 'UTC', '2026-01-01T00:00:00Z')")
+            store.conn.execute(f"INSERT INTO sites ({', '.join(columns)}) VALUES "
+                               f"({', '.join('?' * len(columns))})", tuple(row))
+            store.conn.execute("INSERT INTO sections (id, site_id, file, gauge_id, updated_utc) VALUES "
+                               "('GH-1', 'ghost', 'sections/gh_1.toml', NULL, '2026-01-01T00:00:00Z')")
+    with workspace.open_store(read_only=True) as store:
+        status = collect_status(workspace, store, NOW)
+    assert status.site_name == config.name
+    assert "GH-1" not in {s.id for s in status.sections}
+    assert {s.id for s in config.sections} <= {s.id for s in status.sections}
